@@ -1,0 +1,58 @@
+"""The ``spanwright`` command.
+
+Each subcommand lives in its own module under ``service/commands/`` and exposes
+``NAME``, ``HELP``, ``add_arguments(parser)`` and ``run(args) -> int``; they are found by
+discovery, so adding a command touches no other file. Modules import heavy things
+(Flask, Redis) inside ``run`` so that ``spanwright solve`` starts fast.
+
+Exit codes: 0 success, 1 runtime failure, 2 invalid input or usage, 3 the server said no.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import pkgutil
+import sys
+from collections.abc import Sequence
+
+from workers.planning.errors import SpanwrightError, format_issues
+
+from . import commands
+
+EXIT_OK, EXIT_FAILURE, EXIT_INVALID = 0, 1, 2
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="spanwright",
+        description="Plan render and transcode batches onto farm nodes, with certificates.",
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    for info in sorted(pkgutil.iter_modules(commands.__path__), key=lambda i: i.name):
+        if info.name.startswith("_"):
+            continue
+        mod = importlib.import_module(f"{commands.__name__}.{info.name}")
+        p = sub.add_parser(mod.NAME, help=mod.HELP, description=mod.HELP)
+        mod.add_arguments(p)
+        p.set_defaults(_run=mod.run)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        code: int = args._run(args)
+    except SpanwrightError as exc:
+        print(f"spanwright: {exc.detail}", file=sys.stderr)
+        if exc.issues:
+            print(format_issues(exc.issues), file=sys.stderr)
+        return EXIT_INVALID if exc.status < 500 else EXIT_FAILURE
+    except KeyboardInterrupt:
+        return 130
+    return code
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

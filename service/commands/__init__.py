@@ -1,0 +1,1 @@
+"""Subcommands of ``spanwright``, one module each (see ``service/cli.py``)."""

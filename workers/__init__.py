@@ -1,0 +1,1 @@
+"""spanwright workers: the pure planning core (``workers.planning``) and the queue adapter."""

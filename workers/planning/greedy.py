@@ -1,0 +1,57 @@
+"""The fast rules: ``list`` (jobs in the given order) and ``longest_first`` (LPT).
+
+Both give each job to the node that becomes free first (Graham 1966). ``longest_first``
+takes the jobs longest first (Graham 1969). Ties are broken deterministically: equal
+durations keep batch order, equal node loads go to the lowest node index.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .kernels import least_loaded
+from .model import Instance
+from .result import Schedule
+
+
+def list_ratio(m: int) -> float:
+    """Graham (1966): list scheduling is within 2 - 1/m of the optimum."""
+    return 2.0 - 1.0 / m
+
+
+def lpt_ratio(m: int) -> float:
+    """Graham (1969): LPT is within 4/3 - 1/(3m) of the optimum."""
+    return 4.0 / 3.0 - 1.0 / (3.0 * m)
+
+
+def coffman_sethi_ratio(k: int, m: int) -> float:
+    """Coffman and Sethi (1976): with at least k jobs on every node, LPT is within
+    (k+1)/k - 1/(km) of the optimum (formula from memory; property-tested against brute
+    force in tests/workers/test_greedy.py)."""
+    return (k + 1) / k - 1.0 / (k * m)
+
+
+def list_schedule(inst: Instance) -> Schedule:
+    """Jobs in batch order, each onto the node that is free first."""
+    order = np.arange(inst.n, dtype=np.intp)
+    node_of, start = least_loaded(order, inst.durations, inst.m)
+    return Schedule(inst, node_of, start)
+
+
+def longest_first_schedule(inst: Instance) -> Schedule:
+    """LPT: jobs longest first, each onto the node that is free first."""
+    node_of, start = least_loaded(inst.order_longest_first, inst.durations, inst.m)
+    return Schedule(inst, node_of, start)
+
+
+def a_posteriori_ratio(schedule: Schedule) -> tuple[float, int]:
+    """The Coffman-Sethi bound for an LPT schedule, with the k it used.
+
+    k is the least number of jobs on any node; the ratio is never reported above
+    Graham's 4/3 - 1/(3m). With no more jobs than nodes LPT is optimal (ratio 1).
+    """
+    m = schedule.instance.m
+    if schedule.instance.n <= m:
+        return 1.0, 1
+    k = int(schedule.jobs_per_node().min())
+    return min(lpt_ratio(m), coffman_sethi_ratio(k, m)), k

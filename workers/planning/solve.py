@@ -1,0 +1,86 @@
+"""One entry point: ``solve(instance, method, ...) -> PlanResult``."""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+from .budget import Budget
+from .errors import InvalidInstance, Issue
+from .model import Instance
+from .result import PlanResult, Schedule
+from . import bounds, greedy
+
+METHODS = ("list", "longest_first", "exact", "auto")
+
+
+@dataclass(frozen=True, slots=True)
+class Progress:
+    """What a long solve reports while it runs (the worker publishes it)."""
+
+    elapsed: float
+    best_makespan: float
+    best_lower_bound: float
+
+
+ProgressHook = Callable[[Progress], None]
+
+
+def solve(
+    inst: Instance,
+    method: str = "longest_first",
+    *,
+    time_budget: float = 5.0,
+    progress: ProgressHook | None = None,
+    should_stop: Callable[[], bool] | None = None,
+) -> PlanResult:
+    """Plan ``inst`` with ``method`` and certify how far the plan may be from optimal.
+
+    ``time_budget`` (seconds) and ``should_stop`` (a cancel check) only matter to the
+    search methods; the greedy ones take milliseconds.
+    """
+    if method not in METHODS:
+        raise InvalidInstance(
+            f"unknown method {method!r}",
+            [Issue("/method", f"must be one of {', '.join(METHODS)}")],
+        )
+    if not (time_budget >= 0):
+        raise InvalidInstance("bad time budget", [Issue("/time_budget", "must be >= 0")])
+    budget = Budget(time_budget, should_stop)
+    if not inst.identical:
+        from . import farm  # heterogeneous farms: speeds, tags, nodes still busy
+
+        return farm.solve_farm(inst, method, budget, progress)
+    if method in ("exact", "auto"):
+        from .exact import solve_exact
+
+        return solve_exact(inst, budget, progress=progress, auto=(method == "auto"))
+    return solve_greedy(inst, method, budget.started)
+
+
+def solve_greedy(inst: Instance, method: str, started: float | None = None) -> PlanResult:
+    """``list`` or ``longest_first`` with its certificate."""
+    t0 = time.perf_counter() if started is None else started
+    extras: dict[str, Any] = {}
+    sched: Schedule
+    if method == "list":
+        sched = greedy.list_schedule(inst)
+        ratio = greedy.list_ratio(inst.m)
+    else:
+        sched = greedy.longest_first_schedule(inst)
+        ratio = greedy.lpt_ratio(inst.m)
+        post, k = greedy.a_posteriori_ratio(sched)
+        extras["a_posteriori_ratio"] = post
+        extras["a_posteriori"] = {"rule": "coffman_sethi_1976", "k": k}
+    cert = bounds.lower_bounds(inst, upper=sched.makespan)
+    return PlanResult(
+        schedule=sched,
+        method=method,
+        certificate=cert,
+        worst_case_ratio=ratio,
+        stop_reason="heuristic",
+        solve_seconds=time.perf_counter() - t0,
+        extras=extras,
+    )
