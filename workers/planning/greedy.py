@@ -8,8 +8,9 @@ durations keep batch order, equal node loads go to the lowest node index.
 from __future__ import annotations
 
 import numpy as np
+import numpy.typing as npt
 
-from .kernels import least_loaded
+from .kernels import assign_in_order
 from .model import Instance
 from .result import Schedule
 
@@ -31,16 +32,51 @@ def coffman_sethi_ratio(k: int, m: int) -> float:
     return (k + 1) / k - 1.0 / (k * m)
 
 
+def longest_first_order(durations: npt.NDArray[np.float64]) -> npt.NDArray[np.intp]:
+    """Job indices longest first, equal durations in batch order.
+
+    numpy's default (introsort) argsort is the floor on cost; it is not stable, so runs
+    of equal durations are put back in batch order afterwards, at a cost proportional to
+    the number of tied jobs (one sort of composite integer keys).
+    """
+    n = durations.size
+    order = np.argsort(durations)[::-1].copy()
+    sd = durations[order]
+    eq = sd[1:] == sd[:-1]
+    if n > 1 and eq.any():
+        in_run = np.zeros(n, dtype=bool)
+        in_run[1:] |= eq
+        in_run[:-1] |= eq
+        pos = np.flatnonzero(in_run)
+        run_id = np.concatenate(([0], np.cumsum(~eq)))
+        key = run_id[pos].astype(np.int64) * n + order[pos]
+        key.sort()
+        order[pos] = key % n
+    return order
+
+
+def longest_first_assign(
+    durations: npt.NDArray[np.float64], m: int
+) -> tuple[npt.NDArray[np.int32], npt.NDArray[np.float64]]:
+    """LPT on raw durations: (node of each job, start of each job), indexed by job."""
+    order = longest_first_order(durations)
+    node_sorted, start_sorted = assign_in_order(durations[order], m)
+    node_of = np.empty_like(node_sorted)
+    node_of[order] = node_sorted
+    start = np.empty_like(start_sorted)
+    start[order] = start_sorted
+    return node_of, start
+
+
 def list_schedule(inst: Instance) -> Schedule:
     """Jobs in batch order, each onto the node that is free first."""
-    order = np.arange(inst.n, dtype=np.intp)
-    node_of, start = least_loaded(order, inst.durations, inst.m)
+    node_of, start = assign_in_order(inst.durations, inst.m)
     return Schedule(inst, node_of, start)
 
 
 def longest_first_schedule(inst: Instance) -> Schedule:
     """LPT: jobs longest first, each onto the node that is free first."""
-    node_of, start = least_loaded(inst.order_longest_first, inst.durations, inst.m)
+    node_of, start = longest_first_assign(inst.durations, inst.m)
     return Schedule(inst, node_of, start)
 
 

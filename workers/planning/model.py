@@ -125,8 +125,9 @@ class Instance:
     @cached_property
     def order_longest_first(self) -> npt.NDArray[np.intp]:
         """Job indices by duration, longest first; ties by position in the batch."""
-        # a stable sort of the negated durations keeps equal durations in batch order
-        return np.argsort(-self.durations, kind="stable")
+        from .greedy import longest_first_order
+
+        return longest_first_order(self.durations)
 
     @cached_property
     def sorted_desc(self) -> FloatArray:
@@ -232,7 +233,9 @@ class _RequestReader:
     def read(self) -> Instance:
         body = self.body
         if not isinstance(body, Mapping):
-            raise InvalidInstance("the request body must be a JSON object", [Issue("", "not an object")])
+            raise InvalidInstance(
+                "the request body must be a JSON object", [Issue("", "not an object")]
+            )
         jobs = body.get("jobs")
         ids: list[str] = []
         durations: list[float] = []
@@ -270,6 +273,7 @@ class _RequestReader:
         deadline = self.number(body, "deadline", "", None)
         resolution = self.number(body, "resolution", "", 1.0)
         if self.issues:
+            self.issues.extend(_duplicates(ids, "/jobs", "job"))
             raise InvalidInstance(f"{len(self.issues)} problem(s) in the request", self.issues)
         inst = Instance(
             job_ids=tuple(ids),

@@ -189,6 +189,8 @@ class PlanResult:
             verdict = "met" if dl["met"] else "missed"
             if dl["provably_unreachable"]:
                 verdict += " (no plan can meet it)"
-            lines.append(f"deadline        {dl['deadline']:.6g} s: {verdict}, slack {dl['slack']:.6g} s")
+            lines.append(
+                f"deadline        {dl['deadline']:.6g} s: {verdict}, slack {dl['slack']:.6g} s"
+            )
         lines.append(f"solve time      {self.solve_seconds:.4f} s")
         return "\n".join(lines)

@@ -7,11 +7,11 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
+from . import bounds, greedy
 from .budget import Budget
 from .errors import InvalidInstance, Issue
 from .model import Instance
 from .result import PlanResult, Schedule
-from . import bounds, greedy
 
 METHODS = ("list", "longest_first", "exact", "auto")
 

@@ -1,0 +1,74 @@
+"""Validation of batches: every bad input is refused with a pointer to the bad field."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+
+from workers.planning import Instance, InvalidInstance
+
+
+def pointers(body: dict) -> list[str]:
+    with pytest.raises(InvalidInstance) as err:
+        Instance.from_request(body)
+    return [i.pointer for i in err.value.issues]
+
+
+def job(i: int, d: object = 10) -> dict:
+    return {"id": f"j{i}", "duration": d}
+
+
+@pytest.mark.parametrize(
+    ("body", "pointer"),
+    [
+        ({"jobs": [], "node_count": 2}, "/jobs"),
+        ({"node_count": 2}, "/jobs"),
+        ({"jobs": [job(0, -1)], "node_count": 2}, "/jobs/0/duration"),
+        ({"jobs": [job(0, math.nan)], "node_count": 2}, "/jobs/0/duration"),
+        ({"jobs": [job(0, math.inf)], "node_count": 2}, "/jobs/0/duration"),
+        ({"jobs": [job(0, "10")], "node_count": 2}, "/jobs/0/duration"),
+        ({"jobs": [job(0, True)], "node_count": 2}, "/jobs/0/duration"),
+        ({"jobs": [{"id": "a"}], "node_count": 2}, "/jobs/0/duration"),
+        ({"jobs": [job(0), job(0)], "node_count": 2}, "/jobs/1/id"),
+        ({"jobs": [job(0)], "node_count": 0}, "/node_count"),
+        ({"jobs": [job(0)], "node_count": 1.5}, "/node_count"),
+        ({"jobs": [job(0)]}, "/node_count"),
+        ({"jobs": [job(0)], "node_count": 2, "nodes": [{"id": "x"}]}, "/node_count"),
+        ({"jobs": [job(0)], "nodes": [{"id": "x", "speed": 0}]}, "/nodes/0/speed"),
+        ({"jobs": [job(0)], "nodes": [{"id": "x"}, {"id": "x"}]}, "/nodes/1/id"),
+        ({"jobs": [{"id": "a\u0007b", "duration": 1}], "node_count": 1}, "/jobs/0/id"),
+        ({"jobs": [{"id": "", "duration": 1}], "node_count": 1}, "/jobs/0/id"),
+        ({"jobs": [job(0)], "node_count": 1, "deadline": -5}, "/deadline"),
+        ({"jobs": [job(0)], "node_count": 1, "resolution": 0}, "/resolution"),
+    ],
+)
+def test_bad_input_names_the_field(body: dict, pointer: str) -> None:
+    """Each malformed batch raises InvalidInstance whose issues point (RFC 6901) at the field."""
+    assert pointer in pointers(body)
+
+
+def test_all_problems_reported_together() -> None:
+    """A batch with several faults lists all of them, not only the first."""
+    got = pointers({"jobs": [job(0, -1), job(1, "x"), job(1)], "node_count": 0})
+    assert {"/jobs/0/duration", "/jobs/1/duration", "/jobs/2/id", "/node_count"} <= set(got)
+
+
+def test_good_request_round_trips() -> None:
+    """A valid body keeps ids, durations, groups and the deadline as given."""
+    inst = Instance.from_request(
+        {
+            "jobs": [{"id": "sh010_f0001", "duration": 1840.5, "group": "sh010"}],
+            "node_count": 3,
+            "deadline": 28800,
+        }
+    )
+    assert inst.job_ids == ("sh010_f0001",) and inst.durations.tolist() == [1840.5]
+    assert inst.m == 3 and inst.deadline == 28800 and inst.groups == ("sh010",)
+    assert inst.identical
+
+
+def test_unicode_ids_are_accepted() -> None:
+    """Printable unicode in ids is fine (studios name shots in many scripts)."""
+    inst = Instance.from_request({"jobs": [{"id": "場面_07", "duration": 1}], "node_count": 1})
+    assert inst.job_ids == ("場面_07",)
