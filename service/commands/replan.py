@@ -1,0 +1,58 @@
+"""``spanwright replan REQUEST RESULT EVENTS``: plan what is left of a batch mid-run."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+
+from workers.planning.errors import InvalidInstance, Issue
+from workers.planning.solve import METHODS
+
+from ._io import read_json
+
+NAME = "replan"
+HELP = (
+    "re-plan a batch mid-run: the original request, its result, and an events file "
+    "(elapsed, finished, running, lost_nodes, added_nodes); times in the new plan count "
+    "from the re-planning moment"
+)
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("request_file", help="the original request body (JSON)")
+    p.add_argument("result_file", help="the original result object, or the plan with 'result'")
+    p.add_argument("events_file", help="what happened since the start (JSON)")
+    p.add_argument("--method", choices=METHODS, help="overrides the events' and request's")
+    p.add_argument("--time-budget", type=float, help="seconds of search (exact and auto)")
+    p.add_argument("--json", action="store_true", help="print exactly the result object")
+
+
+def _object(path: str) -> dict[str, object]:
+    body = read_json(path)
+    if not isinstance(body, dict):
+        raise InvalidInstance(f"{path} must hold a JSON object", [Issue("", "not an object")])
+    return body
+
+
+def run(args: argparse.Namespace) -> int:
+    from workers.planning.replan import replan
+
+    request = _object(args.request_file)
+    result = _object(args.result_file)
+    events = _object(args.events_file)
+    if args.time_budget is not None and not args.time_budget >= 0:
+        raise InvalidInstance("bad time budget", [Issue("/time_budget", "must be >= 0")])
+    res = replan(request, result, events, method=args.method, time_budget=args.time_budget)
+    if args.json:
+        json.dump(res.to_dict(), sys.stdout, allow_nan=False)
+        sys.stdout.write("\n")
+    else:
+        print(res.summary())
+        info = res.extras["replan"]
+        print(f"time origin     {info['time_origin']:.6g} s after the original start")
+        print(
+            f"kept running    {len(info['running'])} job(s); planned again "
+            f"{info['planned']} job(s), {len(info['replanned_from_lost_nodes'])} from lost nodes"
+        )
+    return 0

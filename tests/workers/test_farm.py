@@ -1,0 +1,333 @@
+"""Real farms (speeds, requires/provides tags, busy nodes) against outside references.
+
+The exact reference is a MILP written here, independently of ``farm_milp``, and solved by
+HiGHS through ``scipy.optimize.milp``; guarantees are the published ones named in each
+docstring (see ../shared/references.md section 4).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy.optimize import Bounds, LinearConstraint, milp
+
+from workers.planning import Infeasible, Instance, Node, solve
+from workers.planning.budget import Budget
+from workers.planning.farm import (
+    KOVACS_2010,
+    earliest_finish_classes,
+    improve,
+    node_classes,
+    solve_farm,
+)
+from workers.planning.farm_bounds import eligibility, farm_lower_bounds
+from workers.planning.kernels import earliest_finish
+
+
+def reference_optimum(inst: Instance) -> float:
+    """Optimum makespan by a dense MILP (HiGHS): y[j, k] binary, ineligible pairs fixed to
+    0 by their bounds, C >= f_k + sum_j y[j, k] p_j / s_k and C >= f_k for every node."""
+    n, m = inst.n, inst.m
+    nv = n * m + 1
+    c = np.zeros(nv)
+    c[-1] = 1.0
+    assign = np.zeros((n, nv))
+    for j in range(n):
+        assign[j, j * m : (j + 1) * m] = 1.0
+    node = np.zeros((m, nv))
+    for k, nd in enumerate(inst.nodes):
+        for j in range(n):
+            node[k, j * m + k] = inst.durations[j] / nd.speed
+        node[k, -1] = -1.0
+    ub = np.ones(nv)
+    ub[-1] = np.inf
+    for j in range(n):
+        req = inst.requires[j] if inst.requires is not None else frozenset()
+        for k, nd in enumerate(inst.nodes):
+            if not req <= nd.provides:
+                ub[j * m + k] = 0.0
+    free = np.array([nd.free_at for nd in inst.nodes])
+    lb = np.zeros(nv)
+    lb[-1] = free.max()
+    integ = np.ones(nv)
+    integ[-1] = 0
+    res = milp(
+        c,
+        constraints=[LinearConstraint(assign, 1, 1), LinearConstraint(node, -np.inf, -free)],
+        integrality=integ,
+        bounds=Bounds(lb, ub),
+        options={"mip_rel_gap": 0.0},
+    )
+    assert res.status == 0, res.message
+    return float(res.fun)
+
+
+def random_farm(
+    rng: np.random.Generator,
+    *,
+    n: int,
+    m: int,
+    speeds: bool = True,
+    tags: bool = True,
+    busy: bool = True,
+) -> Instance:
+    """A small farm of our own invention: blades of three speeds, some with a GPU."""
+    nodes = []
+    for k in range(m):
+        provides = frozenset({"gpu"}) if tags and (k == 0 or rng.random() < 0.3) else frozenset()
+        if tags and rng.random() < 0.3:
+            provides = provides | {"bigmem"}
+        nodes.append(
+            Node(
+                f"blade-{k:02d}",
+                speed=float(rng.choice([0.5, 1.0, 1.5, 2.0])) if speeds else 1.0,
+                provides=provides,
+                free_at=float(rng.integers(0, 60)) if busy and rng.random() < 0.5 else 0.0,
+            )
+        )
+    d = rng.integers(1, 100, n).astype(float)
+    req = None
+    if tags:
+        options = [[], [], ["gpu"]] + (
+            [["bigmem"]] if any("bigmem" in x.provides for x in nodes) else []
+        )
+        req = [options[int(rng.integers(0, len(options)))] for _ in range(n)]
+    return Instance.build(d, nodes, requires=req, job_ids=[f"sh{j:03d}" for j in range(n)])
+
+
+CASES = [
+    random_farm(np.random.default_rng(seed), n=3 + seed % 6, m=2 + seed % 3) for seed in range(40)
+]
+
+
+@pytest.mark.parametrize("inst", CASES[:30])
+def test_exact_equals_reference_milp(inst: Instance) -> None:
+    """``exact`` on small mixed farms (speeds, tags, free_at) reaches the optimum of an
+    independent MILP solved by HiGHS (scipy.optimize.milp) and says it is proven."""
+    opt = reference_optimum(inst)
+    res = solve(inst, "exact", time_budget=10)
+    res.schedule.check()
+    assert res.makespan == pytest.approx(opt, rel=1e-6)
+    assert res.proven_optimal and res.stop_reason == "proved_optimal"
+    assert res.lower_bound <= opt * (1 + 1e-9)
+
+
+@pytest.mark.parametrize("inst", CASES)
+def test_bounds_never_above_reference_optimum(inst: Instance) -> None:
+    """Every named farm bound is <= the HiGHS optimum (scipy.optimize.milp reference)."""
+    opt = reference_optimum(inst)
+    elig = eligibility(inst)
+    cert = farm_lower_bounds(inst, elig, upper=solve(inst, "longest_first").makespan)
+    for name, value in cert.bounds.items():
+        assert value <= opt * (1 + 1e-9) + 1e-9, (name, value, opt)
+
+
+def test_bounds_on_identical_groups_never_above_optimum() -> None:
+    """Bin-packing lifted bounds on identical groups (same speed and free_at) stay below
+    the HiGHS optimum (scipy.optimize.milp reference)."""
+    rng = np.random.default_rng(7)
+    for _ in range(15):
+        m = int(rng.integers(2, 4))
+        gpu = int(rng.integers(1, m))
+        nodes = [
+            Node(f"n{k}", speed=1.5, provides=frozenset({"gpu"}) if k < gpu else frozenset())
+            for k in range(m)
+        ]
+        n = int(rng.integers(m + 2, 9))
+        d = rng.integers(5, 60, n)
+        req = [["gpu"] if rng.random() < 0.5 else [] for _ in range(n)]
+        inst = Instance.build(d, nodes, requires=req)
+        opt = reference_optimum(inst)
+        cert = farm_lower_bounds(inst, eligibility(inst), upper=float(d.sum()))
+        for name, value in cert.bounds.items():
+            assert value <= opt * (1 + 1e-9) + 1e-9, (name, value, opt)
+
+
+def test_k_longest_matches_classical_uniform_bound() -> None:
+    """Without busy nodes the k_longest bound is max_k (p_1+..+p_k)/(s_1+..+s_k), the
+    classical uniform-machine bound (common practice), computed here directly."""
+    rng = np.random.default_rng(3)
+    for _ in range(20):
+        inst = random_farm(
+            rng, n=int(rng.integers(2, 12)), m=int(rng.integers(2, 6)), tags=False, busy=False
+        )
+        p = np.sort(inst.durations)[::-1]
+        s = np.sort([nd.speed for nd in inst.nodes])[::-1]
+        k = min(p.size, s.size)
+        direct = max(p[:i].sum() / s[:i].sum() for i in range(1, k + 1))
+        cert = farm_lower_bounds(inst, eligibility(inst), upper=float(p.sum() / s.min()))
+        assert cert.bounds["k_longest"] == pytest.approx(direct, rel=1e-9)
+
+
+@pytest.mark.parametrize("method", ["list", "longest_first"])
+def test_identical_nodes_reduce_exactly(method: str) -> None:
+    """Plain nodes with tags every node provides give exactly the identical-node result of
+    ``solve`` on the equivalent ``node_count`` instance (same plan, bounds and ratio)."""
+    rng = np.random.default_rng(11)
+    for _ in range(10):
+        m = int(rng.integers(2, 6))
+        d = rng.integers(1, 500, int(rng.integers(5, 40)))
+        nodes = [Node(f"rack-{k}", provides=frozenset({"gpu"})) for k in range(m)]
+        req = [["gpu"] if rng.random() < 0.5 else [] for _ in d]
+        farm = solve(Instance.build(d, nodes, requires=req), method)
+        plain = solve(Instance.build(d, m), method)
+        assert np.array_equal(farm.schedule.node_of, plain.schedule.node_of)
+        assert np.array_equal(farm.schedule.start, plain.schedule.start)
+        assert farm.makespan == plain.makespan
+        assert farm.certificate.bounds == plain.certificate.bounds
+        assert farm.worst_case_ratio == plain.worst_case_ratio
+        direct = solve_farm(Instance.build(d, m), method, Budget(1.0), None)
+        assert direct.certificate.bounds == plain.certificate.bounds
+
+
+def test_identical_nodes_reduce_exactly_exact_method() -> None:
+    """``exact`` on plain nodes with all-provided tags equals the identical-node exact
+    solver's result on the node_count instance (same makespan and bound)."""
+    pytest.importorskip("workers.planning.exact")
+    rng = np.random.default_rng(5)
+    d = rng.integers(1, 100, 10)
+    nodes = [Node(f"rack-{k}", provides=frozenset({"gpu"})) for k in range(3)]
+    farm = solve(Instance.build(d, nodes, requires=[["gpu"]] * 10), "exact", time_budget=10)
+    plain = solve(Instance.build(d, 3), "exact", time_budget=10)
+    assert farm.method == plain.method and farm.stop_reason == plain.stop_reason
+    assert farm.makespan == plain.makespan
+    assert farm.lower_bound == plain.lower_bound
+    assert farm.extras["farm"]["reduced_to"].startswith("identical nodes")
+
+
+def test_lpt_uniform_speeds_within_kovacs_bound() -> None:
+    """LPT for uniform machines (earliest finish) is within 1 + sqrt(3)/3 of the optimum
+    (Kovacs, Algorithmica 2010, upper bound) on random speed-only farms, and within Graham
+    (1969) 4/3 - 1/(3m) when every node has the same speed; HiGHS optimum."""
+    rng = np.random.default_rng(21)
+    for _ in range(25):
+        inst = random_farm(
+            rng, n=int(rng.integers(3, 9)), m=int(rng.integers(2, 4)), tags=False, busy=False
+        )
+        res = solve(inst, "longest_first")
+        if len({nd.speed for nd in inst.nodes}) == 1:
+            # one speed: identical nodes with time scaled, Graham (1969) 4/3 - 1/(3m)
+            assert res.worst_case_ratio == pytest.approx(4 / 3 - 1 / (3 * inst.m))
+        else:
+            assert res.worst_case_ratio == pytest.approx(1 + math.sqrt(3) / 3)
+            assert res.worst_case_ratio == KOVACS_2010
+        assert res.makespan <= res.worst_case_ratio * reference_optimum(inst) * (1 + 1e-9)
+
+
+def test_lpt_busy_nodes_within_lee_bound() -> None:
+    """One speed, nodes free at different times: LPT within 3/2 - 1/(2m) (Lee 1991, from
+    memory) and list scheduling within 2 - 1/m (Graham 1966's argument); HiGHS optimum."""
+    rng = np.random.default_rng(22)
+    for _ in range(25):
+        m = int(rng.integers(2, 4))
+        inst = random_farm(rng, n=int(rng.integers(3, 9)), m=m, speeds=False, tags=False)
+        if inst.identical:
+            continue
+        opt = reference_optimum(inst)
+        lpt = solve(inst, "longest_first")
+        assert lpt.worst_case_ratio == pytest.approx(1.5 - 1 / (2 * m))
+        assert lpt.makespan <= lpt.worst_case_ratio * opt * (1 + 1e-9)
+        lst = solve(inst, "list")
+        assert lst.worst_case_ratio == pytest.approx(2 - 1 / m)
+        assert lst.makespan <= lst.worst_case_ratio * opt * (1 + 1e-9)
+
+
+def test_tags_give_no_ratio_but_a_gap() -> None:
+    """With requires/provides tags no guarantee is known (references.md section 4): the
+    ratio is null and the gap still comes from the proven bound."""
+    inst = CASES[3]
+    assert inst.requires is not None
+    res = solve(inst, "longest_first")
+    assert res.worst_case_ratio is None
+    assert res.gap == pytest.approx((res.makespan - res.lower_bound) / res.lower_bound)
+
+
+def test_every_job_on_an_eligible_node() -> None:
+    """Every method puts every job on a node that provides all it requires, after free_at."""
+    for inst in CASES[:15]:
+        for method in ("list", "longest_first", "exact", "auto"):
+            res = solve(inst, method, time_budget=2)
+            res.schedule.check()
+            for j, k in enumerate(res.schedule.node_of.tolist()):
+                assert inst.requires is None or inst.requires[j] <= inst.nodes[k].provides
+
+
+def test_infeasible_named_job_by_job() -> None:
+    """A job whose requires no node provides is refused by name, pointer /jobs/i/requires."""
+    nodes = [Node("a", provides=frozenset({"gpu"})), Node("b", speed=2.0)]
+    inst = Instance.build(
+        [10, 20, 30, 40],
+        nodes,
+        requires=[[], ["gpu", "bigmem"], ["gpu"], ["licence"]],
+        job_ids=["ep1_a", "ep1_b", "ep1_c", "ep1_d"],
+    )
+    with pytest.raises(Infeasible) as err:
+        solve(inst, "longest_first")
+    assert err.value.jobs == ["ep1_b", "ep1_d"]
+    assert [i.pointer for i in err.value.issues] == ["/jobs/1/requires", "/jobs/3/requires"]
+
+
+def test_large_instance_local_search_never_worse_than_lpt() -> None:
+    """Beyond MILP size, ``exact`` returns LPT improved by moves/swaps: never worse than
+    LPT (Gonzalez, Ibarra and Sahni's rule), a valid plan, a certificate below it."""
+    rng = np.random.default_rng(2)
+    inst = random_farm(rng, n=600, m=12)
+    lpt = solve(inst, "longest_first")
+    res = solve(inst, "auto", time_budget=0.5)
+    res.schedule.check()
+    assert res.makespan <= lpt.makespan
+    assert res.extras["auto"]["chose"] == "longest_first+local_search"
+    assert res.stop_reason in ("time_budget", "heuristic", "proved_optimal")
+    assert res.lower_bound <= res.makespan
+
+
+def test_improve_pure_python_path_matches_compiled() -> None:
+    """The local-search kernel gives the same plan compiled and as plain Python."""
+    rng = np.random.default_rng(4)
+    inst = random_farm(rng, n=60, m=5)
+    elig = eligibility(inst)
+    s = np.array([nd.speed for nd in inst.nodes])
+    f = np.array([nd.free_at for nd in inst.nodes])
+    start = np.array([int(np.flatnonzero(elig.eligible[t])[0]) for t in elig.job_type], np.int32)
+    a, b = start.copy(), start.copy()
+    order = inst.order_longest_first
+    members, cstart, celig = node_classes(inst, elig)
+    args = (inst.durations, s, f, elig.job_type, elig.eligible, order, celig, cstart, members)
+    ra = improve(a, *args, 1000)
+    rb = improve.py_func(b, *args, 1000)
+    assert ra == rb and np.array_equal(a, b)
+    assert ra[0] > 0
+
+
+def test_class_heap_lpt_equals_plain_earliest_finish() -> None:
+    """The per-class heap version of earliest finish gives exactly the plan of the plain
+    O(n m) scan (kernels.earliest_finish) when the arithmetic is exact (whole durations,
+    speeds that are powers of two), compiled and as plain Python."""
+    rng = np.random.default_rng(9)
+    for _ in range(10):
+        m = int(rng.integers(3, 40))
+        nodes = [
+            Node(
+                f"blade-{k}",
+                speed=float(rng.choice([0.5, 1.0, 2.0, 4.0])),
+                provides=frozenset({"gpu"}) if rng.random() < 0.3 else frozenset(),
+                free_at=float(rng.integers(0, 500)) if rng.random() < 0.25 else 0.0,
+            )
+            for k in range(m)
+        ]
+        nodes[0] = Node("blade-0", speed=2.0, provides=frozenset({"gpu"}))
+        n = int(rng.integers(50, 2000))
+        d = rng.integers(1, 3000, n)
+        req = [["gpu"] if x else [] for x in rng.random(n) < 0.2]
+        inst = Instance.build(d, nodes, requires=req)
+        elig = eligibility(inst)
+        s = np.array([nd.speed for nd in inst.nodes])
+        f = np.array([nd.free_at for nd in inst.nodes])
+        members, cstart, celig = node_classes(inst, elig)
+        for order in (inst.order_longest_first, np.arange(n, dtype=np.intp)):
+            ref = earliest_finish.py_func(order, inst.durations, s, f, elig.job_type, elig.eligible)
+            args = (order, inst.durations, s, f, elig.job_type, celig, cstart, members)
+            for got in (earliest_finish_classes(*args), earliest_finish_classes.py_func(*args)):
+                assert np.array_equal(got[0], ref[0]) and np.array_equal(got[1], ref[1])

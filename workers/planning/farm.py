@@ -1,0 +1,617 @@
+"""Plans for real farms: node speeds, requires/provides tags, and nodes still busy (free_at).
+
+``solve_farm`` is what ``solve.solve`` calls for every instance that is not plain identical
+nodes. Methods:
+
+``list``           jobs in batch order, each onto the eligible node where it would finish
+                   first.
+``longest_first``  the LPT rule for uniform machines: jobs longest first, each onto the
+                   eligible node where it would finish first (Gonzalez, Ibarra and Sahni
+                   1977 studied it for speeds; Lee 1991 for nodes free at different times).
+``exact``          a MILP through HiGHS (``farm_milp``) when the instance is small enough,
+                   else LPT plus a local search (moves and swaps off the node that finishes
+                   last, respecting eligibility), then random restarts from the local
+                   optimum (iterated local search) until the budget is spent;
+                   certificate either way.
+``auto``           the same choice as ``exact``; ``extras["auto"]`` says what was chosen.
+
+An instance that is identical nodes in effect (every node speed 1 and free at 0, every job
+allowed everywhere) is handed to the identical-node code, so it gets exactly those results.
+
+A-priori guarantees (``worst_case_ratio``), only where a published one applies:
+
+- one speed, no tags, all free at 0: LPT within Graham's (1969) ``4/3 - 1/(3m)`` and list
+  within ``2 - 1/m`` (identical nodes with time scaled by the speed);
+- speeds, no tags, all free at 0: LPT within ``1 + sqrt(3)/3`` (Kovacs, Algorithmica 2010,
+  upper bound, verified in ``../shared/references.md``; the older ``2m/(m+1)`` of Gonzalez,
+  Ibarra and Sahni 1977 is from memory there and is not used);
+- one speed with busy nodes, no tags: LPT within ``3/2 - 1/(2m)`` (Lee 1991, from memory);
+  list within ``2 - 1/m`` (Graham's 1966 argument with the ``mean_load`` bound of
+  ``farm_bounds``: the job j that ends last started no later than the mean finish
+  ``(sum f + (sum p - p_j) / s) / m``, so it ends by ``mean_load + (1 - 1/m) p_j / s``;
+  common practice);
+- with tags, or speeds and busy nodes together: ``None`` (no guarantee known).
+
+The gap always comes from the proven bound. ``exact``/``auto`` keep the LPT guarantee (their
+plan is never worse than LPT's). ``stop_reason`` is ``proved_optimal`` when the bound meets
+the plan, ``time_budget`` when the budget ran out, ``heuristic`` when the search ended
+earlier at a local optimum (large instances) without a proof.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import time
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+from . import farm_milp
+from .budget import Budget
+from .farm_bounds import Eligibility, eligibility, farm_lower_bounds
+from .greedy import lpt_ratio
+from .kernels import earliest_finish, jit
+from .model import FloatArray, Instance
+from .result import Certificate, PlanResult, Schedule
+from .solve import Progress, ProgressHook
+
+KOVACS_2010 = 1.0 + math.sqrt(3.0) / 3.0
+
+#: seconds a compiled local-search call should last (the budget is checked between calls)
+CALL_SECONDS = 0.05
+#: about what building the final plan and certificate costs per job (kept off the budget)
+FINISH_SECONDS_PER_JOB = 4e-7
+#: up to this many job x node pairs the plain-Python kernels are used (no compile/load cost)
+TINY_WORK = 2_000
+#: random restarts from the local optimum (iterated local search) up to this many jobs
+MAX_KICK_JOBS = 20_000
+
+
+def ratio_for(
+    inst: Instance, method: str, elig: Eligibility | None = None
+) -> tuple[float | None, str]:
+    """The published guarantee of ``method`` (``list`` or ``longest_first``) on ``inst``."""
+    if elig is None:
+        elig = eligibility(inst)
+    tags = not elig.all_eligible
+    speeds = {nd.speed for nd in inst.nodes}
+    busy = any(nd.free_at != 0 for nd in inst.nodes)
+    m = inst.m
+    if tags:
+        return None, "none known with requires/provides tags"
+    if method == "longest_first":
+        if not busy and len(speeds) == 1:
+            return lpt_ratio(
+                m
+            ), "graham_1969: 4/3 - 1/(3m) (one speed: identical nodes, time scaled)"
+        if not busy:
+            return KOVACS_2010, (
+                "kovacs_2010: 1 + sqrt(3)/3 (verified); gonzalez_ibarra_sahni_1977 2m/(m+1) "
+                "is from memory and not used"
+            )
+        if len(speeds) == 1:
+            return 1.5 - 1.0 / (2 * m), "lee_1991: 3/2 - 1/(2m) (from memory)"
+        return None, "none known for speeds and busy nodes together"
+    if method == "list" and len(speeds) == 1:
+        return 2.0 - 1.0 / m, "graham_1966 argument with the busy-node mean load (common practice)"
+    return None, "none known"
+
+
+def arrays(inst: Instance) -> tuple[FloatArray, FloatArray]:
+    """Node speeds and free_at as arrays."""
+    s = np.array([nd.speed for nd in inst.nodes], dtype=np.float64)
+    f = np.array([nd.free_at for nd in inst.nodes], dtype=np.float64)
+    return s, f
+
+
+def schedule_from_nodes(inst: Instance, node_of: npt.NDArray[np.int32]) -> Schedule:
+    """Back-to-back from each node's free_at, longest job first on every node."""
+    s, f = arrays(inst)
+    d = inst.durations
+    order = np.lexsort((np.arange(inst.n), -d, node_of))
+    nd = node_of[order]
+    t = d[order] / s[nd]
+    cs = np.cumsum(t)
+    first = np.searchsorted(nd, nd, "left")  # index in ``order`` where the node's run starts
+    before = np.where(first > 0, cs[first - 1], 0.0)
+    start = np.empty(inst.n)
+    start[order] = f[nd] + (cs - t - before)
+    return Schedule(inst, node_of.astype(np.int32), start)
+
+
+def _tiny(inst: Instance) -> bool:
+    """Small enough that plain Python beats loading the compiled kernels (CLI start-up)."""
+    return inst.n * inst.m <= TINY_WORK
+
+
+def greedy_schedule(inst: Instance, elig: Eligibility, method: str) -> Schedule:
+    """``list`` (batch order) or ``longest_first`` (LPT) with earliest finish."""
+    s, f = arrays(inst)
+    order = np.arange(inst.n, dtype=np.intp) if method == "list" else inst.order_longest_first
+    if _tiny(inst):
+        rule = getattr(earliest_finish, "py_func", earliest_finish)
+        node_of, start = rule(order, inst.durations, s, f, elig.job_type, elig.eligible)
+        return Schedule(inst, node_of, start)
+    members, cstart, celig = node_classes(inst, elig)
+    node_of, start = earliest_finish_classes(
+        order, inst.durations, s, f, elig.job_type, celig, cstart, members
+    )
+    return Schedule(inst, node_of, start)
+
+
+def node_classes(
+    inst: Instance, elig: Eligibility
+) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64], npt.NDArray[np.bool_]]:
+    """Nodes grouped by (speed, which job types may run there): node indices class by
+    class, where each class starts, and ``[type, class]`` eligibility."""
+    keys: dict[tuple[float, bytes], list[int]] = {}
+    for k, nd in enumerate(inst.nodes):
+        keys.setdefault((nd.speed, elig.eligible[:, k].tobytes()), []).append(k)
+    groups = list(keys.values())
+    members = np.array([k for g in groups for k in g], dtype=np.int64)
+    cstart = np.cumsum([0] + [len(g) for g in groups]).astype(np.int64)
+    celig = np.ascontiguousarray(elig.eligible[:, [g[0] for g in groups]])
+    return members, cstart, celig
+
+
+@jit
+def _sift_down(
+    heap: npt.NDArray[np.int64], lo: int, size: int, i: int, load: npt.NDArray[np.float64]
+) -> None:
+    """Restore the min-heap on (load, node index) of ``heap[lo:lo+size]`` from ``i``."""
+    k = heap[lo + i]
+    while True:
+        c = 2 * i + 1
+        if c >= size:
+            break
+        r = c + 1
+        a = heap[lo + c]
+        if r < size:
+            b = heap[lo + r]
+            if load[b] < load[a] or (load[b] == load[a] and b < a):
+                c = r
+                a = b
+        if load[a] < load[k] or (load[a] == load[k] and a < k):
+            heap[lo + i] = a
+            i = c
+        else:
+            break
+    heap[lo + i] = k
+
+
+@jit
+def earliest_finish_classes(
+    order: npt.NDArray[np.intp],
+    durations: npt.NDArray[np.float64],
+    speeds: npt.NDArray[np.float64],
+    free_at: npt.NDArray[np.float64],
+    job_type: npt.NDArray[np.int32],
+    class_eligible: npt.NDArray[np.bool_],
+    class_start: npt.NDArray[np.int64],
+    members: npt.NDArray[np.int64],
+) -> tuple[npt.NDArray[np.int32], npt.NDArray[np.float64]]:
+    """``kernels.earliest_finish`` for nodes in classes of one speed and one eligibility:
+    inside a class the node that frees first is where a job ends first, so one heap per
+    class gives the answer in O(classes + log m) a job instead of O(m). Ties go to the
+    lowest node index among the nodes that free first."""
+    n = order.shape[0]
+    nc = class_start.shape[0] - 1
+    load = free_at.copy()
+    heap = members.copy()
+    for c in range(nc):
+        lo = class_start[c]
+        size = class_start[c + 1] - lo
+        for i in range(size // 2 - 1, -1, -1):
+            _sift_down(heap, lo, size, i, load)
+    node_of = np.full(durations.shape[0], -1, dtype=np.int32)
+    start = np.zeros(durations.shape[0], dtype=np.float64)
+    for t in range(n):
+        j = order[t]
+        row = job_type[j]
+        best_c = -1
+        best_k = -1
+        best_end = np.inf
+        for c in range(nc):
+            if class_eligible[row, c]:
+                k = heap[class_start[c]]
+                e = load[k] + durations[j] / speeds[k]
+                if e < best_end or (e == best_end and k < best_k):
+                    best_end = e
+                    best_k = k
+                    best_c = c
+        if best_c >= 0:
+            node_of[j] = best_k
+            start[j] = load[best_k]
+            load[best_k] = best_end
+            lo = class_start[best_c]
+            _sift_down(heap, lo, class_start[best_c + 1] - lo, 0, load)
+    return node_of, start
+
+
+@jit
+def improve(
+    node_of: npt.NDArray[np.int32],
+    durations: npt.NDArray[np.float64],
+    speeds: npt.NDArray[np.float64],
+    free_at: npt.NDArray[np.float64],
+    job_type: npt.NDArray[np.int32],
+    eligible: npt.NDArray[np.bool_],
+    order: npt.NDArray[np.intp],
+    class_eligible: npt.NDArray[np.bool_],
+    class_start: npt.NDArray[np.int64],
+    members: npt.NDArray[np.int64],
+    max_steps: int,
+) -> tuple[int, bool]:
+    """Local search on ``node_of`` (changed in place): move a job off the node that finishes
+    last, or swap it with a shorter one elsewhere, whenever both nodes then finish strictly
+    before the current makespan. ``order`` lists the jobs longest first. Returns (steps
+    taken, True if no step helps any more).
+
+    A move costs O(n + m + jobs on the critical node x classes): inside a class of nodes
+    with one speed and one eligibility the node that finishes first is the best place.
+    Before a swap search the jobs of every node are listed longest first (one pass over
+    the jobs in longest-first order), so a partner is found by binary search in the window
+    of durations that would help: O(n + jobs on the critical node x m x log n).
+    """
+    n = durations.shape[0]
+    m = speeds.shape[0]
+    load = np.zeros(m)
+    for j in range(n):
+        load[node_of[j]] += durations[j]
+    first = np.zeros(m + 1, dtype=np.int64)
+    fill = np.zeros(m, dtype=np.int64)
+    seg = np.empty(n, dtype=np.int64)
+    nc = class_start.shape[0] - 1
+    class_best = np.zeros(nc, dtype=np.int64)
+    steps = 0
+    while steps < max_steps:
+        c = 0
+        cmax = -1.0
+        for k in range(m):
+            e = free_at[k] + load[k] / speeds[k]
+            if e > cmax:
+                cmax = e
+                c = k
+        tol = 1e-12 * max(1.0, cmax)
+        limit = cmax - tol
+        moved = False
+        # the node of every class (one speed, one eligibility) that finishes first
+        for cl in range(nc):
+            bk = -1
+            bf = np.inf
+            for q in range(class_start[cl], class_start[cl + 1]):
+                k = members[q]
+                e = free_at[k] + load[k] / speeds[k]
+                if e < bf:
+                    bf = e
+                    bk = k
+            class_best[cl] = bk
+        # moves: the best destination for some job of the critical node
+        for j in range(n):
+            if node_of[j] != c or durations[j] <= 0:
+                continue
+            row = job_type[j]
+            best = -1
+            best_end = limit
+            for cl in range(nc):
+                k = class_best[cl]
+                if k != c and class_eligible[row, cl]:
+                    e = free_at[k] + (load[k] + durations[j]) / speeds[k]
+                    if e < best_end:
+                        best_end = e
+                        best = k
+            if best >= 0:
+                node_of[j] = best
+                load[c] -= durations[j]
+                load[best] += durations[j]
+                moved = True
+                break
+        if moved:
+            steps += 1
+            continue
+        # every node's jobs, longest first (for the swap search)
+        first[:] = 0
+        for j in range(n):
+            first[node_of[j] + 1] += 1
+        for k in range(m):
+            first[k + 1] += first[k]
+        for k in range(m):
+            fill[k] = first[k]
+        for t in range(n):
+            j = order[t]
+            k = node_of[j]
+            seg[fill[k]] = j
+            fill[k] += 1
+        # swaps: job j of the critical node against a shorter job i on node k, with
+        # delta = p_j - p_i in (need_c, room_k): both nodes then end before the makespan.
+        # For the longest j that has one, take the pair that balances the two nodes best.
+        need_c = load[c] - (limit - free_at[c]) * speeds[c]
+        for q in range(first[c], first[c + 1]):
+            j = seg[q]
+            rj = job_type[j]
+            best_i = -1
+            best_k = -1
+            best_end = limit
+            for k in range(m):
+                if k == c or not eligible[rj, k] or first[k] == first[k + 1]:
+                    continue
+                room = (limit - free_at[k]) * speeds[k] - load[k]
+                if room <= need_c:
+                    continue
+                hi_d = durations[j] - need_c  # p_i must be < hi_d ...
+                lo_d = durations[j] - room  # ... and > lo_d
+                # the delta that would make both nodes end together
+                even = (free_at[c] - free_at[k] + load[c] / speeds[c] - load[k] / speeds[k]) / (
+                    1.0 / speeds[c] + 1.0 / speeds[k]
+                )
+                want = min(max(durations[j] - even, lo_d), hi_d)
+                # first position in node k's list (longest first) with p_i < want
+                lo = first[k]
+                hi = first[k + 1]
+                while lo < hi:
+                    mid = (lo + hi) // 2
+                    if durations[seg[mid]] < want:
+                        hi = mid
+                    else:
+                        lo = mid + 1
+                # look a few places either side for an allowed partner in the window
+                for r in range(max(first[k], lo - 4), min(first[k + 1], lo + 4)):
+                    i = seg[r]
+                    if not (lo_d < durations[i] < hi_d and eligible[job_type[i], c]):
+                        continue
+                    delta = durations[j] - durations[i]
+                    e = max(
+                        free_at[c] + (load[c] - delta) / speeds[c],
+                        free_at[k] + (load[k] + delta) / speeds[k],
+                    )
+                    if e < best_end:
+                        best_end = e
+                        best_i = i
+                        best_k = k
+            if best_i >= 0:
+                delta = durations[j] - durations[best_i]
+                node_of[j] = best_k
+                node_of[best_i] = c
+                load[c] -= delta
+                load[best_k] += delta
+                moved = True
+                break
+        if not moved:
+            return steps, True
+        steps += 1
+    return steps, False
+
+
+def local_search(
+    inst: Instance,
+    elig: Eligibility,
+    sched: Schedule,
+    budget: Budget,
+    target: float,
+    progress: ProgressHook | None,
+    lower: float,
+    kick: bool = True,
+) -> tuple[Schedule, int, bool]:
+    """Improve ``sched`` until a local optimum, the target makespan, or the budget; then,
+    with ``kick``, random restarts from the local optimum until the budget is spent."""
+    s, f = arrays(inst)
+    node_of = sched.node_of.copy()
+    total, done = 0, False
+    best = sched.makespan
+    chunk = 4
+    order = inst.order_longest_first
+    members, cstart, celig = node_classes(inst, elig)
+    classes = (celig, cstart, members)
+    step = getattr(improve, "py_func", improve) if _tiny(inst) else improve
+    reserve = 0.005 + FINISH_SECONDS_PER_JOB * inst.n  # to build the final plan afterwards
+    while not budget.expired() and budget.remaining() > reserve:
+        t = time.perf_counter()
+        steps, done = step(
+            node_of, inst.durations, s, f, elig.job_type, elig.eligible, order, *classes, chunk
+        )
+        took = time.perf_counter() - t
+        total += steps
+        # keep every compiled call short against the budget (about CALL_SECONDS)
+        if steps and not done:
+            per_step = took / steps
+            goal = min(CALL_SECONDS, 0.5 * budget.remaining())
+            chunk = int(max(1, min(4 * chunk, goal / max(per_step, 1e-9))))
+        ms = float((f + np.bincount(node_of, inst.durations, inst.m) / s).max())
+        if progress is not None and ms < best:
+            progress(Progress(budget.elapsed(), ms, lower))
+        best = min(best, ms)
+        if done or ms <= target * (1 + 1e-12):
+            break
+    if done and kick and inst.n <= MAX_KICK_JOBS:
+        kicks = _kicks(inst, elig, node_of, budget, reserve, target, progress, lower)
+        total += kicks
+    if total == 0:
+        return sched, 0, done
+    cand = schedule_from_nodes(inst, node_of)
+    return (cand if cand.makespan < sched.makespan else sched), total, done
+
+
+def _kicks(
+    inst: Instance,
+    elig: Eligibility,
+    node_of: npt.NDArray[np.int32],
+    budget: Budget,
+    reserve: float,
+    target: float,
+    progress: ProgressHook | None,
+    lower: float,
+) -> int:
+    """Iterated local search from a local optimum (``node_of``, updated in place when a
+    better plan is found): move a few random jobs to random eligible nodes, run the local
+    search again, keep the result if the makespan went down. Seeded, so reproducible."""
+    s, f = arrays(inst)
+    d = inst.durations
+    order = inst.order_longest_first
+    members, cstart, celig = node_classes(inst, elig)
+    rng = np.random.default_rng(0)
+    options = [np.flatnonzero(row) for row in elig.eligible]
+    best = float((f + np.bincount(node_of, d, inst.m) / s).max())
+    tries = 0
+    size = max(2, inst.n // 100)
+    while not budget.expired() and budget.remaining() > reserve and best > target * (1 + 1e-12):
+        trial = node_of.copy()
+        for j in rng.choice(inst.n, size=min(size, inst.n), replace=False).tolist():
+            opt = options[elig.job_type[j]]
+            trial[j] = opt[rng.integers(opt.size)]
+        done = False
+        while not done and budget.remaining() > reserve:
+            done = improve(
+                trial, d, s, f, elig.job_type, elig.eligible, order, celig, cstart, members, 256
+            )[1]
+        tries += 1
+        ms = float((f + np.bincount(trial, d, inst.m) / s).max())
+        if ms < best * (1 - 1e-12):
+            best = ms
+            node_of[:] = trial
+            if progress is not None:
+                progress(Progress(budget.elapsed(), ms, lower))
+    return tries
+
+
+def _identical_in_effect(inst: Instance, elig: Eligibility) -> bool:
+    return elig.all_eligible and all(nd.is_plain for nd in inst.nodes)
+
+
+def _delegate(
+    inst: Instance, method: str, budget: Budget, progress: ProgressHook | None
+) -> PlanResult:
+    """Solve as identical nodes (tags that every node provides are dropped)."""
+    from .solve import solve
+
+    plain = dataclasses.replace(inst, requires=None)
+    res = solve(
+        plain,
+        method,
+        time_budget=budget.remaining(),
+        progress=progress,
+        should_stop=budget.should_stop,
+    )
+    sched = Schedule(inst, res.schedule.node_of, res.schedule.start)
+    extras = dict(res.extras)
+    extras["farm"] = {"reduced_to": "identical nodes (every node speed 1, free at 0, all tags)"}
+    return dataclasses.replace(res, schedule=sched, extras=extras)
+
+
+def _have_identical_exact() -> bool:
+    try:
+        from . import exact  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+def solve_farm(
+    inst: Instance, method: str, budget: Budget, progress: ProgressHook | None
+) -> PlanResult:
+    """Plan a farm with speeds, tags and busy nodes; see the module doc for the methods."""
+    elig = eligibility(inst)  # raises Infeasible naming the jobs no node may run
+    if _identical_in_effect(inst, elig) and (
+        method in ("list", "longest_first") or _have_identical_exact()
+    ):
+        return _delegate(inst, method, budget, progress)
+    if method in ("list", "longest_first"):
+        sched = greedy_schedule(inst, elig, method)
+        cert = farm_lower_bounds(inst, elig, sched.makespan)
+        ratio, why = ratio_for(inst, method, elig)
+        return PlanResult(
+            schedule=sched,
+            method=method,
+            certificate=cert,
+            worst_case_ratio=ratio,
+            stop_reason="proved_optimal" if _closed(sched.makespan, cert.value) else "heuristic",
+            solve_seconds=budget.elapsed(),
+            extras={"worst_case_ratio_source": why},
+        )
+    return _search(inst, elig, method, budget, progress)
+
+
+def _closed(ms: float, lb: float) -> bool:
+    return ms - lb <= 1e-9 * max(1.0, ms)
+
+
+def _search(
+    inst: Instance, elig: Eligibility, method: str, budget: Budget, progress: ProgressHook | None
+) -> PlanResult:
+    """``exact`` and ``auto``: MILP when small enough, else LPT + local search."""
+    lpt = greedy_schedule(inst, elig, "longest_first")
+    cert = farm_lower_bounds(inst, elig, lpt.makespan)
+    ratio, why = ratio_for(inst, "longest_first", elig)
+    extras: dict[str, Any] = {
+        "worst_case_ratio_source": why + " (the plan is never worse than LPT)"
+    }
+    best, lower = lpt, cert.value
+    if progress is not None:
+        progress(Progress(budget.elapsed(), best.makespan, lower))
+    small = farm_milp.small_enough(inst, elig)
+    choice = "milp" if small else "longest_first+local_search"
+    info: dict[str, Any] = {"chose": choice}
+    if method == "auto":
+        info["why"] = (
+            f"{inst.n} jobs x eligible nodes fits the MILP (HiGHS)"
+            if small
+            else f"too large for the MILP (more than {farm_milp.MAX_JOBS} jobs or "
+            f"{farm_milp.MAX_PAIRS} job-node pairs): LPT then moves and swaps"
+        )
+    milp_bound: float | None = None
+    if not _closed(best.makespan, lower) and not budget.expired():
+        # moves and swaps first: cheap, and they hand the MILP a better upper bound
+        best, steps, local_opt = local_search(
+            inst,
+            elig,
+            best,
+            budget.child(0.2) if small else budget,
+            lower,
+            progress,
+            lower,
+            kick=not small,
+        )
+        info["local_search"] = {"steps": steps, "local_optimum": local_opt}
+    if small and not _closed(best.makespan, lower) and not budget.expired():
+        # HiGHS overshoots its limit a little (model set-up, presolve): keep a margin
+        limit = max(0.01, 0.95 * budget.remaining() - 0.03)
+        out = farm_milp.solve_milp(inst, elig, lower, best.makespan, limit)
+        info["milp_status"] = out.message
+        if out.node_of is not None and (out.node_of >= 0).all():
+            cand = schedule_from_nodes(inst, out.node_of)
+            if cand.makespan < best.makespan:
+                best = cand
+        milp_bound = out.dual_bound
+        if out.optimal:
+            # HiGHS closed the tree: its bound equals its plan up to float round-off
+            milp_bound = max(milp_bound, min(best.makespan, out.dual_bound * (1 + 1e-9)))
+    bounds = dict(cert.bounds)
+    if milp_bound is not None and milp_bound > 0:
+        bounds["milp"] = min(milp_bound, best.makespan)
+    source, value = max(bounds.items(), key=lambda kv: kv[1])
+    if value == cert.value:
+        source = cert.source
+    cert = Certificate(value=value, source=source, bounds=bounds, evidence=dict(cert.evidence))
+    extras["auto" if method == "auto" else "exact"] = info
+    closed = _closed(best.makespan, value)
+    if closed:
+        stop = "proved_optimal"
+    elif budget.cancelled:
+        stop = "cancelled"
+    elif budget.expired() or budget.remaining() <= 0.005 + FINISH_SECONDS_PER_JOB * inst.n:
+        stop = "time_budget"
+    else:
+        # the search ended before the budget: a local optimum no move or swap improves
+        stop = "heuristic"
+    if progress is not None:
+        progress(Progress(budget.elapsed(), best.makespan, value))
+    return PlanResult(
+        schedule=best,
+        method=method,
+        certificate=cert,
+        worst_case_ratio=ratio,
+        stop_reason=stop,
+        solve_seconds=budget.elapsed(),
+        extras=extras,
+    )
