@@ -1,0 +1,186 @@
+"""Deadline sizing on generated batches: time to the first answer, share proven optimal.
+
+Batches of 1,000 to 100,000 jobs from four duration mixes of our own studio scenario
+(seeded), each with deadlines chosen for several jobs-per-node ratios:
+
+``frames``     uniform short frames, 30 s to 10 min;
+``bimodal``    a fifth long simulation frames (1 to 3 h), the rest short comp frames
+               (1 to 10 min);
+``lognormal``  median 10 min, sigma 1 (a long right tail), cut at the deadline;
+``triplets``   triplet-like hard batches after Falkenauer's construction (1996): every
+               node of the hidden optimum runs exactly three jobs that fill the deadline
+               to the second, so OPT = n / 3 and first fit decreasing needs more.
+
+For every batch: the time to the first answer (first fit decreasing + the lower bounds;
+``first_answer_seconds``), the whole sizing within a 1 s budget (curve included),
+whether it was proven optimal, and how many nodes first fit decreasing alone would have
+asked for beyond the answer. Run::
+
+    python bench/sizing.py            # the full grid (a few minutes)
+    python bench/sizing.py --quick    # 1,000 and 10,000 jobs only
+"""
+
+from __future__ import annotations
+
+import argparse
+import statistics
+import sys
+import time
+from collections import defaultdict
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from workers.planning.binpacking import warm_up
+from workers.planning.sizing import size
+
+MIXES = ("frames", "bimodal", "lognormal", "triplets")
+RATIOS = (2, 3, 10, 30)  # jobs per node the deadline aims at
+
+
+def durations(mix: str, n: int, rng: np.random.Generator) -> np.ndarray:
+    """Seconds per job for one mix."""
+    if mix == "frames":
+        return rng.integers(30, 601, n).astype(np.float64)
+    if mix == "bimodal":
+        long = rng.random(n) < 0.2
+        return np.where(long, rng.integers(3600, 10801, n), rng.integers(60, 601, n)).astype(
+            np.float64
+        )
+    if mix == "lognormal":
+        return np.maximum(1.0, np.round(rng.lognormal(np.log(600.0), 1.0, n)))
+    raise ValueError(mix)
+
+
+def triplets(n: int, cap: int, rng: np.random.Generator) -> np.ndarray:
+    """n // 3 triplets that each sum to ``cap`` exactly (Falkenauer-style, scaled)."""
+    k = n // 3
+    a = rng.integers(int(0.38 * cap), int(0.49 * cap) + 1, k)
+    b = rng.integers(int(0.25 * cap), 1 + np.minimum((cap - a) // 2, int(0.49 * cap)), k)
+    c = cap - a - b
+    out = np.concatenate([a, b, c]).astype(np.float64)
+    rng.shuffle(out)
+    return out
+
+
+def batch(mix: str, n: int, ratio: int, seed: int) -> tuple[np.ndarray, float]:
+    """One seeded batch and its deadline."""
+    rng = np.random.default_rng(seed)
+    if mix == "triplets":
+        cap = 6 * 3600 + int(rng.integers(0, 3600))
+        return triplets(n, cap, rng), float(cap)
+    d = durations(mix, n, rng)
+    # a deadline near ratio jobs' worth of mean work, never below the longest job
+    deadline = float(np.ceil(max(d.max(), ratio * d.mean() * rng.uniform(0.9, 1.1))))
+    return d, deadline
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="1,000 and 10,000 jobs only")
+    ap.add_argument("--seeds", type=int, default=5, help="batches per cell")
+    ap.add_argument("--budget", type=float, default=1.0, help="time budget per sizing (s)")
+    ap.add_argument("--out", help="write a markdown table here")
+    args = ap.parse_args()
+    sizes = (1_000, 10_000) if args.quick else (1_000, 10_000, 100_000)
+    warm_up()  # compile the kernels (or load them from the cache) before timing
+    rows = []
+    first: dict[int, list[float]] = defaultdict(list)
+    for n in sizes:
+        for mix in MIXES:
+            ratios = (3,) if mix == "triplets" else RATIOS
+            for ratio in ratios:
+                res = []
+                for s in range(args.seeds):
+                    d, deadline = batch(mix, n, ratio, 1000 * n + 10 * ratio + s)
+                    t0 = time.perf_counter()
+                    r = size(d, deadline, time_budget=args.budget, max_nodes=10**6)
+                    wall = time.perf_counter() - t0
+                    res.append((r, wall))
+                    first[n].append(r.first_answer_seconds)
+                jobs_per_node = statistics.mean(n / r.nodes_lower_bound for r, _ in res)
+                row = {
+                    "n": n,
+                    "mix": mix,
+                    "ratio": ratio,
+                    "jobs_per_node": jobs_per_node,
+                    "first_ms": 1000 * statistics.median(r.first_answer_seconds for r, _ in res),
+                    "wall_ms": 1000 * statistics.median(w for _, w in res),
+                    "proven": sum(r.proven_optimal for r, _ in res),
+                    "count": len(res),
+                    "ffd_excess": sum(r.ffd_excess for r, _ in res),
+                    "ffd_worse": sum(r.ffd_excess > 0 for r, _ in res),
+                    "gap": sum(r.nodes_needed - r.nodes_lower_bound for r, _ in res),
+                    "sources": ",".join(sorted({r.bound_source for r, _ in res})),
+                    "methods": ",".join(sorted({r.method for r, _ in res})),
+                }
+                rows.append(row)
+                print(
+                    f"{n:>7} {mix:<10} r={ratio:<3} jobs/node {jobs_per_node:6.2f}  "
+                    f"first {row['first_ms']:7.1f} ms  total {row['wall_ms']:7.1f} ms  "
+                    f"proven {row['proven']}/{row['count']}  open gap {row['gap']}  "
+                    f"FFD +{row['ffd_excess']} ({row['ffd_worse']} batches)  "
+                    f"[{row['sources']}; {row['methods']}]",
+                    flush=True,
+                )
+    lines = summary(rows, first)
+    print("\n".join(lines))
+    if args.out:
+        Path(args.out).write_text(table(rows, lines, args), encoding="utf-8")
+
+
+def summary(rows: list[dict], first: dict[int, list[float]]) -> list[str]:
+    out = []
+    for n, vals in sorted(first.items()):
+        out.append(
+            f"median time to first answer, {n:,} jobs: {1000 * statistics.median(vals):.1f} ms"
+        )
+    dense = [r for r in rows if r["jobs_per_node"] >= 3 - 1e-9]
+    proven = sum(r["proven"] for r in dense)
+    count = sum(r["count"] for r in dense)
+    out.append(
+        f"proven optimal within the budget, batches with >= 3 jobs per node: "
+        f"{proven}/{count} = {100 * proven / max(1, count):.1f} %"
+    )
+    easy = [r for r in dense if r["mix"] != "triplets"]
+    ep, ec = sum(r["proven"] for r in easy), sum(r["count"] for r in easy)
+    out.append(
+        f"  of which the three mixes other than triplets: {ep}/{ec} = {100 * ep / max(1, ec):.1f} %"
+    )
+    allp = sum(r["proven"] for r in rows)
+    allc = sum(r["count"] for r in rows)
+    out.append(f"proven optimal, all batches: {allp}/{allc} = {100 * allp / max(1, allc):.1f} %")
+    worse = sum(r["ffd_worse"] for r in rows)
+    excess = sum(r["ffd_excess"] for r in rows)
+    out.append(
+        f"first fit decreasing alone was above the answer on {worse}/{allc} batches "
+        f"({excess} nodes in all)"
+    )
+    return out
+
+
+def table(rows: list[dict], lines: list[str], args: argparse.Namespace) -> str:
+    cmd = "python bench/sizing.py" + (" --quick" if args.quick else "")
+    if args.seeds != 5:
+        cmd += f" --seeds {args.seeds}"
+    if args.budget != 1.0:
+        cmd += f" --budget {args.budget}"
+    head = [
+        "| jobs | mix | ratio | jobs per node (at the lower bound) | first answer (median ms) "
+        "| total (median ms) | proven | open gap (nodes) | FFD above answer (batches, nodes) "
+        "| bound | plan |",
+        "|---:|---|---:|---:|---:|---:|---:|---:|---:|---|---|",
+    ]
+    body = [
+        f"| {r['n']:,} | {r['mix']} | {r['ratio']} | {r['jobs_per_node']:.2f} | "
+        f"{r['first_ms']:.1f} | {r['wall_ms']:.1f} | {r['proven']}/{r['count']} | {r['gap']} | "
+        f"{r['ffd_worse']}, +{r['ffd_excess']} | {r['sources']} | {r['methods']} |"
+        for r in rows
+    ]
+    return "\n".join([f"Command: `{cmd}`", "", *head, *body, "", *[f"- {x}" for x in lines], ""])
+
+
+if __name__ == "__main__":
+    main()

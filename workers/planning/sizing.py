@@ -1,0 +1,825 @@
+"""Deadline sizing: the fewest nodes of one kind whose plan meets a deadline.
+
+With identical nodes this is one-dimensional bin packing: every node is a bin whose
+capacity is the deadline, every job an item of ``duration / speed`` seconds
+(``../shared/references.md`` section 5). The answer is an interval, proven from both
+sides: ``nodes_needed`` comes with a plan that meets the deadline (first fit decreasing,
+best fit decreasing, or the exact search), and ``nodes_lower_bound`` with the rule that
+proves no plan with fewer nodes exists (``total_work`` = the work over the deadline
+rounded up; Martello-Toth ``L2``; the ``cardinality`` bound; ``search`` when the exact
+search refuted a count). When they meet, the answer is proven optimal.
+
+Rounding, so that both sides stay proofs for the true (real) durations. Work is
+measured in ticks of ``resolution`` seconds of a speed-1 node; a node can do
+``C = floor(deadline * speed / resolution)`` ticks (computed exactly with fractions):
+
+* lower bounds use every job *rounded down* to ticks. A set of jobs that fits a node
+  in real seconds has a tick sum that is an integer no larger than its real work over
+  the resolution, so no larger than C: every real plan is a packing of the rounded
+  items, and a bound on those bins is a bound for the real jobs;
+* packings found by the exact search use every job *rounded up*: their real work is at
+  most their tick sum, at most C, so they fit in real seconds too;
+* every plan returned is checked again on the real durations with the arithmetic of
+  :class:`workers.planning.result.Schedule` (``start + duration / speed``), so its
+  makespan is at most the deadline as the plan itself reports it.
+
+Cost model (stated in every result as ``cost_model``): every node of the farm is rented
+from 0 until the makespan, billed per started unit of the granularity (second, minute or
+hour): ``nodes * ceil(makespan / unit) * unit / 3600 * node_hour_cost``.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Callable, Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from fractions import Fraction
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+from . import bounds as bounds_mod
+from .binpacking import (
+    FOUND,
+    REFUTED,
+    best_fit_decreasing,
+    first_fit_decreasing,
+    min_bin_slack,
+    pack_search,
+    reduce_bins,
+)
+from .budget import Budget
+from .errors import Infeasible, InvalidInstance, Issue
+from .kernels import least_loaded
+from .model import Instance, Node
+from .result import Schedule
+
+#: billing granularities and their unit in seconds
+BILLING = {"second": 1.0, "minute": 60.0, "hour": 3600.0}
+DEFAULT_BILLING = "second"
+DEFAULT_MAX_NODES = 2000
+#: the curve goes this far below the lower bound and above the answer
+CURVE_BELOW, CURVE_ABOVE = 2, 3
+#: at most this many extra node counts may be listed in ``curve_nodes``
+MAX_CURVE_NODES = 50
+COST_MODEL = (
+    "nodes * ceil(makespan / unit) * unit / 3600 * node_hour_cost "
+    "(every node rented from 0 to the makespan; unit = the billing granularity in seconds)"
+)
+#: the first call of the exact search gets about this many bin visits (then doubled
+#: while the budget lasts)
+SEARCH_FIRST_WORK = 20_000_000
+#: minimum bin slack: search nodes per bin, and steps of its two-item completion
+#: (fewer when the bins are many: about MBS_WORK nodes and MBS_PAIR_WORK steps in all)
+MBS_NODES, MBS_WORK, MBS_PAIR_WORK = 1000, 4_000_000, 30_000_000
+#: local search: share of each round's time, bins emptied per try, move evaluations per try
+LOCAL_SHARE, LOCAL_FREE_BINS, LOCAL_WORK = 0.5, 3, 2_000_000
+#: share of the time left that the search may use (the curve comes after it)
+SEARCH_SHARE = 0.85
+#: the exact search runs for lower bounds up to this many nodes (a node of it costs O(bins))
+EXACT_MAX_BINS = 1000
+#: best fit decreasing runs for batches up to this many jobs (its bin moves grow with n)
+BFD_MAX_JOBS = 50_000
+#: curve rows use the lifted bin-packing bound for batches up to this many jobs
+CURVE_LIFT_MAX_JOBS = 20_000
+
+F64 = npt.NDArray[np.float64]
+I64 = npt.NDArray[np.int64]
+
+
+@dataclass(frozen=True, slots=True)
+class SizingProgress:
+    """What a running sizing reports: the interval so far."""
+
+    elapsed: float
+    nodes_needed: int
+    nodes_lower_bound: int
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "elapsed": self.elapsed,
+            "nodes_needed": self.nodes_needed,
+            "nodes_lower_bound": self.nodes_lower_bound,
+        }
+
+
+SizingProgressHook = Callable[[SizingProgress], None]
+
+
+@dataclass(frozen=True, slots=True)
+class CurveRow:
+    """One node count of the trade-off curve."""
+
+    nodes: int
+    makespan: float
+    lower_bound: float
+    cost: float | None
+    meets_deadline: bool
+    #: fewer nodes than the proven lower bound: no plan with this many meets the deadline
+    provably_misses: bool
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "nodes": self.nodes,
+            "makespan": self.makespan,
+            "lower_bound": self.lower_bound,
+            "cost": self.cost,
+            "meets_deadline": self.meets_deadline,
+            "provably_misses": self.provably_misses,
+        }
+
+
+@dataclass(frozen=True, eq=False)
+class SizingResult:
+    """The fewest nodes that meet the deadline, proven from both sides, and the curve."""
+
+    schedule: Schedule
+    deadline: float
+    nodes_needed: int
+    nodes_lower_bound: int
+    bound_source: str
+    bounds: dict[str, int]
+    evidence: dict[str, Any]
+    stop_reason: str
+    solve_seconds: float
+    first_answer_seconds: float
+    method: str
+    plan_method: str
+    upper_bounds: dict[str, int]
+    node_hour_cost: float | None
+    billing: str
+    curve: tuple[CurveRow, ...] = field(default=())
+
+    def __post_init__(self) -> None:
+        if self.nodes_lower_bound > self.nodes_needed:
+            raise ValueError("node lower bound above the nodes of a plan: a bound is wrong")
+        if self.schedule.instance.m != self.nodes_needed:
+            raise ValueError("the plan does not use nodes_needed nodes")
+
+    @property
+    def proven_optimal(self) -> bool:
+        return self.nodes_lower_bound == self.nodes_needed
+
+    @property
+    def makespan(self) -> float:
+        return self.schedule.makespan
+
+    @property
+    def ffd_excess(self) -> int:
+        """How many nodes more first fit decreasing alone would have asked for."""
+        return self.upper_bounds["ffd"] - self.nodes_needed
+
+    @property
+    def cost(self) -> float | None:
+        return cost_of(self.nodes_needed, self.makespan, self.node_hour_cost, self.billing)
+
+    def to_dict(self, *, with_plan: bool = True) -> dict[str, Any]:
+        """The sizing result object (``POST /v1/sizings``, ``spanwright size --json``)."""
+        inst = self.schedule.instance
+        node = inst.nodes[0]
+        out: dict[str, Any] = {
+            "nodes_needed": self.nodes_needed,
+            "nodes_lower_bound": self.nodes_lower_bound,
+            "bound_source": self.bound_source,
+            "bounds": dict(self.bounds),
+            "proven_optimal": self.proven_optimal,
+            "stop_reason": self.stop_reason,
+            "solve_seconds": self.solve_seconds,
+            "first_answer_seconds": self.first_answer_seconds,
+            "method": self.method,
+            "plan_method": self.plan_method,
+            "upper_bounds": dict(self.upper_bounds),
+            "ffd_excess": self.ffd_excess,
+            "deadline": self.deadline,
+            "makespan": self.makespan,
+            "slack": self.deadline - self.makespan,
+            "node": {"speed": node.speed, "provides": sorted(node.provides)},
+            "jobs": inst.n,
+            "resolution": inst.resolution,
+            "certificate": dict(self.evidence),
+            "estimated_cost": self.cost,
+            "node_hour_cost": self.node_hour_cost,
+            "billing": self.billing,
+            "cost_model": COST_MODEL,
+            "curve": [row.to_dict() for row in self.curve],
+        }
+        if with_plan:
+            out["plan"] = self.schedule.to_assignment()
+        return out
+
+    def summary(self) -> str:
+        """A few human-readable lines."""
+        verdict = "proven optimal" if self.proven_optimal else "not proven optimal"
+        lines = [
+            f"nodes needed    {self.nodes_needed} ({self.method}; {verdict}, "
+            f"stopped: {self.stop_reason})",
+            f"lower bound     {self.nodes_lower_bound} node(s) ({self.bound_source})",
+            f"deadline        {self.deadline:.6g} s; plan makespan {self.makespan:.6g} s "
+            f"({self.plan_method})",
+            f"first fit dec.  {self.upper_bounds['ffd']} node(s)",
+        ]
+        if self.cost is not None:
+            lines.append(f"estimated cost  {self.cost:.2f} (billed per {self.billing})")
+        lines.append("curve           nodes  makespan  lower_bound  cost")
+        for row in self.curve:
+            cost = "-" if row.cost is None else f"{row.cost:.2f}"
+            mark = "*" if row.nodes == self.nodes_needed else " "
+            lines.append(
+                f"              {mark}{row.nodes:6d}  {row.makespan:8.6g}  "
+                f"{row.lower_bound:11.6g}  {cost}"
+            )
+        lines.append(f"solve time      {self.solve_seconds:.4f} s")
+        return "\n".join(lines)
+
+
+# -- cost ------------------------------------------------------------------------------
+def cost_of(
+    nodes: int, makespan: float, node_hour_cost: float | None, billing: str = DEFAULT_BILLING
+) -> float | None:
+    """``nodes * ceil(makespan / unit) * unit / 3600 * node_hour_cost`` (None without a price)."""
+    if node_hour_cost is None:
+        return None
+    unit = BILLING[billing]
+    billed = math.ceil(makespan / unit - 1e-9) * unit
+    return nodes * billed / 3600.0 * node_hour_cost
+
+
+# -- ticks -----------------------------------------------------------------------------
+def _is_power_of_two(x: float) -> bool:
+    m, _ = math.frexp(x)
+    return m == 0.5
+
+
+def work_ticks(durations: F64, resolution: float) -> tuple[I64, I64]:
+    """Each duration in whole ticks of ``resolution``: (rounded down, rounded up), exactly.
+
+    Division by a power of two is exact in floating point; otherwise a quotient within a
+    few units in the last place of a whole number is settled with exact fractions.
+    """
+    x = durations / resolution
+    lo = np.floor(x).astype(np.int64)
+    hi = np.ceil(x).astype(np.int64)
+    if not _is_power_of_two(resolution):
+        near = np.flatnonzero(np.abs(x - np.rint(x)) <= 8 * np.spacing(np.maximum(x, 1.0)))
+        r = Fraction(resolution)
+        for j in near.tolist():
+            exact = Fraction(float(durations[j])) / r
+            lo[j] = math.floor(exact)
+            hi[j] = math.ceil(exact)
+    return lo, hi
+
+
+def capacity_ticks(deadline: float, speed: float, resolution: float) -> int:
+    """floor(deadline * speed / resolution), exactly."""
+    return math.floor(Fraction(deadline) * Fraction(speed) / Fraction(resolution))
+
+
+# -- the core ---------------------------------------------------------------------------
+@dataclass
+class _State:
+    """The interval so far and the plan that proves its upper end."""
+
+    lower: int
+    source: str
+    upper: int
+    method: str
+    bin_of: npt.NDArray[np.int32]  # by job index
+    start: F64
+
+
+def size(
+    durations: Iterable[float] | npt.ArrayLike,
+    deadline: float,
+    node: Node | None = None,
+    *,
+    time_budget: float = 1.0,
+    job_ids: Sequence[str] | None = None,
+    requires: Sequence[Iterable[str]] | None = None,
+    max_nodes: int = DEFAULT_MAX_NODES,
+    node_hour_cost: float | None = None,
+    billing: str = DEFAULT_BILLING,
+    curve_nodes: Sequence[int] = (),
+    resolution: float = 1.0,
+    progress: SizingProgressHook | None = None,
+    should_stop: Callable[[], bool] | None = None,
+) -> SizingResult:
+    """The fewest nodes like ``node`` (default: speed 1) that finish the jobs by ``deadline``.
+
+    ``durations`` are seconds on a speed-1 node. Raises :class:`InvalidInstance` for bad
+    input and :class:`Infeasible` when a job is longer than the deadline on this node, a
+    job requires a tag the node does not provide, or more than ``max_nodes`` are needed.
+    """
+    node = node if node is not None else Node("node")
+    issues = _check_options(max_nodes, node_hour_cost, billing, curve_nodes, time_budget)
+    if issues:
+        raise InvalidInstance(f"{len(issues)} problem(s) in the sizing options", issues)
+    if not (isinstance(deadline, int | float) and math.isfinite(deadline) and deadline > 0):
+        raise InvalidInstance("bad deadline", [Issue("/deadline", "must be a finite number > 0")])
+    base = Instance.build(
+        durations,
+        [node],
+        job_ids=job_ids,
+        requires=requires,
+        deadline=deadline,
+        resolution=resolution,
+    )
+    return _size(
+        base,
+        node,
+        time_budget=time_budget,
+        max_nodes=max_nodes,
+        node_hour_cost=node_hour_cost,
+        billing=billing,
+        curve_nodes=curve_nodes,
+        progress=progress,
+        should_stop=should_stop,
+    )
+
+
+def size_from_request(
+    body: Mapping[str, Any],
+    *,
+    time_budget: float,
+    progress: SizingProgressHook | None = None,
+    should_stop: Callable[[], bool] | None = None,
+) -> SizingResult:
+    """Size from a ``POST /v1/sizings`` body; ``time_budget`` (seconds) wins over the body's.
+
+    Body: ``jobs`` (as for plans), ``deadline`` (required), ``node`` ({speed, provides}),
+    ``max_nodes`` (default 2000), ``time_budget``, ``node_hour_cost``, ``billing``
+    (second | minute | hour, default second), ``curve_nodes`` (extra node counts),
+    ``resolution`` (default 1). Every problem found is raised together as one
+    :class:`InvalidInstance` whose issues carry JSON Pointers into ``body``.
+    """
+    if not isinstance(body, Mapping):
+        raise InvalidInstance(
+            "the request body must be a JSON object", [Issue("", "not an object")]
+        )
+    issues: list[Issue] = []
+    raw_node = body.get("node", {})
+    if raw_node is None:
+        raw_node = {}
+    if not isinstance(raw_node, Mapping):
+        issues.append(Issue("/node", "must be an object"))
+        raw_node = {}
+    if "id" in raw_node and not isinstance(raw_node["id"], str):
+        issues.append(Issue("/node/id", "must be a string"))
+    if "free_at" in raw_node:
+        issues.append(Issue("/node/free_at", "not used by sizing: every node starts at 0"))
+    if body.get("deadline") is None:
+        issues.append(Issue("/deadline", "required: the time by which every job must be done"))
+    for key in ("nodes", "node_count"):
+        if key in body:
+            issues.append(Issue(f"/{key}", "not used by sizing: the answer is the node count"))
+    max_nodes = body.get("max_nodes", DEFAULT_MAX_NODES)
+    node_hour_cost = body.get("node_hour_cost")
+    billing = body.get("billing", DEFAULT_BILLING)
+    curve_nodes = body.get("curve_nodes", [])
+    issues.extend(
+        _check_options(max_nodes, node_hour_cost, billing, curve_nodes, body.get("time_budget"))
+    )
+    node_id = raw_node.get("id") if isinstance(raw_node.get("id"), str) else "node"
+    plan_body = {
+        "jobs": body.get("jobs"),
+        "nodes": [
+            {
+                "id": node_id or "node",
+                "speed": raw_node.get("speed", 1.0),
+                "provides": raw_node.get("provides"),
+            }
+        ],
+        "deadline": body.get("deadline"),
+        "resolution": body.get("resolution"),
+    }
+    try:
+        base = Instance.from_request(plan_body)
+    except InvalidInstance as exc:
+        moved = [Issue(_node_pointer(i.pointer), i.detail) for i in exc.issues]
+        raise InvalidInstance(
+            f"{len(issues) + len(moved)} problem(s) in the request", issues + moved
+        ) from None
+    if issues:
+        raise InvalidInstance(f"{len(issues)} problem(s) in the request", issues)
+    return _size(
+        base,
+        base.nodes[0],
+        time_budget=float(time_budget),
+        max_nodes=int(max_nodes),
+        node_hour_cost=None if node_hour_cost is None else float(node_hour_cost),
+        billing=str(billing),
+        curve_nodes=[int(k) for k in curve_nodes],
+        progress=progress,
+        should_stop=should_stop,
+    )
+
+
+def _node_pointer(pointer: str) -> str:
+    """Issues about the one node of the plan body point at ``/node`` of the sizing body."""
+    if pointer.startswith("/nodes/0"):
+        return "/node" + pointer[len("/nodes/0") :]
+    return pointer
+
+
+def _is_int(x: object) -> bool:
+    return isinstance(x, int | float) and not isinstance(x, bool) and float(x).is_integer()
+
+
+def _check_options(
+    max_nodes: object,
+    node_hour_cost: object,
+    billing: object,
+    curve_nodes: object,
+    time_budget: object,
+) -> list[Issue]:
+    issues: list[Issue] = []
+    if not _is_int(max_nodes) or int(max_nodes) < 1:  # type: ignore[call-overload]
+        issues.append(Issue("/max_nodes", "must be a whole number >= 1"))
+    if node_hour_cost is not None and not (
+        isinstance(node_hour_cost, int | float)
+        and not isinstance(node_hour_cost, bool)
+        and math.isfinite(node_hour_cost)
+        and node_hour_cost >= 0
+    ):
+        issues.append(Issue("/node_hour_cost", "must be a finite number >= 0"))
+    if billing not in BILLING:
+        issues.append(Issue("/billing", f"must be one of {', '.join(BILLING)}"))
+    if not isinstance(curve_nodes, list | tuple):
+        issues.append(Issue("/curve_nodes", "must be a list of whole numbers >= 1"))
+    else:
+        if len(curve_nodes) > MAX_CURVE_NODES:
+            issues.append(Issue("/curve_nodes", f"at most {MAX_CURVE_NODES} node counts"))
+        for i, k in enumerate(curve_nodes[:MAX_CURVE_NODES]):
+            if not _is_int(k) or not 1 <= int(k) <= 10**6:
+                issues.append(Issue(f"/curve_nodes/{i}", "must be a whole number in 1..1000000"))
+    if time_budget is not None and not (
+        isinstance(time_budget, int | float)
+        and not isinstance(time_budget, bool)
+        and math.isfinite(time_budget)
+        and time_budget >= 0
+    ):
+        issues.append(Issue("/time_budget", "must be a finite number >= 0"))
+    return issues
+
+
+def _check_feasible(base: Instance, node: Node, times: F64, deadline: float) -> None:
+    """Raise :class:`Infeasible` naming the jobs no node of this kind can finish in time."""
+    if base.requires is not None:
+        bad = [j for j, r in enumerate(base.requires) if not r <= node.provides]
+        if bad:
+            names = [base.job_ids[j] for j in bad]
+            raise Infeasible(
+                f"{len(bad)} job(s) require a tag the node does not provide: "
+                + ", ".join(names[:10])
+                + (" ..." if len(bad) > 10 else ""),
+                jobs=names,
+                issues=[Issue(f"/jobs/{j}/requires", "not provided by the node") for j in bad[:20]],
+            )
+    bad_idx = np.flatnonzero(~(times <= deadline)).tolist()
+    if bad_idx:
+        names = [base.job_ids[j] for j in bad_idx]
+        raise Infeasible(
+            f"{len(bad_idx)} job(s) take longer than the deadline ({deadline:g} s) on a node "
+            f"of speed {node.speed:g}, so no number of nodes can meet it: "
+            + ", ".join(names[:10])
+            + (" ..." if len(bad_idx) > 10 else ""),
+            jobs=names,
+            issues=[
+                Issue(f"/jobs/{j}/duration", f"{times[j]:g} s on this node > deadline")
+                for j in bad_idx[:20]
+            ],
+        )
+
+
+def _lower_bound(
+    q_lo: I64, cap: int, total_seconds: float, speed: float, deadline: float
+) -> tuple[int, str, dict[str, int], dict[str, Any]]:
+    """Every node-count lower bound, the best one and its name."""
+    bounds: dict[str, int] = {}
+    ticks_total = int(q_lo.sum())
+    work = -(-ticks_total // cap) if cap > 0 else (0 if ticks_total == 0 else q_lo.size)
+    # the same bound on the real work, when float round-off cannot matter
+    ratio = total_seconds / (deadline * speed)
+    work = max(work, math.ceil(ratio - 1e-9 * max(1.0, ratio)))
+    bounds["total_work"] = max(1, work) if q_lo.size else 0
+    bp = bounds_mod.BinPackingBound(q_lo)
+    bins, alpha, which = bp.bins_needed(cap)
+    evidence: dict[str, Any] = {"capacity_ticks": cap}
+    bounds[which] = bins  # the better of L2 and the cardinality bound, with its alpha
+    evidence[which] = {"alpha_ticks": alpha}
+    source = max(bounds, key=lambda k: (bounds[k], k == "total_work"))
+    return bounds[source], source, bounds, evidence
+
+
+def _search(
+    state: _State,
+    q_lo: I64,
+    q_hi: I64,
+    cap: int,
+    times: F64,
+    deadline: float,
+    budget: Budget,
+    report: Callable[[], None],
+) -> dict[str, Any]:
+    """Anytime search on the open interval, in rounds until it closes or time runs out.
+
+    Each round gives a slice of the time left to the local search (which tries to save a
+    bin of the best packing) and one call to the exact search at the lower end (which
+    either packs into that many bins, closing the interval, or refutes it, raising the
+    lower bound by one).
+    """
+    pos = np.flatnonzero(q_hi > 0)
+    hi_order = pos[np.argsort(-q_hi[pos], kind="stable")]
+    lo_pos = np.flatnonzero(q_lo > 0)
+    lo_desc = np.sort(q_lo[lo_pos])[::-1].copy()
+    hi_desc = q_hi[hi_order].copy()
+    same = bool(np.array_equal(q_lo, q_hi))
+    # a node costs O(bins): start near SEARCH_FIRST_WORK operations, then follow the clock
+    limit = max(1000, SEARCH_FIRST_WORK // max(1, state.lower))
+    info: dict[str, Any] = {
+        "nodes": 0,
+        "calls": 0,
+        "refuted": [],
+        "local_search_calls": 0,
+        "local_search_saved": 0,
+    }
+    # the local search works on whole ticks rounded up: the packing must hold there too
+    local_ok = bool((np.bincount(state.bin_of, weights=q_hi) <= cap).all())
+    exact_ok = state.lower <= EXACT_MAX_BINS  # beyond, its nodes are too dear to close gaps
+    seed = 0
+    current = state.bin_of  # the local search walks on from its last packing
+    while state.lower < state.upper and not budget.expired() and (local_ok or exact_ok):
+        slice_end = time.perf_counter() + max(0.01, LOCAL_SHARE * budget.remaining())
+        while local_ok and state.lower < state.upper and time.perf_counter() < slice_end:
+            if budget.expired():
+                break
+            new, used = reduce_bins(
+                q_hi, cap, current, state.upper, LOCAL_FREE_BINS, LOCAL_WORK, seed
+            )
+            seed += 1
+            info["local_search_calls"] += 1
+            current = new
+            if used < state.upper:
+                start = _starts(new, times, used)
+                if not _loads_ok(new, start, times, deadline, used):  # pragma: no cover
+                    local_ok = False
+                    break
+                info["local_search_saved"] += state.upper - used
+                state.upper, state.method = int(used), "local_search"
+                state.bin_of, state.start = new, start
+                report()
+        if not exact_ok or state.lower >= state.upper or budget.expired():
+            continue
+        k = state.lower
+        t0 = time.perf_counter()
+        status, assign, used = pack_search(hi_desc, cap, k, limit)
+        info["nodes"] += used
+        info["calls"] += 1
+        if status == FOUND:
+            bin_of = np.zeros(times.size, dtype=np.int32)  # zero-length jobs go to node 0
+            bin_of[hi_order] = assign
+            start = _starts(bin_of, times, k)
+            if _loads_ok(bin_of, start, times, deadline, k):
+                state.upper, state.method = k, "search"
+                state.bin_of, state.start = bin_of, start
+                report()
+            exact_ok = False
+            continue
+        refuted = status == REFUTED
+        if refuted and not same:
+            status2, _, used2 = pack_search(lo_desc, cap, k, limit)
+            info["nodes"] += used2
+            refuted = status2 == REFUTED
+            if status2 == FOUND:  # k fits rounded down, not rounded up: too coarse to tell
+                info["undecided_at_resolution"] = k
+                exact_ok = False
+                continue
+        if refuted:
+            state.lower, state.source = k + 1, "search"
+            info["refuted"].append(k)
+            report()
+            continue
+        spent = time.perf_counter() - t0
+        rate = limit / max(spent, 1e-6)  # nodes per second, so the next call fits the budget
+        want = 0.9 * rate * (1 - LOCAL_SHARE) * budget.remaining()
+        limit = int(min(2 * limit, max(1000, want), 1 << 40))
+    return info
+
+
+def _starts(bin_of: npt.NDArray[np.int32], times: F64, m: int) -> F64:
+    """Start times when each node runs its jobs longest first, back to back."""
+    order = np.lexsort((-times, bin_of))
+    start = np.empty(times.size, dtype=np.float64)
+    loads = np.zeros(m, dtype=np.float64)
+    for j in order.tolist():
+        b = int(bin_of[j])
+        start[j] = loads[b]
+        loads[b] = loads[b] + times[j]
+    return start
+
+
+def _loads_ok(
+    bin_of: npt.NDArray[np.int32], start: F64, times: F64, deadline: float, m: int
+) -> bool:
+    end = start + times
+    return bool(bin_of.size == 0 or (end.max() <= deadline and bin_of.max() < m))
+
+
+def _size(
+    base: Instance,
+    node: Node,
+    *,
+    time_budget: float,
+    max_nodes: int,
+    node_hour_cost: float | None,
+    billing: str,
+    curve_nodes: Sequence[int],
+    progress: SizingProgressHook | None,
+    should_stop: Callable[[], bool] | None,
+) -> SizingResult:
+    budget = Budget(time_budget, should_stop)
+    deadline = float(base.deadline)  # type: ignore[arg-type]
+    speed = node.speed
+    times = base.durations / speed  # what Schedule computes for every job on this node
+    _check_feasible(base, node, times, deadline)
+    order = np.argsort(-times, kind="stable")
+    sizes = times[order]
+
+    def plan_from(sorted_bins: npt.NDArray[np.int32], sorted_start: F64) -> tuple[Any, F64]:
+        bin_of = np.empty(base.n, dtype=np.int32)
+        start = np.empty(base.n, dtype=np.float64)
+        bin_of[order] = sorted_bins
+        start[order] = sorted_start
+        return bin_of, start
+
+    b_ffd, s_ffd, n_ffd = first_fit_decreasing(sizes, deadline)
+    bin_of, start = plan_from(b_ffd, s_ffd)
+    q_lo, q_hi = work_ticks(base.durations, base.resolution)
+    cap = capacity_ticks(deadline, speed, base.resolution)
+    lower, source, bounds, evidence = _lower_bound(q_lo, cap, base.total, speed, deadline)
+    lower = min(lower, int(n_ffd))  # float round-off on a bin at exactly the deadline
+    state = _State(lower, source, int(n_ffd), "ffd", bin_of, start)
+    upper_bounds = {"ffd": int(n_ffd)}
+    first_answer = budget.elapsed()
+
+    def report() -> None:
+        if progress is not None:
+            progress(SizingProgress(budget.elapsed(), state.upper, state.lower))
+
+    report()
+    if state.lower > max_nodes:
+        raise Infeasible(
+            f"at least {state.lower} nodes are needed ({state.source}), above max_nodes "
+            f"({max_nodes})",
+            jobs=[],
+            issues=[Issue("/max_nodes", f"at least {state.lower} nodes are needed")],
+        )
+    cancelled = ran_out = False
+    if state.lower < state.upper and base.n <= BFD_MAX_JOBS:
+        b_bfd, s_bfd, n_bfd = best_fit_decreasing(sizes, deadline)
+        upper_bounds["bfd"] = int(n_bfd)
+        if n_bfd < state.upper:
+            state.upper, state.method = int(n_bfd), "bfd"
+            state.bin_of, state.start = plan_from(b_bfd, s_bfd)
+            report()
+    if state.lower < state.upper and time_budget > 0:
+        bins = max(1, state.lower)
+        scale = min(1.0, budget.remaining())  # a second's worth of work at most
+        nodes_per_bin = min(MBS_NODES, max(20, int(scale * MBS_WORK) // bins))
+        pair_steps = max(200, min(base.n, int(scale * MBS_PAIR_WORK) // bins))
+        b_mbs, s_mbs, n_mbs = min_bin_slack(sizes, deadline, nodes_per_bin, pair_steps)
+        upper_bounds["mbs"] = int(n_mbs)
+        if 0 < n_mbs < state.upper:
+            state.upper, state.method = int(n_mbs), "mbs"
+            state.bin_of, state.start = plan_from(b_mbs, s_mbs)
+            report()
+    if state.lower < state.upper and time_budget > 0:
+        search_budget = budget.child(SEARCH_SHARE)  # the rest is for the curve
+        info = _search(state, q_lo, q_hi, cap, times, deadline, search_budget, report)
+        evidence["search"] = info
+        if state.source == "search":
+            bounds["search"] = state.lower
+        if state.method in ("search", "local_search"):
+            upper_bounds[state.method] = state.upper
+        cancelled = search_budget.cancelled
+        ran_out = search_budget.expired()
+    if state.upper > max_nodes:
+        raise Infeasible(
+            f"no plan with at most max_nodes ({max_nodes}) nodes was found: the best has "
+            f"{state.upper}, the lower bound is {state.lower}",
+            jobs=[],
+            issues=[Issue("/max_nodes", f"the best plan found needs {state.upper} nodes")],
+        )
+    if state.lower >= state.upper:
+        stop = "proved_optimal"
+    elif cancelled or budget.cancelled:
+        stop = "cancelled"
+    elif ran_out or (time_budget > 0 and budget.expired()):
+        stop = "time_budget"
+    else:
+        stop = "heuristic"
+    # the same node count, balanced: longest first often ends earlier than the packing
+    plan_method = state.method
+    lpt_bins, lpt_start = least_loaded(order, times, state.upper)
+    if base.n and (lpt_start + times).max() < (state.start + times).max():
+        state.bin_of, state.start, plan_method = lpt_bins, lpt_start, "longest_first"
+    width = max(3, len(str(state.upper)))  # ids as identical_nodes() names them
+    nodes = tuple(Node(f"node-{k + 1:0{width}d}", speed, node.provides) for k in range(state.upper))
+    inst = Instance(
+        job_ids=base.job_ids,
+        durations=base.durations,
+        nodes=nodes,
+        requires=base.requires,
+        groups=base.groups,
+        deadline=deadline,
+        resolution=base.resolution,
+        duration_p90=base.duration_p90,
+    )
+    schedule = Schedule(inst, state.bin_of, state.start)
+    if schedule.makespan > deadline:  # pragma: no cover - the constructions guarantee it
+        raise AssertionError("a sizing plan misses the deadline")
+    curve = _curve(
+        base.job_ids,
+        times,
+        order,
+        state,
+        schedule.makespan,
+        deadline,
+        base.resolution,
+        curve_nodes,
+        node_hour_cost,
+        billing,
+    )
+    return SizingResult(
+        schedule=schedule,
+        deadline=deadline,
+        nodes_needed=state.upper,
+        nodes_lower_bound=state.lower,
+        bound_source=state.source,
+        bounds=bounds,
+        evidence=evidence,
+        stop_reason=stop,
+        solve_seconds=budget.elapsed(),
+        first_answer_seconds=first_answer,
+        method=state.method,
+        plan_method=plan_method,
+        upper_bounds=upper_bounds,
+        node_hour_cost=node_hour_cost,
+        billing=billing,
+        curve=curve,
+    )
+
+
+def _curve(
+    job_ids: tuple[str, ...],
+    times: F64,
+    order: npt.NDArray[np.intp],
+    state: _State,
+    plan_makespan: float,
+    deadline: float,
+    resolution: float,
+    curve_nodes: Sequence[int],
+    node_hour_cost: float | None,
+    billing: str,
+) -> tuple[CurveRow, ...]:
+    """Makespan (best plan known, never rising with more nodes) and lower bound per count.
+
+    Each row's makespan is the best of longest-first on that many nodes, the sizing plan
+    (for ``nodes_needed`` and above) and the row before it: a plan for k nodes is also a
+    plan for k + 1 (one node stays idle).
+    """
+    n = times.size
+    counts = set(range(max(1, state.lower - CURVE_BELOW), state.lower + CURVE_ABOVE + 1))
+    counts.update(range(max(1, state.upper - CURVE_BELOW), state.upper + CURVE_ABOVE + 1))
+    counts.update(int(k) for k in curve_nodes)
+    plain = Node("n")  # lower_bounds only counts the nodes
+    rows: list[CurveRow] = []
+    best = math.inf
+    for k in sorted(counts):
+        if k >= n:
+            own = float(times.max()) if n else 0.0  # one job per node
+        else:
+            _, start = least_loaded(order, times, k)
+            own = float((start + times).max())
+        if k >= state.upper:
+            own = min(own, plan_makespan)
+        best = min(best, own)
+        inst_k = Instance(
+            job_ids=job_ids, durations=times, nodes=(plain,) * k, resolution=resolution
+        )
+        # the lifted bin-packing bound (given an upper end) costs O(n) per probe: only for
+        # batches where it can still add something to the mean load
+        cert = bounds_mod.lower_bounds(inst_k, upper=best if n <= CURVE_LIFT_MAX_JOBS else None)
+        lb = min(cert.value, best)
+        rows.append(
+            CurveRow(
+                nodes=k,
+                makespan=best,
+                lower_bound=lb,
+                cost=cost_of(k, best, node_hour_cost, billing),
+                meets_deadline=best <= deadline,
+                provably_misses=k < state.lower,
+            )
+        )
+    return tuple(rows)
