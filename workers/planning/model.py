@@ -8,6 +8,7 @@ each. All times are seconds; a job's ``duration`` is its run time on a node of s
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property
@@ -22,6 +23,8 @@ from .errors import InvalidInstance, Issue
 MAX_ID_LENGTH = 200
 
 FloatArray = npt.NDArray[np.float64]
+
+_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f]")
 
 
 @dataclass(frozen=True, slots=True)
@@ -68,6 +71,7 @@ class Instance:
         groups: Sequence[str | None] | None = None,
         deadline: float | None = None,
         resolution: float = 1.0,
+        duration_p90: Sequence[float | None] | None = None,
     ) -> Instance:
         """Validate and build an instance from plain values.
 
@@ -88,6 +92,7 @@ class Instance:
             groups=tuple(groups) if groups is not None and any(g for g in groups) else None,
             deadline=None if deadline is None else float(deadline),
             resolution=float(resolution),
+            duration_p90=tuple(duration_p90) if duration_p90 is not None else None,
         )
         inst.validate()
         return inst
@@ -188,6 +193,9 @@ def _is_number(x: object) -> bool:
     return isinstance(x, int | float) and not isinstance(x, bool)
 
 
+_NO_TAGS: frozenset[str] = frozenset()
+
+
 class _RequestReader:
     """Reads the instance part of a request body, collecting every issue it meets."""
 
@@ -199,9 +207,11 @@ class _RequestReader:
         self.issues.append(Issue(pointer, detail))
 
     def number(self, obj: Mapping[str, Any], key: str, ptr: str, default: float | None) -> Any:
-        if key not in obj or obj[key] is None:
+        x = obj.get(key)
+        if x is None:
             return default
-        x = obj[key]
+        if (type(x) is float or type(x) is int) and x - x == 0:
+            return float(x)  # finite: inf - inf and nan - nan are nan
         if not _is_number(x):
             self.fail(f"{ptr}/{key}", f"must be a number, got {type(x).__name__}")
             return default
@@ -217,14 +227,16 @@ class _RequestReader:
             return ""
         if len(x) > MAX_ID_LENGTH:
             self.fail(f"{ptr}/id", f"longer than {MAX_ID_LENGTH} characters")
-        elif any(ord(c) < 32 or 127 <= ord(c) < 160 for c in x):
+        elif _CONTROL.search(x):
             self.fail(f"{ptr}/id", "contains control characters")
         return x
 
     def tags(self, obj: Mapping[str, Any], key: str, ptr: str) -> frozenset[str]:
         x = obj.get(key)
+        if not x and x is not None and isinstance(x, list):
+            return _NO_TAGS
         if x is None:
-            return frozenset()
+            return _NO_TAGS
         if not isinstance(x, list) or not all(isinstance(t, str) and t for t in x):
             self.fail(f"{ptr}/{key}", "must be a list of non-empty strings")
             return frozenset()
@@ -245,7 +257,27 @@ class _RequestReader:
         if not isinstance(jobs, list):
             self.fail("/jobs", "required: a list of jobs")
             jobs = []
+        search_control = _CONTROL.search
         for i, job in enumerate(jobs):
+            # fast path: {"id", "duration"[, "group"]} with plain, valid values
+            if type(job) is dict and 2 <= len(job) <= 3:
+                jid, dur, grp = job.get("id"), job.get("duration"), job.get("group")
+                if (
+                    len(job) == (2 if grp is None else 3)
+                    and type(jid) is str
+                    and 0 < len(jid) <= MAX_ID_LENGTH
+                    and (type(dur) is float or type(dur) is int)
+                    and dur >= 0
+                    and dur - dur == 0
+                    and (grp is None or type(grp) is str)
+                    and not search_control(jid)
+                ):
+                    ids.append(jid)
+                    durations.append(float(dur))
+                    requires.append(_NO_TAGS)
+                    groups.append(grp)
+                    p90.append(None)
+                    continue
             ptr = f"/jobs/{i}"
             if not isinstance(job, Mapping):
                 self.fail(ptr, "must be an object")
