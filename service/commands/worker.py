@@ -1,0 +1,60 @@
+"""``spanwright worker``: an RQ worker on the service's queue (needs ``REDIS_URL``)."""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+
+NAME = "worker"
+HELP = "run a worker that solves queued plans (RQ, JSON serializer) against REDIS_URL"
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--worker-class",
+        choices=("simple", "fork"),
+        default="simple",
+        help="simple: run jobs in this process (fast, the default); fork: one child per job "
+        "(isolates a crashing job from the worker, costs a fork per job)",
+    )
+    p.add_argument(
+        "--maintenance-interval",
+        type=int,
+        default=30,
+        help="seconds between registry clean-ups (re-queues jobs of dead workers); default 30",
+    )
+    p.add_argument("--burst", action="store_true", help="quit when the queue is empty")
+    p.add_argument("--name", help="worker name (default: RQ's)")
+    p.add_argument("--log-level", default="INFO", help="DEBUG, INFO, WARNING, ...")
+
+
+def run(args: argparse.Namespace) -> int:
+    from rq import Queue, SimpleWorker, Worker
+    from rq.serializers import JSONSerializer
+
+    from ..app import connect
+    from ..embedded import warm_up
+    from ..logs import configure_logging
+    from ..settings import Settings
+    from ..wsgi import sentinel_connection
+
+    settings = Settings.from_env(os.environ)
+    sentinel = sentinel_connection(os.environ)
+    if settings.embedded and sentinel is None:
+        print("spanwright: set REDIS_URL (e.g. redis://127.0.0.1:6379/0)", file=sys.stderr)
+        return 2
+    configure_logging(args.log_level)
+    warm_up()
+    conn = sentinel if sentinel is not None else connect(settings)
+    queue = Queue(settings.queue_name, connection=conn, serializer=JSONSerializer)
+    cls = SimpleWorker if args.worker_class == "simple" else Worker
+    worker = cls(
+        [queue],
+        connection=conn,
+        serializer=JSONSerializer,
+        name=args.name,
+        maintenance_interval=args.maintenance_interval,
+    )
+    worker.work(burst=args.burst, logging_level=args.log_level)
+    return 0

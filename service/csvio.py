@@ -1,0 +1,130 @@
+"""CSV in and out: batches and farms from spreadsheets, assignments back to them.
+
+Batch CSV (header row required; columns in any order, unknown columns refused):
+``id,duration[,group][,requires][,duration_p90]``, with ``requires`` a list of tags
+separated by spaces or semicolons. Farm CSV: ``id[,speed][,provides][,free_at]``.
+Assignment CSV: ``node,job,start,end`` (seconds), one row per job, in node then start order.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+from collections.abc import Iterable
+from typing import Any
+
+from workers.planning.errors import InvalidInstance, Issue
+
+JOB_COLUMNS = ("id", "duration", "group", "requires", "duration_p90")
+NODE_COLUMNS = ("id", "speed", "provides", "free_at")
+ASSIGNMENT_COLUMNS = ("node", "job", "start", "end")
+
+
+class CsvError(InvalidInstance):
+    """A CSV file that cannot be read as a batch or farm; the message names line and column."""
+
+
+def _rows(text: str, columns: tuple[str, ...], required: tuple[str, ...], what: str):  # type: ignore[no-untyped-def]
+    reader = csv.reader(io.StringIO(text))
+    try:
+        header = next(reader)
+    except StopIteration:
+        raise CsvError(f"the {what} CSV is empty", [Issue("", "line 1: no header row")]) from None
+    header = [h.strip().lower() for h in header]
+    for c, name in enumerate(header, start=1):
+        if name not in columns:
+            raise CsvError(
+                f"line 1, column {c}: unknown column {name!r} (expected {', '.join(columns)})",
+                [Issue("", f"line 1, column {c}: unknown column {name!r}")],
+            )
+    for name in required:
+        if name not in header:
+            raise CsvError(
+                f"line 1: the {what} CSV needs a {name!r} column",
+                [Issue("", f"line 1: missing column {name!r}")],
+            )
+    for line_no, row in enumerate(reader, start=2):
+        if not row or all(not cell.strip() for cell in row):
+            continue
+        if len(row) != len(header):
+            raise CsvError(
+                f"line {line_no}: {len(row)} fields, the header has {len(header)}",
+                [Issue("", f"line {line_no}: wrong number of fields")],
+            )
+        yield line_no, dict(zip(header, (cell.strip() for cell in row), strict=True)), header
+
+
+def _number(value: str, line: int, header: list[str], name: str, *, low: float = 0.0) -> float:
+    col = header.index(name) + 1
+    try:
+        x = float(value)
+    except ValueError:
+        x = math.nan
+    if not math.isfinite(x) or x < low:
+        raise CsvError(
+            f"line {line}, column {col} ({name}): {value!r} is not a finite number >= {low:g}",
+            [Issue("", f"line {line}, column {col}: bad {name}")],
+        )
+    return x
+
+
+def _tags(value: str) -> list[str]:
+    return [t for t in value.replace(";", " ").split() if t]
+
+
+def read_jobs_csv(text: str) -> list[dict[str, Any]]:
+    """Jobs of a batch CSV as the JSON objects of ``POST /v1/plans``."""
+    jobs = []
+    for line, row, header in _rows(text, JOB_COLUMNS, ("id", "duration"), "batch"):
+        if not row["id"]:
+            raise CsvError(
+                f"line {line}, column {header.index('id') + 1} (id): empty",
+                [Issue("", f"line {line}: empty id")],
+            )
+        job: dict[str, Any] = {
+            "id": row["id"],
+            "duration": _number(row["duration"], line, header, "duration"),
+        }
+        if row.get("group"):
+            job["group"] = row["group"]
+        if row.get("requires"):
+            job["requires"] = _tags(row["requires"])
+        if row.get("duration_p90"):
+            job["duration_p90"] = _number(row["duration_p90"], line, header, "duration_p90")
+        jobs.append(job)
+    if not jobs:
+        raise CsvError("the batch CSV has no jobs", [Issue("", "no data rows")])
+    return jobs
+
+
+def read_nodes_csv(text: str) -> list[dict[str, Any]]:
+    """Nodes of a farm CSV as the JSON objects of ``POST /v1/plans``."""
+    nodes = []
+    for line, row, header in _rows(text, NODE_COLUMNS, ("id",), "farm"):
+        node: dict[str, Any] = {"id": row["id"]}
+        if row.get("speed"):
+            node["speed"] = _number(row["speed"], line, header, "speed", low=1e-9)
+        if row.get("provides"):
+            node["provides"] = _tags(row["provides"])
+        if row.get("free_at"):
+            node["free_at"] = _number(row["free_at"], line, header, "free_at")
+        nodes.append(node)
+    if not nodes:
+        raise CsvError("the farm CSV has no nodes", [Issue("", "no data rows")])
+    return nodes
+
+
+def assignment_rows(assignment: Iterable[dict[str, Any]]) -> list[tuple[str, str, float, float]]:
+    """(node, job, start, end) per job of a result's ``assignment``."""
+    return [(a["node"], j["id"], j["start"], j["end"]) for a in assignment for j in a["jobs"]]
+
+
+def write_assignment_csv(assignment: Iterable[dict[str, Any]]) -> str:
+    """The assignment as CSV text with a header row."""
+    out = io.StringIO()
+    w = csv.writer(out, lineterminator="\n")
+    w.writerow(ASSIGNMENT_COLUMNS)
+    for node, job, start, end in assignment_rows(assignment):
+        w.writerow((node, job, repr(float(start)), repr(float(end))))
+    return out.getvalue()

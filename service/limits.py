@@ -1,0 +1,129 @@
+"""Back-pressure: per-tenant request rate and queue depth, and a global queue depth.
+
+Both answer 429 problem+json with ``Retry-After`` (RFC 6585 section 4; Retry-After is
+RFC 9110 section 10.2.3). A refused request is refused before anything is stored or queued;
+nothing already accepted is ever removed to make room.
+
+* **Request rate**: a fixed window per tenant, ``{prefix}:rate:{tenant}:{window number}``
+  (``INCR`` then ``EXPIRE`` in one transaction): at most ``SPANWRIGHT_RATE_LIMIT`` requests
+  per ``SPANWRIGHT_RATE_WINDOW`` seconds; ``Retry-After`` is the time to the next window.
+  Open paths (health, spec, problem pages) are not counted.
+* **Queue depth**: each accepted record is a member of ``{prefix}:active:{tenant}`` and of
+  ``{prefix}:active`` (sorted sets scored by submission time). Admission is one Lua script:
+  add to both unless either is at its limit (``SPANWRIGHT_MAX_QUEUED_PER_TENANT``,
+  ``SPANWRIGHT_MAX_QUEUED_TOTAL``), so concurrent submits cannot overshoot. Members whose
+  record has finished (or expired) are pruned lazily, only when a set looks full, with one
+  pipelined ``HGET status`` per member: the common path costs one script call.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+
+from .problems import TooManyRequests
+from .routes import services
+from .store import FINISHED
+
+# KEYS[1] tenant set, KEYS[2] global set; ARGV: member, score, tenant limit, global limit, ttl.
+# Returns 0 when admitted, 1 when the tenant is full, 2 when the service is full.
+_ADMIT = """
+if redis.call('ZCARD', KEYS[1]) >= tonumber(ARGV[3]) then return 1 end
+if redis.call('ZCARD', KEYS[2]) >= tonumber(ARGV[4]) then return 2 end
+redis.call('ZADD', KEYS[1], ARGV[2], ARGV[1])
+redis.call('ZADD', KEYS[2], ARGV[2], ARGV[1])
+redis.call('EXPIRE', KEYS[1], ARGV[5])
+redis.call('EXPIRE', KEYS[2], ARGV[5])
+return 0
+"""
+
+
+def _active_key(prefix: str, tenant: str | None) -> str:
+    return f"{prefix}:active:{tenant}" if tenant is not None else f"{prefix}:active"
+
+
+def check_rate(tenant: str) -> None:
+    """Count one request of ``tenant``; 429 beyond the window's limit."""
+    svc = services()
+    s, conn = svc.settings, svc.store.conn
+    now = time.time()
+    window = int(now // s.rate_window)
+    key = f"{s.key_prefix}:rate:{tenant}:{window}"
+    pipe = conn.pipeline(transaction=True)
+    pipe.incr(key)
+    pipe.expire(key, s.rate_window + 1)
+    count = int(pipe.execute()[0])
+    if count > s.rate_limit:
+        retry = math.ceil((window + 1) * s.rate_window - now)
+        raise TooManyRequests(
+            f"more than {s.rate_limit} requests in {s.rate_window} s for this tenant",
+            retry,
+        )
+
+
+def _prune(conn: object, prefix: str, key: str) -> None:
+    """Drop members whose record is finished or gone."""
+    members = conn.zrange(key, 0, -1)  # type: ignore[attr-defined]
+    if not members:
+        return
+    pipe = conn.pipeline(transaction=False)  # type: ignore[attr-defined]
+    for m in members:
+        kind, _, rid = m.decode().partition(":")
+        pipe.hget(f"{prefix}:{kind}:{rid}", "status")
+    gone = [
+        m
+        for m, st in zip(members, pipe.execute(), strict=True)
+        if st is None or st.decode() in FINISHED
+    ]
+    if gone:
+        conn.zrem(key, *gone)  # type: ignore[attr-defined]
+
+
+def admit(tenant: str, kind: str, rid: str) -> None:
+    """Reserve a queue slot for a new record, or refuse with 429 (nothing stored yet)."""
+    svc = services()
+    s, store = svc.settings, svc.store
+    conn = store.conn
+    keys = [_active_key(s.key_prefix, tenant), _active_key(s.key_prefix, None)]
+    member = f"{kind}:{rid}"
+    args = [member, repr(time.time()), s.max_queued_per_tenant, s.max_queued_total]
+    args.append(2 * s.retention)
+    script = conn.register_script(_ADMIT)
+    verdict = int(script(keys=keys, args=args))
+    if verdict == 0:
+        return
+    _prune(conn, s.key_prefix, keys[verdict - 1])  # it looked full: forget finished records
+    verdict = int(script(keys=keys, args=args))
+    if verdict == 0:
+        return
+    retry = max(1, math.ceil(s.default_time_budget))
+    if verdict == 1:
+        raise TooManyRequests(
+            f"this tenant already has {s.max_queued_per_tenant} plans or sizings queued or "
+            "solving; retry when some have finished",
+            retry,
+        )
+    raise TooManyRequests(
+        f"the service already has {s.max_queued_total} plans or sizings queued or solving; "
+        "retry when some have finished",
+        retry,
+    )
+
+
+def release(tenant: str, kind: str, rid: str) -> None:
+    """Give a slot back (the record was discarded before being queued)."""
+    svc = services()
+    prefix = svc.settings.key_prefix
+    member = f"{kind}:{rid}"
+    pipe = svc.store.conn.pipeline(transaction=False)
+    pipe.zrem(_active_key(prefix, tenant), member)
+    pipe.zrem(_active_key(prefix, None), member)
+    pipe.execute()
+
+
+def depth(tenant: str | None = None) -> int:
+    """Queued + solving records of ``tenant`` (or of everyone), after pruning."""
+    svc = services()
+    key = _active_key(svc.settings.key_prefix, tenant)
+    _prune(svc.store.conn, svc.settings.key_prefix, key)
+    return int(svc.store.conn.zcard(key))

@@ -1,0 +1,216 @@
+"""The one place where errors become RFC 9457 problem documents (application/problem+json).
+
+Every error spanwright raises on purpose derives from
+:class:`workers.planning.errors.SpanwrightError` and carries its ``kind``, ``status`` and
+``title``; service-level errors below do the same. werkzeug's HTTP errors (unknown route,
+wrong method, body too large) and an unreachable Redis are mapped here too, so the app has
+exactly one error handler.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+from typing import Any
+from urllib.parse import quote
+
+import redis
+from flask import Response, request
+from werkzeug.exceptions import HTTPException
+from werkzeug.wrappers import Response as BaseResponse
+
+from workers.planning.errors import Infeasible, InvalidInstance, Issue, SpanwrightError
+
+from .settings import SettingsError
+
+log = logging.getLogger("spanwright.api")
+
+MEDIA_TYPE = "application/problem+json"
+#: problem ``type`` URIs are relative references to ``GET /problems/{kind}``
+TYPE_BASE = "/problems/"
+
+
+class BadRequest(SpanwrightError):
+    """The request cannot be read at all (not JSON, a malformed header)."""
+
+    kind, status, title = "bad-request", 400, "The request cannot be read"
+
+
+class UnsupportedMediaType(SpanwrightError):
+    kind, status, title = "unsupported-media-type", 415, "Send the body as application/json"
+
+
+class PayloadTooLarge(SpanwrightError):
+    kind, status, title = "payload-too-large", 413, "The request body is too large"
+
+
+class LimitExceeded(SpanwrightError):
+    """A configured limit (jobs per batch, nodes, time budget) is exceeded."""
+
+    kind, status, title = "limit-exceeded", 422, "The request exceeds a limit of this service"
+
+
+class NotFound(SpanwrightError):
+    kind, status, title = "not-found", 404, "No such resource"
+
+
+class MethodNotAllowed(SpanwrightError):
+    kind, status, title = "method-not-allowed", 405, "Method not allowed on this resource"
+
+
+class AlreadyFinished(SpanwrightError):
+    """Cancelling a plan that has already finished."""
+
+    kind, status, title = "already-finished", 409, "The plan has already finished"
+
+
+class NotFinished(SpanwrightError):
+    """Re-planning a plan that has not finished (there is no plan to start from yet)."""
+
+    kind, status, title = "not-finished", 409, "The plan has not finished"
+
+
+class IdempotencyKeyInFlight(SpanwrightError):
+    kind, status, title = "idempotency-key-in-flight", 409, "A request with this key is in flight"
+
+
+class IdempotencyKeyReused(SpanwrightError):
+    """The same Idempotency-Key was sent before with a different body."""
+
+    kind, status, title = "idempotency-key-reused", 422, "Idempotency-Key reused with another body"
+
+
+class Unauthorized(SpanwrightError):
+    """No API key, or one this service does not know: send ``Authorization: Bearer <key>``.
+
+    Without a keys file the service runs keyless for loopback callers only; any other
+    caller gets this answer too. The response carries ``WWW-Authenticate: Bearer``.
+    """
+
+    kind, status, title = "unauthorized", 401, "An API key is required"
+    headers = {"WWW-Authenticate": 'Bearer realm="spanwright"'}
+
+
+class TooManyRequests(SpanwrightError):
+    """A request-rate or queue-depth limit is reached (RFC 6585); retry after ``Retry-After``
+    seconds. Nothing already accepted is dropped: the refused request was never queued."""
+
+    kind, status, title = "too-many-requests", 429, "Too many requests; retry later"
+
+    def __init__(self, detail: str, retry_after: int, issues: list[Issue] | None = None) -> None:
+        super().__init__(detail, issues)
+        self.retry_after = max(1, int(retry_after))
+        self.headers = {"Retry-After": str(self.retry_after)}
+
+
+class StoreUnavailable(SpanwrightError):
+    kind, status, title = "store-unavailable", 503, "The plan store is unavailable"
+
+
+class InternalError(SpanwrightError):
+    kind, status, title = "internal-error", 500, "Internal error"
+
+
+#: every problem kind the API can answer with, for ``GET /problems/{kind}`` and the spec
+KINDS: dict[str, type[SpanwrightError]] = {
+    cls.kind: cls
+    for cls in (
+        BadRequest,
+        UnsupportedMediaType,
+        PayloadTooLarge,
+        LimitExceeded,
+        NotFound,
+        MethodNotAllowed,
+        AlreadyFinished,
+        NotFinished,
+        IdempotencyKeyInFlight,
+        IdempotencyKeyReused,
+        StoreUnavailable,
+        InternalError,
+        Unauthorized,
+        TooManyRequests,
+        InvalidInstance,
+        Infeasible,
+        SettingsError,
+    )
+}
+
+_HTTP: dict[int, type[SpanwrightError]] = {
+    400: BadRequest,
+    404: NotFound,
+    405: MethodNotAllowed,
+    413: PayloadTooLarge,
+    415: UnsupportedMediaType,
+}
+
+
+def problem_dict(exc: SpanwrightError, instance: str | None = None) -> dict[str, Any]:
+    """The problem document of ``exc`` (also stored as a failed plan's ``error``)."""
+    out: dict[str, Any] = {
+        "type": TYPE_BASE + exc.kind,
+        "title": exc.title,
+        "status": exc.status,
+        "detail": exc.detail,
+    }
+    if instance is not None:
+        out["instance"] = instance
+    if exc.issues:
+        out["errors"] = [i.to_dict() for i in exc.issues]
+    if isinstance(exc, Infeasible):
+        out["jobs"] = list(exc.jobs)
+    return out
+
+
+def problem_response(exc: SpanwrightError, headers: dict[str, str] | None = None) -> Response:
+    instance = quote(request.path, safe="/:@!$&'()*+,;=-._~")  # a URI reference
+    body = json.dumps(problem_dict(exc, instance), allow_nan=False)
+    resp = Response(body, exc.status, mimetype=MEDIA_TYPE)
+    if exc.status == 405:
+        resp.headers["Allow"] = ", ".join(sorted(getattr(exc, "allow", ())))
+    if exc.status == 503:
+        resp.headers["Retry-After"] = "1"
+    for k, v in getattr(exc, "headers", {}).items():  # WWW-Authenticate, Retry-After
+        resp.headers[k] = v
+    for k, v in (headers or {}).items():
+        resp.headers[k] = v
+    return resp
+
+
+def to_spanwright(exc: BaseException) -> SpanwrightError:
+    """Map any exception to a :class:`SpanwrightError` (unknown ones become 500)."""
+    if isinstance(exc, SpanwrightError):
+        return exc
+    if isinstance(exc, HTTPException):
+        cls = _HTTP.get(exc.code or 500, InternalError)
+        out = cls(exc.description or cls.title)
+        if isinstance(exc, HTTPException) and exc.code == 405:
+            allow = exc.valid_methods if hasattr(exc, "valid_methods") else None
+            out.allow = tuple(allow or ())  # type: ignore[attr-defined]
+        if exc.code == 413:
+            out = PayloadTooLarge(
+                "the request body exceeds the limit of this service",
+                [Issue("", "body too large (limit: SPANWRIGHT_MAX_REQUEST_BYTES)")],
+            )
+        return out
+    if isinstance(exc, redis.exceptions.ConnectionError | redis.exceptions.TimeoutError):
+        return StoreUnavailable(f"cannot reach Redis: {exc}")
+    return InternalError("an unexpected error occurred; it has been logged")
+
+
+def handle(exc: BaseException) -> BaseResponse:
+    """The app's only error handler."""
+    err = to_spanwright(exc)
+    if isinstance(exc, HTTPException) and exc.code == 304:  # pragma: no cover - not raised
+        return exc.get_response()
+    if err.status >= 500:
+        log.error("%s %s failed: %s", request.method, request.path, exc, exc_info=exc)
+    return problem_response(err)
+
+
+def describe(kind: str) -> str | None:
+    """Plain-text documentation of a problem type, served at ``/problems/{kind}``."""
+    cls = KINDS.get(kind)
+    if cls is None:
+        return None
+    doc = (cls.__doc__ or "").strip()
+    return f"{cls.title}\n\nHTTP status: {cls.status}\n\n{doc}\n"

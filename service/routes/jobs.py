@@ -1,0 +1,288 @@
+"""The machinery shared by every asynchronous resource (plans, sizings).
+
+A resource of kind ``K`` at ``/v1/Ks`` gets: ``POST`` (validate, store, enqueue; 202, or the
+finished record within ``Prefer: wait=N``; ``Idempotency-Key``), ``GET /{id}`` (ETag and
+``If-None-Match``), ``DELETE /{id}`` (cancel) and ``GET`` (the tenant's records, newest
+first, ``status``/``limit``/``cursor``). Only the validation differs between kinds.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+from flask import Blueprint, Response, request
+
+from workers.planning.errors import Issue
+
+from ..problems import (
+    AlreadyFinished,
+    BadRequest,
+    IdempotencyKeyInFlight,
+    IdempotencyKeyReused,
+    NotFound,
+    StoreUnavailable,
+    UnsupportedMediaType,
+    problem_dict,
+)
+from .. import limits
+from ..auth import current
+from ..settings import Settings
+from ..store import FINISHED, STATUSES, Record, new_id
+from . import may_read, services, tenant
+
+ID_RE = re.compile(r"[0-9a-f]{21}")
+_KEY_RE = re.compile(r"[\x20-\x21\x23-\x5b\x5d-\x7e]{1,255}")  # printable ASCII but " and \
+_WAIT_RE = re.compile(r"^\s*wait\s*=\s*\"?(\d+(?:\.\d+)?)\"?\s*$", re.IGNORECASE)
+
+#: validate a body: shape (marshmallow) then semantics (the core); returns the loaded body
+Validator = Callable[[Any, Settings], dict[str, Any]]
+
+
+@dataclass(frozen=True, slots=True)
+class Resource:
+    kind: str  # "plan" | "sizing"
+    path: str  # "/v1/plans"
+    validate: Validator
+
+
+def _reject_constant(name: str) -> float:
+    raise ValueError(f"{name} is not a JSON number")
+
+
+def read_json_body() -> tuple[bytes, Any]:
+    """The raw body and its JSON value; 415 for another media type, 400 for bad JSON."""
+    mt = request.mimetype or ""
+    if not (mt == "application/json" or (mt.startswith("application/") and mt.endswith("+json"))):
+        raise UnsupportedMediaType(
+            f"the body must be application/json, not {mt or 'unspecified'}",
+        )
+    raw = request.get_data(cache=False)  # 413 beyond MAX_CONTENT_LENGTH
+    try:
+        return raw, json.loads(raw, parse_constant=_reject_constant)
+    except (ValueError, RecursionError) as exc:
+        raise BadRequest(f"the body is not valid JSON: {exc}", [Issue("", str(exc))]) from None
+
+
+def idempotency_key() -> str | None:
+    """The ``Idempotency-Key`` header (a Structured Field string, quotes optional)."""
+    raw = request.headers.get("Idempotency-Key")
+    if raw is None:
+        return None
+    key = raw.strip()
+    if len(key) >= 2 and key[0] == key[-1] == '"':
+        key = key[1:-1]
+    if not _KEY_RE.fullmatch(key):
+        raise BadRequest(
+            "Idempotency-Key must be 1 to 255 printable ASCII characters (a quoted string)"
+        )
+    return key
+
+
+def preferences() -> tuple[float | None, bool]:
+    """(wait seconds or None, respond-async) from ``Prefer`` (RFC 7240); junk is ignored."""
+    wait: float | None = None
+    is_async = False
+    for header in request.headers.getlist("Prefer"):
+        for token in header.split(","):
+            pref = token.split(";", 1)[0]
+            m = _WAIT_RE.match(pref)
+            if m:
+                wait = float(m.group(1))
+            elif pref.strip().lower() == "respond-async":
+                is_async = True
+    return wait, is_async
+
+
+def status_document(rec: Record, path: str) -> str:
+    """The JSON of ``GET {path}/{id}``; the stored result JSON is spliced in, not re-parsed."""
+    f = rec.fields
+    doc: dict[str, Any] = {
+        "id": rec.id,
+        "status": rec.status,
+        "name": f.get("name"),
+        "method": f.get("method"),
+        "submitted_at": f.get("submitted_at"),
+        "started_at": f.get("started_at"),
+        "finished_at": f.get("finished_at"),
+        "cancel_requested": f.get("cancel") == "1",
+        "progress": f.get("progress"),
+        "error": f.get("error"),
+        "links": {"self": f"{path}/{rec.id}"},
+    }
+    if doc["progress"] is None and rec.status in ("queued", "solving"):
+        tb = f.get("time_budget")
+        doc["progress"] = {
+            "elapsed": 0.0,
+            "time_budget": float(tb) if tb is not None else None,
+            "best_makespan": None,
+            "best_lower_bound": None,
+        }
+    head = json.dumps(doc, allow_nan=False, separators=(",", ":"))
+    return head[:-1] + ',"result":' + (rec.result_json or "null") + "}"
+
+
+def etag_of(version: int) -> str:
+    return f'"v{version}"'
+
+
+def _respond(
+    rec: Record, res: Resource, status: int, extra: dict[str, str] | None = None
+) -> Response:
+    resp = Response(status_document(rec, res.path), status, mimetype="application/json")
+    resp.headers["ETag"] = etag_of(rec.version)
+    resp.headers["Location"] = f"{res.path}/{rec.id}"
+    if rec.status not in FINISHED:
+        resp.headers["Retry-After"] = "1"
+    for k, v in (extra or {}).items():
+        resp.headers[k] = v
+    return resp
+
+
+def _owned(res: Resource, rid: str) -> int:
+    """The record's version if it exists and belongs to the caller; else 404."""
+    if not ID_RE.fullmatch(rid):
+        raise NotFound(f"no {res.kind} {rid!r}")
+    owner, version = services().store.version(res.kind, rid)
+    if not may_read(owner):  # another tenant's id reads as a missing one
+        raise NotFound(f"no {res.kind} {rid!r} (it may have expired)")
+    return version
+
+
+def list_tenant(asked: str | None) -> str:
+    """Whose records a list shows: the caller's; an admin key may name any ``?tenant=``."""
+    if asked is None or asked == tenant():
+        return tenant()
+    who = current()
+    if who is None or not who.admin:
+        raise BadRequest("only an admin key may list another tenant's records")
+    return asked
+
+
+def make_blueprint(res: Resource) -> Blueprint:
+    bp = Blueprint(f"{res.kind}s", __name__)
+
+    @bp.post(res.path)
+    def submit() -> Response:
+        svc = services()
+        store, settings = svc.store, svc.settings
+        raw, body = read_json_body()
+        data = res.validate(body, settings)
+        key = idempotency_key()
+        wait, is_async = preferences()
+        who = tenant()
+        meta = {
+            "method": data.get("method"),
+            "time_budget": repr(float(data["time_budget"])),
+            "name": data.get("name"),
+        }
+        extra: dict[str, str] = {}
+        if wait is not None:
+            wait = min(wait, settings.max_wait)
+            extra["Preference-Applied"] = f"wait={wait:g}"
+        elif is_async:
+            extra["Preference-Applied"] = "respond-async"
+        rid = new_id()
+        limits.admit(who, res.kind, rid)  # 429 before anything is stored
+        rid = store.create(res.kind, who, raw, meta, rid=rid)
+        if key is not None:
+            fingerprint = hashlib.sha256(raw).hexdigest()
+            for _ in range(2):
+                bound = store.claim_idempotency(who, res.kind, key, fingerprint, rid)
+                if bound is None:
+                    break
+                if bound.get("fingerprint") != fingerprint:
+                    store.discard(res.kind, rid, who)
+                    limits.release(who, res.kind, rid)
+                    raise IdempotencyKeyReused(
+                        "this Idempotency-Key was used with a different body; use a new key",
+                        [Issue("", "body differs from the first request with this key")],
+                    )
+                old = store.get(res.kind, bound.get("id", ""))
+                if old is None or old.tenant != who:
+                    store.release_idempotency(who, res.kind, key)  # its record expired
+                    continue
+                store.discard(res.kind, rid, who)
+                limits.release(who, res.kind, rid)
+                if wait and old.status not in FINISHED:
+                    store.wait(res.kind, old.id, wait)
+                    old = store.get(res.kind, old.id) or old
+                code = 200 if old.status in FINISHED else 202
+                return _respond(old, res, code, {**extra, "Idempotent-Replayed": "true"})
+            else:  # pragma: no cover - needs two expiries in a row
+                store.discard(res.kind, rid, who)
+                limits.release(who, res.kind, rid)
+                raise IdempotencyKeyInFlight("the key is being re-bound; retry in a moment")
+        try:
+            svc.queue.enqueue(res.kind, rid, float(data["time_budget"]))
+        except Exception:
+            store.finish(
+                res.kind,
+                rid,
+                "failed",
+                allowed_from="queued",
+                error=problem_dict(StoreUnavailable("the plan could not be queued")),
+            )
+            raise
+        if wait:
+            store.wait(res.kind, rid, wait)
+        rec = store.get(res.kind, rid)
+        if rec is None:  # pragma: no cover - expired within the request
+            raise NotFound(f"{res.kind} {rid} vanished")
+        return _respond(rec, res, 201 if rec.status in FINISHED else 202, extra)
+
+    @bp.get(res.path + "/<rid>")
+    def read(rid: str) -> Response:
+        version = _owned(res, rid)
+        if etag_of(version).strip('"') in request.if_none_match:
+            resp = Response(status=304)
+            resp.headers["ETag"] = etag_of(version)
+            return resp
+        rec = services().store.get(res.kind, rid)
+        if rec is None:
+            raise NotFound(f"no {res.kind} {rid!r} (it may have expired)")
+        return _respond(rec, res, 200)
+
+    @bp.delete(res.path + "/<rid>")
+    def cancel(rid: str) -> Response:
+        _owned(res, rid)
+        store = services().store
+        old = store.request_cancel(res.kind, rid)
+        if old is None:
+            raise NotFound(f"no {res.kind} {rid!r}")
+        if old in FINISHED:
+            raise AlreadyFinished(f"{res.kind} {rid} is already {old}; nothing to cancel")
+        rec = store.get(res.kind, rid)
+        if rec is None:  # pragma: no cover
+            raise NotFound(f"no {res.kind} {rid!r}")
+        return _respond(rec, res, 200 if rec.status in FINISHED else 202)
+
+    @bp.get(res.path)
+    def listing() -> Response:
+        svc = services()
+        args = request.args
+        status = args.get("status")
+        if status is not None and status not in STATUSES:
+            raise BadRequest(f"status must be one of {', '.join(STATUSES)}")
+        try:
+            limit = int(args.get("limit", "20"))
+        except ValueError:
+            raise BadRequest("limit must be a whole number") from None
+        if not 1 <= limit <= svc.settings.max_page:
+            raise BadRequest(f"limit must be between 1 and {svc.settings.max_page}")
+        cursor = args.get("cursor")
+        if cursor is not None and not ID_RE.fullmatch(cursor):
+            raise BadRequest("cursor is not one this service gave out")
+        items, nxt = svc.store.list(
+            list_tenant(args.get("tenant")), res.kind, status=status, limit=limit, cursor=cursor
+        )
+        for it in items:
+            it["links"] = {"self": f"{res.path}/{it['id']}"}
+        body = json.dumps({"items": items, "next": nxt}, allow_nan=False)
+        return Response(body, 200, mimetype="application/json")
+
+    return bp

@@ -1,0 +1,404 @@
+"""Plans (and sizings) in Redis, under our own key prefix, with a retention time.
+
+Keys, for a record of ``kind`` (``plan`` | ``sizing``) and id ``I`` owned by tenant ``T``::
+
+    {prefix}:{kind}:{I}            hash: tenant, status, timestamps, progress, version, ...
+    {prefix}:{kind}:{I}:request    the request body as received (bytes)
+    {prefix}:{kind}:{I}:result     the result object as JSON, once finished
+    {prefix}:{kind}:{I}:done       a one-token list pushed when the record finishes (wakes waiters)
+    {prefix}:index:{T}:{kind}      sorted set of the tenant's ids (all score 0, ordered by id)
+    {prefix}:idem:{T}:{kind}:{H}   Idempotency-Key record: {fingerprint, id}; H = sha256(key)
+
+Ids start with the submission time in milliseconds (hex), so the index is ordered by
+submission and lists newest first with ``ZREVRANGEBYLEX``; the cursor is the last id sent.
+A record waiting in the queue expires ``2 * retention`` after submission (so a backlog
+does not eat it); once finished, every key of it expires ``retention`` after it finished:
+the result is kept that long after it is computed. Status changes are
+Lua scripts (atomic), and every visible change bumps ``version`` (the ETag).
+"""
+
+from __future__ import annotations
+
+import builtins
+import hashlib
+import json
+import secrets
+import time
+from collections.abc import Iterable
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from typing import Any
+
+import redis
+
+KINDS = ("plan", "sizing")
+STATUSES = ("queued", "solving", "done", "failed", "cancelled")
+FINISHED = frozenset({"done", "failed", "cancelled"})
+#: hash fields that are JSON documents
+_JSON_FIELDS = ("progress", "error", "summary")
+#: fields a list item shows
+_ITEM_FIELDS = (
+    "tenant",
+    "status",
+    "submitted_at",
+    "started_at",
+    "finished_at",
+    "name",
+    "method",
+    "summary",
+)
+
+# KEYS[1] record; ARGV[1] allowed old statuses (comma separated), ARGV[2] new status,
+# ARGV[3..] field, value pairs. Returns the old status, or false when not allowed/missing.
+_TRANSITION = """
+local old = redis.call('HGET', KEYS[1], 'status')
+if not old then return false end
+if not string.find(',' .. ARGV[1] .. ',', ',' .. old .. ',', 1, true) then return false end
+redis.call('HSET', KEYS[1], 'status', ARGV[2])
+for i = 3, #ARGV, 2 do redis.call('HSET', KEYS[1], ARGV[i], ARGV[i + 1]) end
+redis.call('HINCRBY', KEYS[1], 'version', 1)
+return old
+"""
+
+# KEYS[1] record. Queued -> cancelled at once; solving -> cancel flag. Returns old status.
+_CANCEL = """
+local old = redis.call('HGET', KEYS[1], 'status')
+if not old then return false end
+if old == 'queued' then
+  redis.call('HSET', KEYS[1], 'status', 'cancelled', 'finished_at', ARGV[1], 'cancel', '1')
+  redis.call('HINCRBY', KEYS[1], 'version', 1)
+elseif old == 'solving' and redis.call('HGET', KEYS[1], 'cancel') ~= '1' then
+  redis.call('HSET', KEYS[1], 'cancel', '1')
+  redis.call('HINCRBY', KEYS[1], 'version', 1)
+end
+return old
+"""
+
+# KEYS[1] record; ARGV[1] field, ARGV[2] value: set only while solving (progress updates)
+_WHILE_SOLVING = """
+if redis.call('HGET', KEYS[1], 'status') ~= 'solving' then return 0 end
+redis.call('HSET', KEYS[1], ARGV[1], ARGV[2])
+redis.call('HINCRBY', KEYS[1], 'version', 1)
+return 1
+"""
+
+
+def rfc3339(t: float) -> str:
+    """UTC timestamp with milliseconds, e.g. ``2026-12-01T23:59:00.123Z``."""
+    return datetime.fromtimestamp(t, UTC).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
+
+
+def new_id(now: float | None = None) -> str:
+    """A time-ordered id: 11 hex digits of milliseconds, then 10 random hex digits."""
+    ms = int((time.time() if now is None else now) * 1000)
+    return f"{ms:011x}{secrets.token_hex(5)}"
+
+
+@dataclass(frozen=True, slots=True)
+class Record:
+    """One stored record, decoded."""
+
+    kind: str
+    id: str
+    fields: dict[str, Any]
+    result_json: str | None
+
+    @property
+    def status(self) -> str:
+        return str(self.fields["status"])
+
+    @property
+    def tenant(self) -> str:
+        return str(self.fields["tenant"])
+
+    @property
+    def version(self) -> int:
+        return int(self.fields.get("version", 0))
+
+
+class Store:
+    """Our Redis keys. ``conn`` must not decode responses (RQ shares the client)."""
+
+    def __init__(self, conn: redis.Redis, *, prefix: str, retention: int) -> None:
+        self.conn = conn
+        self.prefix = prefix
+        self.retention = int(retention)
+        self._transition = conn.register_script(_TRANSITION)
+        self._cancel = conn.register_script(_CANCEL)
+        self._while_solving = conn.register_script(_WHILE_SOLVING)
+
+    # -- key names ----------------------------------------------------------------------
+    def key(self, kind: str, rid: str, part: str = "") -> str:
+        base = f"{self.prefix}:{kind}:{rid}"
+        return f"{base}:{part}" if part else base
+
+    def index_key(self, tenant: str, kind: str) -> str:
+        return f"{self.prefix}:index:{tenant}:{kind}"
+
+    def idem_key(self, tenant: str, kind: str, key: str) -> str:
+        digest = hashlib.sha256(key.encode("utf-8")).hexdigest()
+        return f"{self.prefix}:idem:{tenant}:{kind}:{digest}"
+
+    def _all_keys(self, kind: str, rid: str) -> list[str]:
+        return [self.key(kind, rid), self.key(kind, rid, "request"), self.key(kind, rid, "result")]
+
+    # -- writing ------------------------------------------------------------------------
+    def create(
+        self,
+        kind: str,
+        tenant: str,
+        request_body: bytes,
+        meta: dict[str, Any],
+        *,
+        rid: str | None = None,
+        now: float | None = None,
+    ) -> str:
+        """Store a new queued record; returns its id."""
+        t = time.time() if now is None else now
+        rid = rid or new_id(t)
+        fields: dict[str, Any] = {
+            "kind": kind,
+            "tenant": tenant,
+            "status": "queued",
+            "submitted_at": rfc3339(t),
+            "submitted_ts": repr(t),
+            "version": 1,
+        }
+        for k, v in meta.items():
+            if v is not None:
+                fields[k] = json.dumps(v) if k in _JSON_FIELDS else v
+        pipe = self.conn.pipeline(transaction=True)
+        pipe.hset(self.key(kind, rid), mapping=fields)  # type: ignore[arg-type]
+        pipe.set(self.key(kind, rid, "request"), request_body)
+        pipe.expire(self.key(kind, rid), 2 * self.retention)
+        pipe.expire(self.key(kind, rid, "request"), 2 * self.retention)
+        pipe.zadd(self.index_key(tenant, kind), {rid: 0})
+        pipe.expire(self.index_key(tenant, kind), 3 * self.retention)
+        # ids older than three retentions can have no record left: drop them
+        oldest = new_id(t - 3 * self.retention)[:11]
+        pipe.zremrangebylex(self.index_key(tenant, kind), "-", "(" + oldest)
+        pipe.execute()
+        return rid
+
+    def claim_idempotency(
+        self, tenant: str, kind: str, key: str, fingerprint: str, rid: str
+    ) -> dict[str, str] | None:
+        """Bind ``key`` to ``rid`` unless it is bound already; returns the existing binding."""
+        ik = self.idem_key(tenant, kind, key)
+        doc = json.dumps({"fingerprint": fingerprint, "id": rid})
+        if self.conn.set(ik, doc, nx=True, ex=2 * self.retention):
+            self.conn.hset(self.key(kind, rid), "idem_key", ik)
+            return None
+        raw = self.conn.get(ik)
+        if raw is None:  # expired between the two calls: try once more
+            if self.conn.set(ik, doc, nx=True, ex=2 * self.retention):
+                self.conn.hset(self.key(kind, rid), "idem_key", ik)
+                return None
+            raw = self.conn.get(ik) or b"{}"
+        out: dict[str, str] = json.loads(raw)
+        return out
+
+    def release_idempotency(self, tenant: str, kind: str, key: str) -> None:
+        """Forget a binding whose record has gone (so the key can be used afresh)."""
+        self.conn.delete(self.idem_key(tenant, kind, key))
+
+    def discard(self, kind: str, rid: str, tenant: str) -> None:
+        """Remove a record that was never queued (lost an idempotency race)."""
+        pipe = self.conn.pipeline()
+        pipe.delete(*self._all_keys(kind, rid))
+        pipe.zrem(self.index_key(tenant, kind), rid)
+        pipe.execute()
+
+    def mark_solving(self, kind: str, rid: str) -> bool:
+        """queued (or solving again after a crash) -> solving; False if not allowed."""
+        old = self._transition(
+            keys=[self.key(kind, rid)],
+            args=["queued,solving", "solving", "started_at", rfc3339(time.time())],
+        )
+        if old is not None:
+            self.conn.hincrby(self.key(kind, rid), "attempts", 1)
+        return old is not None
+
+    def requeue(self, kind: str, rid: str, detail: str) -> bool:
+        """solving -> queued after a crash, when the queue will retry it."""
+        old = self._transition(
+            keys=[self.key(kind, rid)], args=["solving", "queued", "last_crash", detail]
+        )
+        return old is not None
+
+    def publish_progress(self, kind: str, rid: str, progress: dict[str, Any]) -> None:
+        self._while_solving(
+            keys=[self.key(kind, rid)], args=["progress", json.dumps(progress, allow_nan=False)]
+        )
+
+    #: progress points kept per record for the page's chart
+    HISTORY_POINTS = 240
+
+    def append_progress_history(self, kind: str, rid: str, point: dict[str, Any]) -> None:
+        """Keep the last few progress points of a solve (for the page's chart)."""
+        key = self.key(kind, rid, "history")
+        pipe = self.conn.pipeline(transaction=False)
+        pipe.rpush(key, json.dumps(point, allow_nan=False))
+        pipe.ltrim(key, -self.HISTORY_POINTS, -1)
+        pipe.expire(key, 2 * self.retention)
+        pipe.execute()
+
+    def progress_history(self, kind: str, rid: str) -> list[dict[str, Any]]:
+        """The kept progress points, oldest first."""
+        raw = self.conn.lrange(self.key(kind, rid, "history"), 0, -1)
+        return [json.loads(x) for x in raw]
+
+    def finish(
+        self,
+        kind: str,
+        rid: str,
+        status: str,
+        *,
+        result_json: str | None = None,
+        error: dict[str, Any] | None = None,
+        summary: dict[str, Any] | None = None,
+        progress: dict[str, Any] | None = None,
+        allowed_from: str = "solving",
+    ) -> bool:
+        """Move to a finished status, store the result, refresh every TTL, wake waiters."""
+        if status not in FINISHED:
+            raise ValueError(f"{status!r} is not a finished status")
+        if result_json is not None:
+            self.conn.set(self.key(kind, rid, "result"), result_json, ex=self.retention)
+        args: list[Any] = [allowed_from, status, "finished_at", rfc3339(time.time())]
+        for name, doc in (("error", error), ("summary", summary), ("progress", progress)):
+            if doc is not None:
+                args += [name, json.dumps(doc, allow_nan=False)]
+        old = self._transition(keys=[self.key(kind, rid)], args=args)
+        if old is None:
+            return False
+        self._refresh_and_notify(kind, rid)
+        return True
+
+    def _refresh_and_notify(self, kind: str, rid: str) -> None:
+        idem = self.conn.hget(self.key(kind, rid), "idem_key")
+        pipe = self.conn.pipeline()
+        for k in self._all_keys(kind, rid):
+            pipe.expire(k, self.retention)
+        if idem:
+            pipe.expire(idem, self.retention)
+        done = self.key(kind, rid, "done")
+        pipe.rpush(done, b"1")
+        pipe.expire(done, 60)
+        pipe.execute()
+
+    def request_cancel(self, kind: str, rid: str) -> str | None:
+        """Cancel: queued records end now, solving ones get the flag. Returns the old status."""
+        old = self._cancel(keys=[self.key(kind, rid)], args=[rfc3339(time.time())])
+        if old is None:
+            return None
+        old_s = old.decode() if isinstance(old, bytes) else str(old)
+        if old_s == "queued":
+            self._refresh_and_notify(kind, rid)
+        return old_s
+
+    def cancel_requested(self, kind: str, rid: str) -> bool:
+        return self.conn.hget(self.key(kind, rid), "cancel") == b"1"
+
+    # -- reading ------------------------------------------------------------------------
+    def load_request(self, kind: str, rid: str) -> bytes | None:
+        raw: Any = self.conn.get(self.key(kind, rid, "request"))
+        return bytes(raw) if raw is not None else None
+
+    def get(self, kind: str, rid: str, *, with_result: bool = True) -> Record | None:
+        pipe = self.conn.pipeline(transaction=False)
+        pipe.hgetall(self.key(kind, rid))
+        if with_result:
+            pipe.get(self.key(kind, rid, "result"))
+        out = pipe.execute()
+        raw = out[0]
+        if not raw:
+            return None
+        fields = _decode(raw)
+        result = _text(out[1]) if with_result and out[1] is not None else None
+        return Record(kind, rid, fields, result)
+
+    def version(self, kind: str, rid: str) -> tuple[str | None, int]:
+        """(tenant, version) without reading the body: the cheap ETag check."""
+        tenant, version = self.conn.hmget(self.key(kind, rid), ["tenant", "version"])
+        return (_text(tenant) if tenant else None, int(version or 0))
+
+    def status(self, kind: str, rid: str) -> str | None:
+        s = self.conn.hget(self.key(kind, rid), "status")
+        return _text(s) if s else None
+
+    def wait(self, kind: str, rid: str, timeout: float) -> str | None:
+        """Block until the record is finished or ``timeout`` seconds pass; returns the status."""
+        deadline = time.monotonic() + max(0.0, timeout)
+        done = self.key(kind, rid, "done")
+        while True:
+            status = self.status(kind, rid)
+            left = deadline - time.monotonic()
+            if status is None or status in FINISHED or left <= 0:
+                return status
+            got = self.conn.blpop([done], timeout=max(0.01, min(left, 1.0)))
+            if got is not None:
+                self.conn.rpush(done, b"1")  # hand the token on to other waiters
+
+    def list(
+        self,
+        tenant: str,
+        kind: str,
+        *,
+        status: str | None = None,
+        limit: int = 50,
+        cursor: str | None = None,
+    ) -> tuple[list[dict[str, Any]], str | None]:
+        """A page of the tenant's records, newest first, and the cursor of the next page."""
+        index = self.index_key(tenant, kind)
+        items: list[dict[str, Any]] = []
+        upper = "(" + cursor if cursor else "+"
+        batch = max(limit, 50) if status else limit + 1
+        last_seen: str | None = None
+        while len(items) <= limit:
+            ids = [_text(i) for i in self.conn.zrevrangebylex(index, upper, "-", 0, batch)]
+            if not ids:
+                return items[:limit], None
+            rows = self._rows(kind, ids)
+            gone = [rid for rid, row in zip(ids, rows, strict=True) if row is None]
+            if gone:
+                self.conn.zrem(index, *gone)
+            for rid, row in zip(ids, rows, strict=True):
+                if row is None or row.get("tenant") != tenant:
+                    continue
+                if status is None or row["status"] == status:
+                    if len(items) == limit:
+                        return items, last_seen
+                    row.pop("tenant", None)
+                    items.append({"id": rid, **row})
+                    last_seen = rid
+            upper = "(" + ids[-1]
+            if len(ids) < batch:
+                return items, None
+        return items[:limit], last_seen  # pragma: no cover - loop always returns
+
+    def _rows(self, kind: str, ids: Iterable[str]) -> builtins.list[dict[str, Any] | None]:
+        pipe = self.conn.pipeline(transaction=False)
+        for rid in ids:
+            pipe.hmget(self.key(kind, rid), list(_ITEM_FIELDS))
+        rows: builtins.list[dict[str, Any] | None] = []
+        for vals in pipe.execute():
+            if vals[0] is None:
+                rows.append(None)
+                continue
+            raw = {k: v for k, v in zip(_ITEM_FIELDS, vals, strict=True) if v is not None}
+            rows.append(_decode(raw))
+        return rows
+
+
+def _text(v: Any) -> str:
+    return v.decode() if isinstance(v, bytes) else str(v)
+
+
+def _decode(raw: dict[Any, Any]) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    for k, v in raw.items():
+        key = k.decode() if isinstance(k, bytes) else k
+        val = v.decode() if isinstance(v, bytes) else v
+        out[key] = json.loads(val) if key in _JSON_FIELDS else val
+    return out

@@ -1,0 +1,1 @@
+"""Pages for people: server-rendered HTML with inline SVG charts, no JavaScript needed."""

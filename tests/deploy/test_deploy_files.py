@@ -1,0 +1,286 @@
+"""The files in ``deploy/`` parse and agree with the code: commands that exist, ports that
+match, probes on routes the app serves, the one Redis configuration everywhere.
+
+Checks against things outside our code: YAML (``yaml.safe_load_all``), argparse of the real
+``spanwright`` parser, prometheus_client's ``mark_process_dead``, Flask's URL map, and
+``kubectl kustomize`` when kubectl is installed.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import runpy
+import shlex
+import shutil
+import subprocess
+import tomllib
+from pathlib import Path
+from types import SimpleNamespace
+from typing import Any
+
+import fakeredis
+import pytest
+import yaml
+from spanwright_topology import (
+    DEPLOY,
+    REPO,
+    UNIT_SRC,
+    UNIT_VENV_BIN,
+    parse_unit,
+    unit_environment,
+    unit_value,
+)
+
+from service.app import create_app
+from service.cli import build_parser
+from service.metrics import init_metrics
+from service.settings import Settings
+
+K8S = DEPLOY / "k8s"
+
+
+def load_all(path: Path) -> list[dict[str, Any]]:
+    return [d for d in yaml.safe_load_all(path.read_text(encoding="utf-8")) if d is not None]
+
+
+def k8s_docs() -> list[dict[str, Any]]:
+    """Every Kubernetes object in deploy/k8s (the kustomization file is not one)."""
+    docs = [d for p in sorted(K8S.glob("*.yaml")) for d in load_all(p)]
+    return [d for d in docs if d["kind"] != "Kustomization"]
+
+
+def by_kind(kind: str, name: str) -> dict[str, Any]:
+    (doc,) = [d for d in k8s_docs() if d["kind"] == kind and d["metadata"]["name"] == name]
+    return doc
+
+
+def unit_args(unit_file: str) -> list[str]:
+    """The ExecStart arguments after the program."""
+    return shlex.split(unit_value(parse_unit(DEPLOY / unit_file), "ExecStart"))[1:]
+
+
+def app_rules() -> set[str]:
+    """Routes of the production app (create_app + init_metrics, as service/wsgi.py builds it)."""
+    settings = Settings(redis_url="redis://127.0.0.1:1/0")
+    conn = fakeredis.FakeRedis(server=fakeredis.FakeServer())
+    app = create_app(settings, connection=conn)
+    init_metrics(app, settings, conn)
+    return {r.rule for r in app.url_map.iter_rules()}
+
+
+def gunicorn_conf(env: dict[str, str]) -> dict[str, Any]:
+    """deploy/gunicorn.conf.py executed as gunicorn does (a Python file of settings)."""
+    old = dict(os.environ)
+    try:
+        for k in [k for k in os.environ if k.startswith("SPANWRIGHT_")]:
+            del os.environ[k]
+        os.environ.update(env)
+        return runpy.run_path(str(DEPLOY / "gunicorn.conf.py"))
+    finally:
+        os.environ.clear()
+        os.environ.update(old)
+
+
+def test_console_script_and_subcommands_exist() -> None:
+    """pyproject's console script is ``spanwright = service.cli:main``, and every command line
+    the deploy files run is accepted by the real parser (subcommand and options)."""
+    scripts = tomllib.loads((REPO / "pyproject.toml").read_text())["project"]["scripts"]
+    assert scripts["spanwright"] == "service.cli:main"
+    parser = build_parser()
+    compose = load_all(DEPLOY / "compose.yaml")[0]
+    worker_k8s = by_kind("Deployment", "spanwright-worker")["spec"]["template"]["spec"]
+    lines = [
+        ["spanwright", *unit_args("spanwright-worker@.service")],
+        compose["services"]["worker"]["command"],
+        worker_k8s["containers"][0]["command"],
+    ]
+    for argv in lines:
+        assert argv[0] == "spanwright"
+        args = parser.parse_args(argv[1:])
+        assert args.command == "worker"
+    # the three places run the same worker command line
+    assert lines[1] == lines[2] == lines[0]
+    help_text = parser.format_help()
+    assert "worker" in help_text and "serve" in help_text
+
+
+def test_units_use_the_shipped_config_and_the_layout() -> None:
+    """Both units run programs from the venv in the documented layout; the API unit runs
+    gunicorn with deploy/gunicorn.conf.py and wipes PROMETHEUS_MULTIPROC_DIR before start."""
+    api = parse_unit(DEPLOY / "spanwright-api.service")
+    worker = parse_unit(DEPLOY / "spanwright-worker@.service")
+    for unit in (api, worker):
+        assert unit_value(unit, "ExecStart").startswith(UNIT_VENV_BIN)
+        assert unit_value(unit, "WorkingDirectory") == UNIT_SRC
+        assert unit_value(unit, "WantedBy", "Install") == "multi-user.target"
+    argv = shlex.split(unit_value(api, "ExecStart"))
+    assert argv == [UNIT_VENV_BIN + "gunicorn", "-c", "deploy/gunicorn.conf.py"]
+    assert (REPO / argv[2]).is_file()
+    env = unit_environment(api)
+    mdir = env["PROMETHEUS_MULTIPROC_DIR"]
+    runtime = unit_value(api, "RuntimeDirectory")
+    assert mdir.startswith(f"/run/{runtime}/")
+    pre = unit_value(api, "ExecStartPre")
+    assert (
+        'rm -rf "$PROMETHEUS_MULTIPROC_DIR"' in pre
+        and 'mkdir -p "$PROMETHEUS_MULTIPROC_DIR"' in pre
+    )
+    # a warm shutdown must be allowed to finish the longest solve
+    settings = Settings()
+    stop = int(unit_value(worker, "TimeoutStopSec"))
+    assert stop > settings.max_time_budget + settings.job_timeout_margin
+
+
+def test_gunicorn_conf_defaults_and_refusals(tmp_path: Path) -> None:
+    """Defaults: loopback 8080, the wsgi module, gthread, timeout above the longest wait.
+    A public bind is refused unless explicitly allowed; child_exit marks a dead process's
+    live gauges as prometheus_client's multiprocess mode requires."""
+    conf = gunicorn_conf({})
+    assert conf["bind"] == ["127.0.0.1:8080"]
+    assert conf["wsgi_app"] == "service.wsgi:app"
+    module, _, attr = conf["wsgi_app"].partition(":")
+    import importlib
+
+    assert hasattr(importlib.import_module(module), "__getattr__") and attr == "app"
+    assert conf["worker_class"] == "gthread" and conf["preload_app"] is True
+    assert conf["timeout"] > Settings().max_wait
+    assert gunicorn_conf({"SPANWRIGHT_BIND": "127.0.0.1:9000"})["bind"] == ["127.0.0.1:9000"]
+    with pytest.raises(SystemExit, match="refusing to bind"):
+        gunicorn_conf({"SPANWRIGHT_BIND": "0.0.0.0:8080"})
+    allowed = gunicorn_conf(
+        {"SPANWRIGHT_BIND": "0.0.0.0:8080", "SPANWRIGHT_ALLOW_NON_LOOPBACK": "1"}
+    )
+    assert allowed["bind"] == ["0.0.0.0:8080"]
+    live = tmp_path / "gauge_livesum_4242.db"
+    live.write_bytes(b"")
+    keep = tmp_path / "counter_4242.db"
+    keep.write_bytes(b"")
+    conf = gunicorn_conf({"PROMETHEUS_MULTIPROC_DIR": str(tmp_path)})
+    os.environ["PROMETHEUS_MULTIPROC_DIR"] = str(tmp_path)
+    try:
+        conf["child_exit"](None, SimpleNamespace(pid=4242))
+    finally:
+        del os.environ["PROMETHEUS_MULTIPROC_DIR"]
+    assert not live.exists() and keep.exists()
+
+
+def test_containerfile_copies_what_exists_and_runs_the_shipped_config() -> None:
+    """Debian slim Python base; every COPY source exists; the default command wipes the
+    metrics directory and execs gunicorn with deploy/gunicorn.conf.py; EXPOSE matches the
+    bind port."""
+    text = (DEPLOY / "Containerfile").read_text()
+    instructions = [ln for ln in text.splitlines() if ln and not ln.startswith("#")]
+    joined = "\n".join(instructions).replace("\\\n", " ")
+    (base,) = re.findall(r"^FROM\s+(\S+)", joined, re.M)
+    assert re.fullmatch(r"python:3\.1[1-9]-slim(-bookworm|-trixie)?", base)
+    for src in re.findall(r"^COPY\s+(.+?)\s+\S+$", joined, re.M):
+        for part in src.split():
+            assert (REPO / part).exists(), part
+    (expose,) = re.findall(r"^EXPOSE\s+(\d+)", joined, re.M)
+    bind = re.search(r"SPANWRIGHT_BIND=(\S+)", joined)
+    assert bind is not None and bind.group(1).rsplit(":", 1)[1] == expose
+    (cmd,) = re.findall(r"^CMD\s+(.+)$", joined, re.M)
+    cmd_text = " ".join(yaml.safe_load(cmd))  # JSON array form (YAML reads JSON)
+    assert "exec gunicorn -c deploy/gunicorn.conf.py" in cmd_text
+    assert 'rm -rf "$PROMETHEUS_MULTIPROC_DIR"' in cmd_text
+    assert "pip install" in joined and "gunicorn" in joined and "prometheus-client" in joined
+
+
+def test_compose_topology() -> None:
+    """compose.yaml: Redis runs deploy/redis.conf (mounted unchanged), the API publishes its
+    bind port on the host's loopback only, workers are scaled, the healthcheck hits /healthz."""
+    doc = load_all(DEPLOY / "compose.yaml")[0]
+    svc = doc["services"]
+    assert set(svc) == {"redis", "api", "worker"}
+    redis_cmd = svc["redis"]["command"]
+    mount = next(v for v in svc["redis"]["volumes"] if v.endswith("redis.conf:ro"))
+    host_path, container_path, _ = mount.split(":")
+    assert (DEPLOY / host_path).resolve() == DEPLOY / "redis.conf"
+    assert redis_cmd[:2] == ["redis-server", container_path]
+    for name in ("api", "worker"):
+        build = svc[name]["build"]
+        assert (DEPLOY / build["context"] / build["dockerfile"]).resolve().is_file()
+        assert svc[name]["environment"]["REDIS_URL"] == "redis://redis:6379/0"
+    port = svc["api"]["environment"]["SPANWRIGHT_BIND"].rsplit(":", 1)[1]
+    (published,) = svc["api"]["ports"]
+    host, _host_port, cport = published.split(":")
+    assert host == "127.0.0.1" and cport == port
+    assert "/healthz" in " ".join(svc["api"]["healthcheck"]["test"])
+    assert svc["worker"]["deploy"]["replicas"] >= 2
+    assert "/healthz" in app_rules()
+
+
+def test_kubernetes_manifests() -> None:
+    """API Deployment + Service with probes on /healthz and /readyz (routes the app serves),
+    ports consistent from bind to Service; worker Deployment with an HPA on a metric the API
+    exposes; Redis StatefulSet with a PVC and deploy/redis.conf verbatim in its ConfigMap."""
+    docs = k8s_docs()
+    kinds = {(d["kind"], d["metadata"]["name"]) for d in docs}
+    assert {
+        ("Deployment", "spanwright-api"),
+        ("Service", "spanwright-api"),
+        ("Deployment", "spanwright-worker"),
+        ("HorizontalPodAutoscaler", "spanwright-worker"),
+        ("StatefulSet", "spanwright-redis"),
+        ("Service", "spanwright-redis"),
+        ("ConfigMap", "spanwright-redis-conf"),
+    } <= kinds
+    rules = app_rules()
+    api = by_kind("Deployment", "spanwright-api")
+    (c,) = api["spec"]["template"]["spec"]["containers"]
+    env = {e["name"]: e["value"] for e in c["env"]}
+    (port,) = c["ports"]
+    assert env["SPANWRIGHT_BIND"].rsplit(":", 1)[1] == str(port["containerPort"])
+    assert c["livenessProbe"]["httpGet"]["path"] == "/healthz"
+    assert c["readinessProbe"]["httpGet"]["path"] == "/readyz"
+    for probe in ("livenessProbe", "readinessProbe"):
+        assert c[probe]["httpGet"]["path"] in rules
+        assert c[probe]["httpGet"]["port"] == port["name"]
+    assert api["spec"]["template"]["metadata"]["annotations"]["prometheus.io/path"] in rules
+    svc = by_kind("Service", "spanwright-api")
+    assert svc["spec"]["type"] == "ClusterIP"
+    assert svc["spec"]["ports"][0]["targetPort"] == port["name"]
+    assert svc["spec"]["selector"] == api["spec"]["selector"]["matchLabels"]
+    hpa = by_kind("HorizontalPodAutoscaler", "spanwright-worker")
+    assert hpa["spec"]["scaleTargetRef"]["name"] == "spanwright-worker"
+    assert hpa["spec"]["minReplicas"] >= 1
+    metric = hpa["spec"]["metrics"][0]["external"]["metric"]
+    assert metric["name"] == "spanwright_queue_jobs"
+    conf = by_kind("ConfigMap", "spanwright-redis-conf")["data"]["redis.conf"]
+    assert conf.strip().splitlines() == (DEPLOY / "redis.conf").read_text().strip().splitlines()
+    sts = by_kind("StatefulSet", "spanwright-redis")
+    assert sts["spec"]["volumeClaimTemplates"][0]["metadata"]["name"] == "data"
+    (rc,) = sts["spec"]["template"]["spec"]["containers"]
+    assert rc["command"][:2] == ["redis-server", "/usr/local/etc/redis/redis.conf"]
+    assert "--dir" in rc["command"] and rc["command"][rc["command"].index("--dir") + 1] == "/data"
+    urls = {
+        e["value"]
+        for d in docs
+        if d["kind"] == "Deployment"
+        for ct in d["spec"]["template"]["spec"]["containers"]
+        for e in ct.get("env", [])
+        if e["name"] == "REDIS_URL"
+    }
+    rsvc = by_kind("Service", "spanwright-redis")
+    assert urls == {f"redis://{rsvc['metadata']['name']}:{rsvc['spec']['ports'][0]['port']}/0"}
+
+
+def test_kustomize_builds_the_manifests() -> None:
+    """``kubectl kustomize deploy/k8s`` renders every manifest (skipped without kubectl)."""
+    kubectl = shutil.which("kubectl")
+    if kubectl is None:
+        pytest.skip("kubectl not installed")
+    out = subprocess.run(
+        [kubectl, "kustomize", str(K8S)], capture_output=True, text=True, timeout=60, check=True
+    ).stdout
+    rendered = {(d["kind"], d["metadata"]["name"]) for d in yaml.safe_load_all(out) if d}
+    assert rendered == {(d["kind"], d["metadata"]["name"]) for d in k8s_docs()}
+
+
+def test_readme_names_every_file() -> None:
+    """deploy/README.md mentions every file shipped in deploy/."""
+    readme = (DEPLOY / "README.md").read_text()
+    for p in sorted(DEPLOY.rglob("*")):
+        if p.is_file() and p.name != "README.md" and "__pycache__" not in p.parts:
+            assert p.name in readme, p.name

@@ -1,0 +1,140 @@
+"""Shape validation of request bodies (marshmallow 4), before the core's semantic checks."""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from marshmallow import ValidationError
+
+from service.problems import LimitExceeded
+from service.schemas import JobList, JobSchema, load_plan_request, messages_to_issues
+from service.settings import Settings
+from workers.planning.errors import InvalidInstance
+
+S = Settings(max_jobs=10, max_nodes=4, max_time_budget=3.0, default_time_budget=1.0)
+
+
+def pointers(body: Any) -> set[str]:
+    with pytest.raises(InvalidInstance) as err:
+        load_plan_request(body, S)
+    return {i.pointer for i in err.value.issues}
+
+
+def test_unknown_fields_are_refused_with_pointers() -> None:
+    """Unknown members anywhere are errors (additionalProperties: false), as RFC 6901 pointers."""
+    body = {
+        "jobs": [{"id": "a", "duration": 1, "colour": "red"}],
+        "node_count": 2,
+        "priority": 1,
+    }
+    assert pointers(body) == {"/jobs/0/colour", "/priority"}
+
+
+@pytest.mark.parametrize(
+    ("job", "where"),
+    [
+        ({"id": "a", "duration": True}, "/jobs/0/duration"),
+        ({"id": "a", "duration": "60"}, "/jobs/0/duration"),
+        ({"id": "a", "duration": -1}, "/jobs/0/duration"),
+        ({"id": "a", "duration": float("inf")}, "/jobs/0/duration"),
+        ({"id": "", "duration": 1}, "/jobs/0/id"),
+        ({"id": 7, "duration": 1}, "/jobs/0/id"),
+        ({"id": "a", "duration": 1, "requires": "gpu"}, "/jobs/0/requires"),
+        ({"id": "a"}, "/jobs/0/duration"),
+    ],
+)
+def test_wrong_types_and_ranges(job: dict[str, Any], where: str) -> None:
+    """Booleans and strings are not numbers, durations are finite and >= 0, ids non-empty."""
+    assert where in pointers({"jobs": [job], "node_count": 1})
+
+
+def test_integral_floats_are_integers() -> None:
+    """JSON has one number type: ``2.0`` is the integer 2 (JSON Schema says so), ``2.5`` is not."""
+    ok = load_plan_request({"jobs": [{"id": "a", "duration": 1}], "node_count": 2.0}, S)
+    assert ok["node_count"] == 2 and isinstance(ok["node_count"], int)
+    for bad in (2.5, "2", True):
+        assert "/node_count" in pointers({"jobs": [{"id": "a", "duration": 1}], "node_count": bad})
+
+
+def test_nodes_or_node_count_not_both() -> None:
+    """Exactly one of ``nodes`` and ``node_count`` (the contract)."""
+    both = {"jobs": [{"id": "a", "duration": 1}], "node_count": 1, "nodes": [{"id": "n"}]}
+    assert "/node_count" in pointers(both)
+    assert "/node_count" in pointers({"jobs": [{"id": "a", "duration": 1}]})
+
+
+def test_limits_are_their_own_problem() -> None:
+    """Jobs per batch, nodes and the time-budget ceiling are limits of the deployment."""
+    body = {
+        "jobs": [{"id": str(i), "duration": 1} for i in range(11)],
+        "node_count": 5,
+        "time_budget": 4,
+    }
+    with pytest.raises(LimitExceeded) as err:
+        load_plan_request(body, S)
+    assert {i.pointer for i in err.value.issues} == {"/jobs", "/node_count", "/time_budget"}
+    assert err.value.status == 422
+
+
+def test_defaults_filled_in() -> None:
+    """A body without method or time budget gets the service's defaults."""
+    out = load_plan_request({"jobs": [{"id": "a", "duration": 1}], "node_count": 1}, S)
+    assert out["method"] == "longest_first"
+    assert out["time_budget"] == S.default_time_budget
+
+
+def test_pointer_escaping() -> None:
+    """RFC 6901 section 3: '~' is written '~0' and '/' is written '~1' in a reference token."""
+    issues = messages_to_issues({"a/b": ["x"], "c~d": {"_schema": ["y"]}})
+    assert {i.pointer for i in issues} == {"/a~1b", "/c~0d"}
+
+
+_values = st.one_of(
+    st.none(),
+    st.booleans(),
+    st.integers(-5, 5),
+    st.floats(allow_nan=True, allow_infinity=True),
+    st.text(max_size=3),
+    st.lists(st.one_of(st.text(max_size=2), st.integers()), max_size=2),
+)
+_jobs = st.lists(
+    st.one_of(
+        st.dictionaries(
+            st.sampled_from(["id", "duration", "group", "requires", "duration_p90", "x"]),
+            _values,
+            max_size=5,
+        ),
+        st.fixed_dictionaries({"id": st.text(max_size=3), "duration": _values}),
+        _values,
+    ),
+    max_size=4,
+)
+
+
+@settings(max_examples=300, deadline=None)
+@given(_jobs)
+def test_fast_job_list_agrees_with_the_reference_schema(jobs: list[Any]) -> None:
+    """The fast job-list field gives exactly marshmallow's ``List(Nested(JobSchema))`` verdict.
+
+    Reference: marshmallow's own nested-schema validation of the same documented schema.
+    """
+    from marshmallow import Schema, fields, validate
+
+    class Reference(Schema):
+        jobs = fields.List(fields.Nested(JobSchema), required=True, validate=validate.Length(min=1))
+
+    class Fast(Schema):
+        jobs = JobList(required=True)
+
+    def verdict(schema: Schema) -> Any:
+        try:
+            schema.load({"jobs": jobs})
+        except ValidationError as exc:
+            return json.dumps(exc.messages, sort_keys=True, default=str)
+        return None
+
+    assert verdict(Fast()) == verdict(Reference())

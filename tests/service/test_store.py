@@ -1,0 +1,117 @@
+"""The Redis store: time-ordered ids, per-tenant listing with cursors, retention, transitions."""
+
+from __future__ import annotations
+
+import random
+
+import fakeredis
+import pytest
+
+from service.store import Store, new_id
+
+
+@pytest.fixture
+def store() -> Store:
+    return Store(fakeredis.FakeRedis(), prefix="t", retention=300)
+
+
+def test_ids_sort_like_their_times() -> None:
+    """Lexicographic order of ids equals submission order (checked by brute force)."""
+    rnd = random.Random(4)
+    times = [1.7e9 + rnd.uniform(0, 1e8) for _ in range(200)]
+    ids = {new_id(t): t for t in times}
+    assert [ids[i] for i in sorted(ids)] == sorted(times)
+
+
+def test_listing_pages_newest_first_with_status_filter(store: Store) -> None:
+    """Every page, concatenated, is the brute-force newest-first list, filtered; no repeats."""
+    rnd = random.Random(7)
+    made = []
+    for _ in range(40):
+        t = 1.8e9 + rnd.uniform(0, 500)  # within the retention
+        rid = store.create("plan", "local", b"{}", {"method": "list"}, now=t)
+        status = rnd.choice(["queued", "done", "cancelled"])
+        if status != "queued":
+            store.request_cancel("plan", rid) if status == "cancelled" else (
+                store.mark_solving("plan", rid),
+                store.finish("plan", rid, "done", result_json="{}"),
+            )
+        made.append((t, rid, status))
+    store.create("plan", "other-tenant", b"{}", {}, now=1.8e9 + 50)
+    for status in (None, "done", "queued"):
+        want = [rid for t, rid, s in sorted(made, reverse=True) if status in (None, s)]
+        got, cursor = [], None
+        while True:
+            items, cursor = store.list("local", "plan", status=status, limit=7, cursor=cursor)
+            assert len(items) <= 7
+            got += [it["id"] for it in items]
+            if cursor is None:
+                break
+        assert got == want
+
+
+def test_expired_records_leave_the_listing(store: Store) -> None:
+    """A record whose keys expired is no longer listed (and its index entry is dropped)."""
+    a = store.create("plan", "local", b"{}", {})
+    b = store.create("plan", "local", b"{}", {})
+    store.conn.delete(store.key("plan", a))
+    items, _ = store.list("local", "plan", limit=10)
+    assert [i["id"] for i in items] == [b]
+    assert store.conn.zscore(store.index_key("local", "plan"), a) is None
+
+
+def test_every_key_has_the_retention(store: Store) -> None:
+    """Records, requests, results and idempotency records expire after the retention."""
+    rid = store.create("plan", "local", b'{"jobs": []}', {})
+    assert store.claim_idempotency("local", "plan", "k", "f", rid) is None
+    assert 300 < store.conn.ttl(store.key("plan", rid)) <= 600  # queued: twice the retention
+    store.mark_solving("plan", rid)
+    store.finish("plan", rid, "done", result_json="{}")
+    for key in (*store._all_keys("plan", rid), store.idem_key("local", "plan", "k")):
+        assert 0 < store.conn.ttl(key) <= 300
+
+
+def test_idempotency_binding_is_first_come(store: Store) -> None:
+    """The first claim binds the key; a second returns the first binding (SET NX)."""
+    assert store.claim_idempotency("local", "plan", "key-1", "fp-a", "id-a") is None
+    assert store.claim_idempotency("local", "plan", "key-1", "fp-b", "id-b") == {
+        "fingerprint": "fp-a",
+        "id": "id-a",
+    }
+    assert store.claim_idempotency("other", "plan", "key-1", "fp-b", "id-b") is None
+
+
+def test_transitions_are_guarded(store: Store) -> None:
+    """Status only moves forward: no finish before solving, no solving after cancel."""
+    rid = store.create("plan", "local", b"{}", {})
+    assert not store.finish("plan", rid, "done")
+    assert store.request_cancel("plan", rid) == "queued"
+    assert store.status("plan", rid) == "cancelled"
+    assert not store.mark_solving("plan", rid)
+    assert store.request_cancel("plan", rid) == "cancelled"  # finished: the caller says 409
+
+
+def test_version_changes_with_every_visible_change(store: Store) -> None:
+    """The ETag (RFC 9110 section 8.8.3) must change whenever the document changes."""
+    rid = store.create("plan", "local", b"{}", {})
+    seen = {store.version("plan", rid)[1]}
+    store.mark_solving("plan", rid)
+    seen.add(store.version("plan", rid)[1])
+    store.publish_progress("plan", rid, {"elapsed": 0.1})
+    seen.add(store.version("plan", rid)[1])
+    store.finish("plan", rid, "done", result_json="{}")
+    seen.add(store.version("plan", rid)[1])
+    assert len(seen) == 4
+
+
+def test_wait_returns_when_finished(store: Store) -> None:
+    """A waiter returns at once for a finished record and after the timeout for a queued one."""
+    import time
+
+    rid = store.create("plan", "local", b"{}", {})
+    t0 = time.monotonic()
+    assert store.wait("plan", rid, 0.2) == "queued"
+    assert time.monotonic() - t0 >= 0.19
+    store.mark_solving("plan", rid)
+    store.finish("plan", rid, "failed", error={"title": "x"})
+    assert store.wait("plan", rid, 5) == "failed"

@@ -1,0 +1,132 @@
+"""The RQ task and the queueing: progress, cancel, failures, retry, the crash guard.
+
+Some tests replace the core's solve with a small test double (named as such) to hold a
+job in the solving state on purpose; the adapter code under test is the real one.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import json
+import math
+import threading
+import time
+from typing import Any
+
+import pytest
+from rq.job import Job
+from rq.serializers import JSONSerializer
+
+from service.queue import rq_job_id
+from workers import tasks
+from workers.planning.solve import Progress
+
+BODY = {"jobs": [{"id": f"j{i}", "duration": 100 + i} for i in range(30)], "node_count": 4}
+
+
+def poll(client: Any, loc: str, pred: Any, timeout: float = 10.0) -> dict[str, Any]:
+    end = time.monotonic() + timeout
+    while time.monotonic() < end:
+        doc = client.get(loc).get_json()
+        if pred(doc):
+            return doc  # type: ignore[no-any-return]
+        time.sleep(0.01)
+    raise AssertionError(f"condition not met for {loc}: {doc}")
+
+
+def test_job_is_queued_with_json_timeout_and_retry(idle_app: Any, settings: Any) -> None:
+    """RQ job: JSON arguments, timeout = budget + margin (a crash guard), one retry."""
+    c = idle_app.test_client()
+    doc = c.post("/v1/plans", json={**BODY, "time_budget": 1.5}).get_json()
+    conn = idle_app.extensions["spanwright"].store.conn
+    job = Job.fetch(rq_job_id("plan", doc["id"]), connection=conn, serializer=JSONSerializer)
+    assert job.timeout == math.ceil(1.5) + settings.job_timeout_margin
+    assert job.retries_left == 1
+    assert job.func_name == "workers.tasks.run_job"
+    assert job.kwargs["record_id"] == doc["id"]
+    json.dumps(job.kwargs)  # everything the worker needs is plain JSON
+
+
+def test_core_input_errors_fail_the_plan_with_a_problem(idle_app: Any, drain: Any) -> None:
+    """A body the core refuses at solve time ends as ``failed`` with its problem document."""
+    svc = idle_app.extensions["spanwright"]
+    bad = json.dumps({"jobs": [{"id": "a", "duration": -1}], "node_count": 1}).encode()
+    rid = svc.store.create("plan", "local", bad, {"method": "longest_first", "time_budget": "1"})
+    svc.queue.enqueue("plan", rid, 1.0)
+    drain()
+    doc = idle_app.test_client().get(f"/v1/plans/{rid}").get_json()
+    assert doc["status"] == "failed" and doc["result"] is None
+    assert doc["error"]["type"] == "/problems/invalid-request"
+    assert doc["error"]["errors"][0]["pointer"] == "/jobs/0/duration"
+
+
+def test_unexpected_errors_are_retried_once_then_fail(
+    idle_app: Any, drain: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A crash is retried once (RQ ``Retry(max=1)``), then the plan fails with a 500 problem."""
+    calls = []
+
+    def broken(body: Any, **kw: Any) -> Any:  # test double: a core that crashes
+        calls.append(1)
+        raise RuntimeError("disk on fire")
+
+    monkeypatch.setitem(tasks.RUNNERS, "plan", broken)
+    c = idle_app.test_client()
+    loc = c.post("/v1/plans", json=BODY).headers["Location"]
+    drain()
+    doc = c.get(loc).get_json()
+    assert len(calls) == 2
+    assert doc["status"] == "failed"
+    assert doc["error"]["status"] == 500 and "disk on fire" in doc["error"]["detail"]
+
+
+def test_progress_is_published_and_cancel_reaches_the_solver(
+    app: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """While solving, GET shows progress; DELETE sets the flag the solver's should_stop reads."""
+    stop_seen = threading.Event()
+
+    def slow_core(body: Any, *, progress: Any, should_stop: Any, **kw: Any) -> Any:
+        # test double of an anytime search: reports an incumbent until told to stop
+        for k in range(2000):
+            progress(Progress(elapsed=0.01 * k, best_makespan=500.0 - k, best_lower_bound=400.0))
+            if should_stop():
+                stop_seen.set()
+                break
+            time.sleep(0.005)
+        return tasks.Outcome({"stop_reason": "cancelled"}, {"makespan": 480.0}, cancelled=True)
+
+    monkeypatch.setitem(tasks.RUNNERS, "plan", slow_core)
+    c = app.test_client()
+    loc = c.post("/v1/plans", json={**BODY, "method": "exact", "time_budget": 1}).headers[
+        "Location"
+    ]
+    doc = poll(c, loc, lambda d: (d["progress"] or {}).get("best_makespan") is not None)
+    assert doc["status"] == "solving" and doc["progress"]["best_lower_bound"] == 400.0
+    r = c.delete(loc)
+    # 202 while the solver has not yet seen the flag; 200 if it stopped before we re-read
+    assert (r.status_code, r.get_json()["cancel_requested"]) in ((202, True), (200, True))
+    doc = poll(c, loc, lambda d: d["status"] != "solving")
+    assert stop_seen.is_set()
+    assert doc["status"] == "cancelled" and doc["result"]["stop_reason"] == "cancelled"
+
+
+@pytest.mark.skipif(
+    importlib.util.find_spec("workers.planning.exact") is None, reason="exact solver not landed"
+)
+def test_cancel_stops_a_real_search(client: Any) -> None:
+    """With the exact search: a cancelled solve ends early with its best plan so far."""
+    import random
+
+    rnd = random.Random(3)
+    jobs = [{"id": f"x{i}", "duration": rnd.randint(1000, 9999)} for i in range(60)]
+    body = {"jobs": jobs, "node_count": 7, "method": "exact", "time_budget": 2}
+    loc = client.post("/v1/plans", json=body).headers["Location"]
+    doc = poll(client, loc, lambda d: d["status"] != "queued")
+    if doc["status"] == "solving":
+        client.delete(loc)
+    doc = poll(client, loc, lambda d: d["status"] in ("done", "cancelled", "failed"))
+    assert doc["status"] in ("done", "cancelled")
+    if doc["status"] == "cancelled":
+        assert doc["result"]["stop_reason"] == "cancelled"
+        assert doc["result"]["makespan"] >= doc["result"]["lower_bound"]

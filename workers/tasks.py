@@ -1,0 +1,209 @@
+"""The RQ task: a thin adapter between the queue, the store and the planning core.
+
+``run_job`` loads the stored request, solves it with the core, publishes progress
+(elapsed, best makespan, best bound) while the core runs, honours a cancel flag through the
+core's ``should_stop`` hook, and stores the result under our keys with their retention.
+Input errors of the core (:class:`SpanwrightError`) end the record as ``failed`` with a
+problem document; anything else propagates so RQ's single retry and then ``on_failure``
+deal with it (the search loop is never wrapped in ``except Exception``: RQ's timeout
+exception derives from it).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import time
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from typing import Any
+
+import redis
+from rq import get_current_job
+
+from service.metrics import record_failed, record_finish
+from service.problems import InternalError, problem_dict
+from service.store import Store
+from workers.planning.errors import SpanwrightError
+
+
+@dataclass(frozen=True, slots=True)
+class Outcome:
+    """What a runner hands back: the result object and a few summary fields for lists."""
+
+    result: dict[str, Any]
+    summary: dict[str, Any]
+    cancelled: bool
+
+
+Runner = Callable[..., Outcome]
+
+
+def solve_plan(
+    body: Mapping[str, Any],
+    *,
+    method: str,
+    time_budget: float,
+    progress: Callable[[Any], None],
+    should_stop: Callable[[], bool],
+) -> Outcome:
+    """``POST /v1/plans``: build the instance and solve it."""
+    from workers.planning import Instance, solve
+
+    inst = Instance.from_request(body)
+    res = solve(inst, method, time_budget=time_budget, progress=progress, should_stop=should_stop)
+    result = res.to_dict()
+    if inst.duration_p90 is not None or "spread" in body or "confidence_samples" in body:
+        from workers.planning.confidence import confidence_block
+
+        result["confidence"] = confidence_block(
+            res.schedule,
+            spread=body.get("spread"),
+            samples=int(body.get("confidence_samples", 1000)),
+            seed=int(body.get("confidence_seed", 0)),
+            deadline=inst.deadline,
+        )
+    dl = result.get("deadline")
+    summary = {
+        "makespan": res.makespan,
+        "lower_bound": res.lower_bound,
+        "gap": res.gap if res.gap != float("inf") else None,
+        "proven_optimal": res.proven_optimal,
+        "jobs": inst.n,
+        "nodes": inst.m,
+        "stop_reason": res.stop_reason,
+        "deadline_met": None if dl is None else dl["met"],
+    }
+    return Outcome(result, summary, res.stop_reason == "cancelled")
+
+
+def size_farm(
+    body: Mapping[str, Any],
+    *,
+    method: str,
+    time_budget: float,
+    progress: Callable[[Any], None],
+    should_stop: Callable[[], bool],
+) -> Outcome:
+    """``POST /v1/sizings``: the fewest nodes meeting the deadline."""
+    from workers.planning.sizing import size_from_request
+
+    res = size_from_request(
+        body, time_budget=time_budget, progress=progress, should_stop=should_stop
+    )
+    d = res.to_dict()
+    keys = ("nodes_needed", "nodes_lower_bound", "proven_optimal", "estimated_cost")
+    return Outcome(d, {k: d.get(k) for k in keys}, d.get("stop_reason") == "cancelled")
+
+
+RUNNERS: dict[str, Runner] = {"plan": solve_plan, "sizing": size_farm}
+
+
+def run_job(
+    kind: str, record_id: str, prefix: str, retention: int, progress_interval: float = 0.25
+) -> str:
+    """The RQ entry point (arguments are JSON): run one stored record."""
+    job = get_current_job()
+    if job is None:  # pragma: no cover - only RQ calls this
+        raise RuntimeError("run_job must run inside an RQ job")
+    store = Store(job.connection, prefix=prefix, retention=retention)
+    return run_record(store, kind, record_id, progress_interval=progress_interval)
+
+
+def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 0.25) -> str:
+    """Solve record ``rid`` and store the outcome; returns the final status (or 'skipped')."""
+    if not store.mark_solving(kind, rid):
+        return "skipped"  # cancelled while queued, expired, or already finished
+    rec = store.get(kind, rid, with_result=False)
+    raw = store.load_request(kind, rid)
+    if rec is None or raw is None:
+        return "skipped"
+    time_budget = float(rec.fields.get("time_budget", 5.0))
+    method = str(rec.fields.get("method", "longest_first"))
+    t0 = time.perf_counter()
+    last = [0.0]
+    best: dict[str, Any] = {}
+
+    def progress(p: Any) -> None:
+        if hasattr(p, "to_dict"):  # a sizing's interval so far
+            best.update(p.to_dict(), time_budget=time_budget)
+        else:  # solve.Progress of a plan
+            best.update(
+                elapsed=round(p.elapsed, 4),
+                time_budget=time_budget,
+                best_makespan=p.best_makespan,
+                best_lower_bound=p.best_lower_bound,
+            )
+        now = time.perf_counter()
+        if now - last[0] >= progress_interval:
+            last[0] = now
+            store.publish_progress(kind, rid, dict(best))
+            if kind == "plan":
+                store.append_progress_history(kind, rid, dict(best))
+
+    def should_stop() -> bool:
+        return store.cancel_requested(kind, rid)
+
+    try:
+        out = RUNNERS[kind](
+            json.loads(raw),
+            method=method,
+            time_budget=time_budget,
+            progress=progress,
+            should_stop=should_stop,
+        )
+    except SpanwrightError as exc:
+        if store.finish(kind, rid, "failed", error=problem_dict(exc)):
+            with contextlib.suppress(redis.RedisError):
+                record_failed(store.conn, store.prefix, kind)
+        return "failed"
+    # a cancel that arrives after the solver finished its work changes nothing: status done
+    status = "cancelled" if out.cancelled else "done"
+    final: dict[str, Any] = {
+        "elapsed": round(time.perf_counter() - t0, 4),
+        "time_budget": time_budget,
+    }
+    if kind == "plan":
+        final.update(
+            best_makespan=out.summary.get("makespan"),
+            best_lower_bound=out.summary.get("lower_bound"),
+        )
+    else:
+        final.update(
+            nodes_needed=out.summary.get("nodes_needed"),
+            nodes_lower_bound=out.summary.get("nodes_lower_bound"),
+        )
+    finished = store.finish(
+        kind,
+        rid,
+        status,
+        result_json=json.dumps(out.result, allow_nan=False, separators=(",", ":")),
+        summary=out.summary,
+        progress=final,
+    )
+    if finished:
+        with contextlib.suppress(redis.RedisError):
+            record_finish(store.conn, store.prefix, kind, out.result)
+    return status
+
+
+def on_failure(job: Any, connection: Any, exc_type: Any, exc: Any, tb: Any) -> None:
+    """RQ failure callback: requeue our record if RQ retries the job, else mark it failed."""
+    kw = job.kwargs
+    store = Store(connection, prefix=kw["prefix"], retention=kw["retention"])
+    name = getattr(exc_type, "__name__", str(exc_type))
+    detail = (
+        f"the worker failed: {name}: {exc}" if exc is not None else f"the worker failed: {name}"
+    )
+    if job.retries_left:
+        store.requeue(kw["kind"], kw["record_id"], detail)
+        return
+    if store.finish(
+        kw["kind"],
+        kw["record_id"],
+        "failed",
+        error=problem_dict(InternalError(detail)),
+        allowed_from="queued,solving",
+    ):
+        with contextlib.suppress(redis.RedisError):
+            record_failed(connection, kw["prefix"], kw["kind"])
