@@ -32,6 +32,18 @@ def fmt_duration(seconds: float) -> str:
     return f"{h}h {m:02d}m {s:02d}s" if h else f"{m}m {s:02d}s"
 
 
+def fmt_tick(seconds: float) -> str:
+    """Compact axis labels: 0, 45s, 30m, 2h, 2h30."""
+    s = round(seconds)
+    h, rem = divmod(s, 3600)
+    m, sec = divmod(rem, 60)
+    if h:
+        return f"{h}h{m:02d}" if m else f"{h}h"
+    if m:
+        return f"{m}m{sec:02d}" if sec else f"{m}m"
+    return f"{sec}s" if sec else "0"
+
+
 def nice_ticks(hi: float, count: int = 8) -> list[float]:
     """Round tick positions from 0 to about ``hi`` (seconds, in 1-2-5 steps of time units)."""
     if hi <= 0:
@@ -69,11 +81,11 @@ def timeline(
     lower = result.get("lower_bound")
     dl = (result.get("deadline") or {}).get("deadline")
     span = max(makespan, float(dl or 0.0), 1e-9) * 1.04
-    left, top, right = 150, 34, 20
+    left, top, right = 150, 34, 40
     plot_w = width - left - right
     colours = group_colours(groups.get(j["id"], UNGROUPED) for a in shown for j in a["jobs"])
     legend_h = 22 * math.ceil(len(colours) / 4) if colours else 0
-    height = top + row_height * len(shown) + 40 + legend_h
+    height = top + row_height * len(shown) + 56 + legend_h
 
     def x(t: float) -> float:
         return left + plot_w * t / span
@@ -88,7 +100,8 @@ def timeline(
         parts.append(
             f'<line class="tick" x1="{x(t):.1f}" x2="{x(t):.1f}" y1="{top - 4}" '
             f'y2="{top + row_height * len(shown)}" />'
-            f'<text class="tick-label" x="{x(t):.1f}" y="{top - 8}">{fmt_duration(t)}</text>'
+            f'<text class="tick-label" x="{x(t):.1f}" y="{top - 8}" text-anchor="middle">'
+            f"{fmt_tick(t)}</text>"
         )
     for r, node in enumerate(shown):
         y = top + r * row_height
@@ -123,15 +136,19 @@ def timeline(
             f'text-anchor="end">lower bound {fmt_duration(lower)}</text>'
         )
     if dl is not None:
+        # near the right edge the label goes left of the line
+        anchor = ' text-anchor="end"' if x(dl) > left + 0.75 * plot_w else ""
+        if anchor and lower is not None and x(lower) > left + 0.5 * plot_w:
+            anchor = ' text-anchor="end" dy="14"'
         parts.append(
             f'<line class="deadline" data-at="{float(dl):.6g}" x1="{x(dl):.2f}" '
             f'x2="{x(dl):.2f}" y1="{top - 4}" y2="{bottom + 4}" />'
-            f'<text class="mark-label" x="{x(dl) + 4:.1f}" y="{bottom + 18}">'
-            f"deadline {fmt_duration(dl)}</text>"
+            f'<text class="mark-label" x="{x(dl) + (-4 if anchor else 4):.1f}" y="{bottom + 18}"'
+            f"{anchor}>deadline {fmt_duration(dl)}</text>"
         )
     for i, (g, c) in enumerate(colours.items()):
         lx = left + (i % 4) * (plot_w / 4)
-        ly = bottom + 36 + 22 * (i // 4)
+        ly = bottom + 50 + 22 * (i // 4)
         parts.append(
             f'<g class="legend-item"><rect x="{lx:.1f}" y="{ly - 11}" width="14" height="14" '
             f'fill="{c}" /><text x="{lx + 20:.1f}" y="{ly}">{escape(g)}</text></g>'
@@ -146,7 +163,7 @@ def line_chart(
     x_label: str,
     y_label: str,
     width: int = 520,
-    height: int = 220,
+    height: int = 230,
     marks: dict[str, float] | None = None,
     x_is_time: bool = True,
 ) -> str:
@@ -166,7 +183,7 @@ def line_chart(
         x1 = x0 + 1
     pad = (y1 - y0) * 0.08 or max(abs(y1) * 0.05, 1.0)
     y0, y1 = y0 - pad, y1 + pad
-    left, right, top, bottom = 86, 120, 14, 36
+    left, right, top, bottom = 86, 120, 14, 44
     pw, ph = width - left - right, height - top - bottom
 
     def sx(v: float) -> float:
@@ -175,7 +192,7 @@ def line_chart(
     def sy(v: float) -> float:
         return top + ph * (1 - (v - y0) / (y1 - y0))
 
-    fmt_x = fmt_duration if x_is_time else (lambda v: f"{v:g}")
+    fmt_x = fmt_duration if x_is_time else (lambda v: f"{v:.3g}")
     out = [
         f'<svg xmlns="http://www.w3.org/2000/svg" class="chart" role="img" width="{width}" '
         f'height="{height}" viewBox="0 0 {width} {height}"><title>{escape(y_label)} by '
