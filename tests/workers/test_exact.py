@@ -1,0 +1,305 @@
+"""Tests of ``method: exact`` on identical nodes (workers/planning/exact).
+
+Every expected optimum comes from outside the project: a brute force written here, the
+assignment MILP solved by scipy.optimize.milp (HiGHS, tests/reference.py), instances whose
+optimum is known by construction, and Graham's tight LPT family (Graham 1969).
+"""
+
+from __future__ import annotations
+
+import itertools
+import time
+
+import numpy as np
+import pytest
+from reference import milp_makespan
+
+from workers.planning import Budget, Instance, Node, solve
+from workers.planning.exact import constructions, decision, improve, solve_exact
+from workers.planning.greedy import longest_first_schedule, lpt_ratio
+from workers.planning.solve import Progress
+
+
+def brute_force(p: list[int], m: int) -> int:
+    """Optimum makespan over every assignment of jobs to nodes (node of job 0 fixed)."""
+    n = len(p)
+    best = sum(p)
+    for rest in itertools.product(range(m), repeat=n - 1):
+        loads = [0] * m
+        loads[0] = p[0]
+        for j, k in enumerate(rest, start=1):
+            loads[k] += p[j]
+        best = min(best, max(loads))
+    return best
+
+
+def exact(p: list[float], m: int, seconds: float = 5.0, **kw: object) -> object:
+    """solve_exact on a fresh budget."""
+    inst = Instance.build(p, m, **kw)  # type: ignore[arg-type]
+    return solve_exact(inst, Budget(seconds))
+
+
+def test_equals_brute_force_on_random_small_cases() -> None:
+    """Exhaustive search over all m**(n-1) assignments (brute force) agrees, n <= 8."""
+    rng = np.random.default_rng(11)
+    for _ in range(60):
+        n = int(rng.integers(2, 9))
+        m = int(rng.integers(2, 4))
+        p = [int(x) for x in rng.integers(1, 40, size=n)]
+        res = exact(p, m)
+        opt = brute_force(p, m)
+        assert res.makespan == opt, (p, m)
+        assert res.proven_optimal and res.stop_reason == "proved_optimal"
+        assert res.lower_bound <= opt
+
+
+def test_equals_highs_milp_on_random_instances_up_to_30_jobs() -> None:
+    """scipy.optimize.milp (HiGHS) on the assignment model gives the same optimum."""
+    rng = np.random.default_rng(5)
+    for n, m in [(12, 3), (18, 4), (24, 3), (30, 5)]:
+        p = [int(x) for x in rng.integers(5, 60, size=n)]
+        opt = milp_makespan(p, m, time_limit=20.0)
+        res = exact(p, m)
+        assert res.makespan == pytest.approx(opt)
+        assert res.proven_optimal
+
+
+def planted(rng: np.random.Generator, m: int, u: int, pieces: int) -> list[int]:
+    """Cut m segments of length u into ``pieces`` parts each: the optimum is u."""
+    out: list[int] = []
+    for _ in range(m):
+        cuts = np.sort(rng.choice(np.arange(1, u), size=pieces - 1, replace=False))
+        out.extend(np.diff(np.concatenate(([0], cuts, [u]))).tolist())
+    rng.shuffle(out)
+    return out
+
+
+@pytest.mark.parametrize("m,u,pieces", [(3, 100, 3), (5, 1000, 3), (8, 500, 4), (12, 300, 2)])
+def test_planted_instances_reach_the_planted_optimum(m: int, u: int, pieces: int) -> None:
+    """Planted instances (optimum known by construction: the segments' length u)."""
+    rng = np.random.default_rng(m * u)
+    p = planted(rng, m, u, pieces)
+    res = exact(p, m)
+    assert res.makespan == u
+    assert res.proven_optimal
+
+
+@pytest.mark.parametrize("m", range(2, 11))
+def test_graham_tight_family(m: int) -> None:
+    """Graham (1969): two jobs each of 2m-1 .. m+1 and three of m; OPT = 3m, LPT = 4m-1."""
+    p = [x for x in range(2 * m - 1, m, -1) for _ in range(2)] + [m, m, m]
+    inst = Instance.build(p, m)
+    assert longest_first_schedule(inst).makespan == 4 * m - 1  # the family is tight for LPT
+    res = solve_exact(inst, Budget(5.0))
+    assert res.makespan == 3 * m
+    assert res.proven_optimal
+    assert res.worst_case_ratio == pytest.approx(lpt_ratio(m))
+
+
+def test_certificate_never_exceeds_a_known_optimum_even_when_stopped_early() -> None:
+    """Lower bound <= optimum (brute force / planted) for budgets down to zero."""
+    rng = np.random.default_rng(3)
+    for seconds in (0.0, 0.001, 0.05):
+        for _ in range(10):
+            p = [int(x) for x in rng.integers(1, 30, size=7)]
+            res = exact(p, 3, seconds)
+            assert res.lower_bound <= brute_force(p, 3)
+        p = planted(rng, 20, 997, 3)
+        res = exact(p, 20, seconds)
+        assert res.lower_bound <= 997 <= res.makespan
+
+
+def hard_instance(seed: int) -> list[int]:
+    """A few-jobs-per-node batch (normal lengths, n/m = 2.5) of the kind that is slow to prove
+    (Dell'Amico and Martello 1995 class; Lawrinenko 2018 hard region)."""
+    rng = np.random.default_rng(seed)
+    return [max(1, int(x)) for x in rng.normal(100, 20, size=100)]
+
+
+def test_budget_is_honoured() -> None:
+    """The solver stops on its own clock: wall time within the budget plus a generous margin."""
+    p = hard_instance(7)
+    inst = Instance.build(p, 40)
+    solve_exact(inst, Budget(0.05))  # warm the compiled kernels
+    t0 = time.perf_counter()
+    res = solve_exact(inst, Budget(0.3))
+    wall = time.perf_counter() - t0
+    assert wall <= 0.3 * 1.05 + 0.5
+    assert res.stop_reason in ("proved_optimal", "time_budget")
+    assert res.solve_seconds <= wall + 1e-6
+
+
+def test_cancel_is_reported() -> None:
+    """A cancel seen through Budget.should_stop ends the search with stop_reason cancelled."""
+    p = hard_instance(8)
+    inst = Instance.build(p, 40)
+    res = solve_exact(inst, Budget(30.0, should_stop=lambda: True, poll_interval=0.0))
+    assert res.solve_seconds < 5.0
+    if not res.proven_optimal:
+        assert res.stop_reason == "cancelled"
+
+
+def test_progress_hook_is_monotone() -> None:
+    """Progress reports: incumbent never increases, bound never decreases, bound <= incumbent."""
+    seen: list[Progress] = []
+    p = hard_instance(9)
+    inst = Instance.build(p, 40)
+    res = solve_exact(inst, Budget(0.4), progress=seen.append)
+    assert seen
+    for a, b in itertools.pairwise(seen):
+        assert b.best_makespan <= a.best_makespan
+        assert b.best_lower_bound >= a.best_lower_bound
+        assert b.elapsed >= a.elapsed
+    assert all(s.best_lower_bound <= s.best_makespan for s in seen)
+    assert seen[-1].best_makespan == res.makespan
+
+
+def test_never_worse_than_lpt() -> None:
+    """The exact method starts from LPT (Graham 1969) and only keeps better plans."""
+    rng = np.random.default_rng(21)
+    for _ in range(15):
+        m = int(rng.integers(2, 12))
+        p = [int(x) for x in rng.integers(1, 1000, size=int(rng.integers(m, 6 * m)))]
+        inst = Instance.build(p, m)
+        res = solve_exact(inst, Budget(0.05))
+        assert res.makespan <= longest_first_schedule(inst).makespan
+        res.schedule.check()
+
+
+def test_pure_python_kernels_agree_with_compiled() -> None:
+    """The ``.py_func`` paths of the kernels give the same answers as the numba ones."""
+    rng = np.random.default_rng(4)
+    for _ in range(12):
+        m = int(rng.integers(2, 5))
+        q = np.sort(rng.integers(1, 50, size=int(rng.integers(3, 11))))[::-1].astype(np.int64)
+        opt = brute_force(q.tolist(), m)  # outside reference
+        for cap in (opt - 1, opt):
+            fast = decision.CompletionSearch(q, m, cap)
+            slow = decision.CompletionSearch(q, m, cap, compiled=False)
+            a, b = fast.run(10**6), slow.run(10**6)
+            assert a == b == (decision.FEASIBLE if cap >= opt else decision.INFEASIBLE)
+            if a == decision.FEASIBLE:
+                for packing in (fast.packing(), slow.packing()):
+                    assert np.bincount(packing, weights=q, minlength=m).max() <= cap
+        u = q.copy()
+        assert decision.l2_bound(u, u.size, opt) == decision.l2_bound.py_func(u, u.size, opt)
+        a1 = np.zeros(q.size, dtype=np.int32)
+        a2 = np.zeros(q.size, dtype=np.int32)
+        c = int(q.sum())
+        assert constructions.first_fit_decreasing(
+            q, m, c, a1
+        ) == constructions.first_fit_decreasing.py_func(q, m, c, a2)
+        assert (a1 == a2).all()
+        n1 = (np.arange(q.size) % m).astype(np.int32)
+        n2 = n1.copy()
+        assert improve.descend(q, n1, m, 100) == improve.descend.py_func(q, n2, m, 100)
+        assert (n1 == n2).all()
+
+
+def test_paused_search_resumes_to_the_same_answer() -> None:
+    """Stopping the decision search every few nodes and resuming changes nothing."""
+    rng = np.random.default_rng(6)
+    q = np.sort(rng.integers(20, 100, size=10))[::-1].astype(np.int64)
+    opt = brute_force(q.tolist(), 3)
+    for cap in (opt - 1, opt):
+        s = decision.CompletionSearch(q, 3, cap)
+        while (st := s.run(3)) == decision.PAUSED:
+            pass
+        assert st == (decision.FEASIBLE if cap >= opt else decision.INFEASIBLE)
+
+
+def test_real_durations_bound_valid_and_makespan_from_true_durations() -> None:
+    """Real durations with a resolution: the bound is below the true optimum (brute force on
+    the real durations) and the makespan is the largest node load of the true durations."""
+    rng = np.random.default_rng(8)
+    for res_ in (1.0, 0.5, 7.0):
+        for _ in range(8):
+            p = [float(x) for x in rng.uniform(0.3, 40.0, size=7)]
+            inst = Instance.build(p, 3, resolution=res_)
+            out = solve_exact(inst, Budget(2.0))
+            loads = np.zeros(3)
+            np.add.at(loads, out.schedule.node_of, inst.durations)
+            assert out.makespan == pytest.approx(loads.max())
+            opt = brute_force_real(p, 3)
+            assert out.lower_bound <= opt + 1e-9
+            assert out.makespan >= opt - 1e-9
+            out.schedule.check()
+
+
+def brute_force_real(p: list[float], m: int) -> float:
+    """Brute force on real durations (all m**(n-1) assignments)."""
+    best = float("inf")
+    for rest in itertools.product(range(m), repeat=len(p) - 1):
+        loads = [0.0] * m
+        loads[0] = p[0]
+        for j, k in enumerate(rest, start=1):
+            loads[k] += p[j]
+        best = min(best, max(loads))
+    return best
+
+
+def test_auto_returns_lpt_when_the_bounds_prove_it() -> None:
+    """auto: a batch where LPT meets the mean-load bound (McNaughton 1959) returns LPT."""
+    inst = Instance.build([4, 4, 3, 3, 2, 2], 2)  # LPT: 4+3+2 = 9 on both nodes = S/m
+    res = solve(inst, "auto", time_budget=1.0)
+    assert res.method == "longest_first"
+    assert res.stop_reason == "proved_optimal"
+    assert res.to_dict()["method_requested"] == "auto"
+
+
+def test_auto_searches_when_the_gap_is_open() -> None:
+    """auto on Graham's tight family (LPT = 4m-1, OPT = 3m) runs the exact search."""
+    m = 4
+    p = [x for x in range(2 * m - 1, m, -1) for _ in range(2)] + [m, m, m]
+    res = solve(Instance.build(p, m), "auto", time_budget=1.0)
+    assert res.method == "exact"
+    assert res.makespan == 3 * m
+    assert "exact" in res.extras["auto_choice"]
+
+
+def test_search_certificate_names_the_refuted_capacity() -> None:
+    """Where the closed-form bounds stay below the optimum (brute force), the search proves
+    the rest: source 'search', refuted capacity one tick below the optimum."""
+    from workers.planning.bounds import lower_bounds
+
+    rng = np.random.default_rng(17)
+    checked = 0
+    for _ in range(400):
+        p = [int(x) for x in rng.integers(10, 60, size=8)]
+        inst = Instance.build(p, 3)
+        opt = brute_force(p, 3)
+        if lower_bounds(inst, upper=float(sum(p))).value >= opt:
+            continue
+        d = solve_exact(inst, Budget(5.0)).to_dict()
+        assert d["lower_bound"] == opt and d["bound_source"] == "search"
+        assert d["certificate"]["search"]["refuted_capacity"] == opt - 1
+        assert d["bounds"]["search"] == opt
+        checked += 1
+        if checked == 5:
+            break
+    assert checked == 5
+
+
+def test_rejects_non_identical_nodes() -> None:
+    """The exact search is for identical nodes only: a clear error otherwise."""
+    from workers.planning import InvalidInstance
+
+    inst = Instance.build([3, 2, 1], [Node("a", speed=2.0), Node("b")])
+    with pytest.raises(InvalidInstance):
+        solve_exact(inst, Budget(1.0))
+
+
+def test_neighbourhood_search_keeps_a_valid_packing_and_never_worsens() -> None:
+    """The neighbourhood search only accepts repacks that keep every job once and never
+    raise the largest load; on planted instances (optimum u by construction) it stays >= u."""
+    rng = np.random.default_rng(12)
+    for m in (12, 20):
+        p = planted(rng, m, 400, 3)
+        q = np.array(sorted(p, reverse=True), dtype=np.int64)
+        node_of = (np.arange(q.size) % m).astype(np.int32)  # a poor round-robin start
+        before = np.bincount(node_of, weights=q, minlength=m).max()
+        improve.neighbourhood_search(q, node_of, m, 400, 0.3, np.random.default_rng(1))
+        loads = np.bincount(node_of, weights=q, minlength=m)
+        assert node_of.min() >= 0 and node_of.max() < m
+        assert loads.sum() == q.sum()
+        assert 400 <= loads.max() <= before
