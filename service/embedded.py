@@ -13,6 +13,7 @@ import logging
 import threading
 
 import fakeredis
+import numpy as np
 from rq import Queue, SimpleWorker
 from rq.exceptions import StopRequested
 from rq.serializers import JSONSerializer
@@ -83,7 +84,15 @@ def warm_up() -> None:
 
     solve(Instance.build([3.0, 2.0, 2.0, 1.0], 2), "longest_first")
     solve(Instance.build([3.0, 2.0, 2.0, 1.0], 2), "list")
-    solve(Instance.build([3.0, 2.0, 2.0, 1.0, 1.0], 2), "exact", time_budget=0.5)
     from workers.planning.binpacking import warm_up as warm_up_packing
+    from workers.planning.exact import decision
 
     warm_up_packing()
+    # The exact search compiles its decision kernels only when it first needs them; a few
+    # small batches with few jobs per node get it there before any real plan is timed.
+    rng = np.random.default_rng(0)
+    for _ in range(6):
+        p = np.maximum(1, rng.normal(160, 40, size=40)).astype(int)
+        solve(Instance.build(p, 16), "exact", time_budget=0.3)
+        if getattr(decision.complete, "signatures", [None]):
+            break
