@@ -13,7 +13,7 @@ statistics from a plain-numpy reference simulation (numpy normals, ``exp``, ``bi
 which must agree within Monte-Carlo error. Then a sizing to 90 % confidence. The machine's
 load average is printed, because the timings depend on it.
 
-    /work/venv/bin/python bench/confidence.py [--samples 10000] [--repeat 3]
+    python bench/confidence.py [--samples 10000] [--repeat 3]
 """
 
 from __future__ import annotations

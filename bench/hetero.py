@@ -5,7 +5,7 @@ subset (one node in five, all of the fastest class), a quarter of the nodes stil
 (free_at uniform in 0..3600 s). Shots last 2 to 120 minutes (log-uniform), 15 % of them
 need a GPU. Prints a Markdown table.
 
-    /work/venv/bin/python bench/hetero.py [--budget 1.0] [--seeds 3] [--small]
+    python bench/hetero.py [--budget 1.0] [--seeds 3] [--small]
 
 ``--small`` runs farms of 12 to 250 jobs instead, where ``auto`` chooses the MILP.
 """

@@ -10,7 +10,7 @@ a temporary directory, the API as ``spanwright serve`` (werkzeug, threaded) with
    plans finished per second from the first submit to the last finish (target >= 100/s);
 3. a 100,000-job plan end to end against the solver's own time (target within 3x).
 
-Usage: /work/venv/bin/python bench/service_latency.py [--worker-class simple|fork]
+Usage: python bench/service_latency.py [--worker-class simple|fork]
        [--requests 200] [--plans 600]
 """
 
