@@ -2,9 +2,10 @@
 
 Everything is read from the environment, with defaults for one VM next to the farm:
 
-* ``SPANWRIGHT_BIND`` (default ``127.0.0.1:8080``). There is no authentication yet, so a
-  non-loopback address is refused unless ``SPANWRIGHT_ALLOW_NON_LOOPBACK=1`` says the
-  network around the process is trusted (a container network, a Kubernetes Service).
+* ``SPANWRIGHT_BIND`` (default ``127.0.0.1:8080``). Without a keys file
+  (``SPANWRIGHT_KEYS_FILE``) the service has no authentication, so a non-loopback address
+  is then refused unless ``SPANWRIGHT_ALLOW_NON_LOOPBACK=1`` says the network around the
+  process is trusted (a container network, a Kubernetes Service).
 * ``SPANWRIGHT_WEB_WORKERS`` (default 2) processes of ``SPANWRIGHT_WEB_THREADS`` (default 8)
   threads. A request that asks ``Prefer: wait=N`` holds its thread for up to
   ``SPANWRIGHT_MAX_WAIT`` seconds, so threads, not CPU, bound concurrent waiting clients.
@@ -32,10 +33,15 @@ def _loopback(bind_addr: str) -> bool:
 
 
 bind = [os.environ.get("SPANWRIGHT_BIND", "127.0.0.1:8080")]
-if not all(_loopback(b) for b in bind) and os.environ.get("SPANWRIGHT_ALLOW_NON_LOOPBACK") != "1":
+if (
+    not all(_loopback(b) for b in bind)
+    and not os.environ.get("SPANWRIGHT_KEYS_FILE")
+    and os.environ.get("SPANWRIGHT_ALLOW_NON_LOOPBACK") != "1"
+):
     raise SystemExit(
-        f"spanwright: refusing to bind {bind[0]}: there is no authentication yet; bind a "
-        "loopback address, or set SPANWRIGHT_ALLOW_NON_LOOPBACK=1 on a trusted network"
+        f"spanwright: refusing to bind {bind[0]}: no keys file (SPANWRIGHT_KEYS_FILE), so no "
+        "authentication; bind a loopback address, set a keys file, or set "
+        "SPANWRIGHT_ALLOW_NON_LOOPBACK=1 on a trusted network"
     )
 
 wsgi_app = "service.wsgi:app"

@@ -86,8 +86,8 @@ def admit(tenant: str, kind: str, rid: str) -> None:
     conn = store.conn
     keys = [_active_key(s.key_prefix, tenant), _active_key(s.key_prefix, None)]
     member = f"{kind}:{rid}"
-    args = [member, repr(time.time()), s.max_queued_per_tenant, s.max_queued_total]
-    args.append(2 * s.retention)
+    args: list[str | int] = [member, repr(time.time()), s.max_queued_per_tenant]
+    args += [s.max_queued_total, 2 * s.retention]
     script = conn.register_script(_ADMIT)
     verdict = int(script(keys=keys, args=args))
     if verdict == 0:

@@ -88,7 +88,10 @@ class Unauthorized(SpanwrightError):
     """
 
     kind, status, title = "unauthorized", 401, "An API key is required"
-    headers = {"WWW-Authenticate": 'Bearer realm="spanwright"'}
+
+    def __init__(self, detail: str, issues: list[Issue] | None = None) -> None:
+        super().__init__(detail, issues)
+        self.headers = {"WWW-Authenticate": 'Bearer realm="spanwright"'}
 
 
 class TooManyRequests(SpanwrightError):

@@ -5,16 +5,25 @@ progress_interval=)``; everything it needs travels in its (JSON) arguments, so a
 process needs nothing but the Redis URL. ``job_timeout`` is the time budget plus a margin:
 the solver stops itself on its budget, the timeout only catches a hung or runaway job.
 ``Retry(max=1)`` re-runs a job once after a crash (a killed worker, an out-of-memory horse);
-the solver is deterministic, so a re-run gives the same plan.
+the solver is deterministic, so a re-run gives the same plan. :meth:`JobQueue.reap`
+(run by the API at most every 2 s) hands back jobs of killed workers within seconds
+instead of RQ's ~90 s entry expiry plus a worker's maintenance run.
 """
 
 from __future__ import annotations
 
 import math
+import os
+import socket
+import time
 
 import redis
 from rq import Callback, Queue, Retry, Worker
+from rq.job import Job
+from rq.registry import StartedJobRegistry
 from rq.serializers import JSONSerializer
+from rq.timeouts import TimerDeathPenalty
+from rq.utils import parse_composite_key
 
 from .settings import Settings
 
@@ -33,6 +42,8 @@ class JobQueue:
     def __init__(self, conn: redis.Redis, settings: Settings) -> None:
         self.settings = settings
         self.queue = Queue(settings.queue_name, connection=conn, serializer=JSONSerializer)
+        self._last_reap = float("-inf")
+        self._push_back = conn.register_script(_PUSH_BACK)
 
     def enqueue(self, kind: str, rid: str, time_budget: float) -> None:
         s = self.settings
@@ -60,3 +71,103 @@ class JobQueue:
 
     def depth(self) -> int:
         return int(self.queue.count)
+
+    def reap(self) -> int:
+        """Hand jobs of dead workers back to RQ now; returns how many were found.
+
+        RQ notices a killed worker only when its started-registry entry expires (about
+        ``min(job_timeout, 30) + 60`` s after the job started) *and* a worker then runs its
+        maintenance (an idle worker may sit in a blocking dequeue for minutes). Here a
+        worker on this host whose process is gone (``kill(pid, 0)`` fails) has its entries
+        expired at once; then ``StartedJobRegistry.cleanup()`` runs RQ's own abandoned-job
+        path (``Retry(max=1)`` re-queues it, else it fails via ``on_failure``). Workers on
+        other hosts are left to the entry's expiry, which this cleanup also serves, so a
+        dead worker's plan is never left ``solving`` for more than that expiry.
+        """
+        conn = self.queue.connection
+        # the failure callback runs under a death penalty: a timer, since API threads
+        # cannot install signal handlers (only the main thread can)
+        reg = StartedJobRegistry(queue=self.queue, death_penalty_class=TimerDeathPenalty)
+        here = socket.gethostname()
+        dead = 0
+        members: list[bytes] = list(conn.zrange(reg.key, 0, -1))  # type: ignore[arg-type]
+        for member in members:
+            job_id, _ = parse_composite_key(member.decode())
+            name = _text(conn.hget(Job.key_for(job_id), "worker_name"))
+            wkey = Worker.redis_worker_namespace_prefix + name
+            host, pid = (_text(v) for v in conn.hmget(wkey, ["hostname", "pid"]))
+            if host == here and pid.isdigit() and not _alive(int(pid)):
+                conn.zadd(reg.key, {member: 0}, xx=True)
+                dead += 1
+        reg.cleanup()
+        return dead + self._rescue_stranded()
+
+    def _rescue_stranded(self, after: float = 5.0) -> int:
+        """Put back on the queue the jobs stranded in RQ's intermediate list.
+
+        A worker moves a job from the queue into ``{queue}:intermediate`` (``BLMOVE``) and
+        then into the started registry. A worker that dies in between (killed, or its Redis
+        restarted under it) leaves the job there; RQ's own sweeper *fails* such a job after
+        a minute, and only when a worker runs maintenance. Here a job seen in the list, not
+        started, for more than ``after`` seconds on two looks is pushed back (at-least-once:
+        the solver is deterministic).
+        """
+        conn = self.queue.connection
+        ikey = self.queue.key + ":intermediate"
+        reg = StartedJobRegistry(queue=self.queue)
+        started = {parse_composite_key(_text(m))[0] for m in conn.zrange(reg.key, 0, -1)}
+        moved = 0
+        now = time.time()
+        for raw in conn.lrange(ikey, 0, -1):
+            job_id = _text(raw)
+            if job_id in started:
+                continue
+            seen = f"{self.settings.key_prefix}:stranded:{job_id}"
+            if conn.set(seen, repr(now), nx=True, ex=3600):
+                continue
+            if now - float(_text(conn.get(seen)) or now) < after:
+                continue
+            if _text(conn.hget(Job.key_for(job_id), "status")) == "queued":
+                moved += int(self._push_back(keys=[ikey, self.queue.key], args=[job_id]))
+            conn.delete(seen)
+        return moved
+
+    def reap_if_due(self, every: float = 2.0) -> None:
+        """:meth:`reap` at most every ``every`` seconds across all API processes."""
+        now = time.monotonic()
+        if now - self._last_reap < every:
+            return
+        self._last_reap = now
+        lock = f"{self.settings.key_prefix}:reaper"
+        if self.queue.connection.set(lock, b"1", nx=True, px=int(every * 1000)):
+            self.reap()
+
+
+# KEYS[1] intermediate list, KEYS[2] queue list; ARGV[1] job id: back to the front, atomically
+_PUSH_BACK = """
+if redis.call('LREM', KEYS[1], 1, ARGV[1]) == 1 then
+  redis.call('LPUSH', KEYS[2], ARGV[1])  -- at the front: it was next
+  return 1
+end
+return 0
+"""
+
+
+def _text(v: object) -> str:
+    return v.decode() if isinstance(v, bytes) else "" if v is None else str(v)
+
+
+def _alive(pid: int) -> bool:
+    """Whether process ``pid`` exists on this host and is not a zombie (killed, not reaped)."""
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # exists, another user's
+        return True
+    try:
+        with open(f"/proc/{pid}/stat", "rb") as f:
+            state = f.read().rsplit(b")", 1)[1].split()[0]
+    except (OSError, IndexError):
+        return True  # no /proc (not Linux): trust kill(pid, 0)
+    return state not in (b"Z", b"X")

@@ -45,9 +45,13 @@ class FiniteNumber(fields.Field):  # type: ignore[type-arg]
     def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> float:
         if isinstance(value, bool) or not isinstance(value, int | float):
             raise self.make_error("invalid")
-        if not math.isfinite(value):
+        try:
+            out = float(value)  # a huge int overflows here rather than becoming inf
+        except OverflowError:
+            raise self.make_error("finite") from None
+        if not math.isfinite(out):
             raise self.make_error("finite")
-        return float(value)
+        return out
 
 
 class WholeNumber(fields.Field):  # type: ignore[type-arg]

@@ -15,7 +15,11 @@ HELP = (
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--host", default="127.0.0.1", help="address to bind (loopback only for now)")
+    p.add_argument(
+        "--host",
+        default="127.0.0.1",
+        help="address to bind (default 127.0.0.1; another address needs SPANWRIGHT_KEYS_FILE)",
+    )
     p.add_argument("--port", type=int, default=8080, help="TCP port (default 8080)")
     p.add_argument(
         "--demo", action="store_true", help="plan the Lantern Hill demo batches at start"
@@ -32,21 +36,20 @@ def is_loopback(host: str) -> bool:
 
 
 def run(args: argparse.Namespace) -> int:
+    import redis
     from werkzeug.serving import run_simple
 
     from ..app import connect, create_app
     from ..settings import Settings
 
-    if not is_loopback(args.host):
+    settings = Settings.from_env(os.environ)
+    if not settings.keys_file and not is_loopback(args.host):
         print(
-            f"spanwright: refusing to bind {args.host}: there is no authentication yet, "
-            "so the service only listens on a loopback address",
+            f"spanwright: refusing to bind {args.host}: without SPANWRIGHT_KEYS_FILE the "
+            "service is keyless and only listens on a loopback address",
             file=sys.stderr,
         )
         return 2
-    import redis
-
-    settings = Settings.from_env(os.environ)
     worker = None
     conn: redis.Redis
     if settings.embedded:
@@ -60,9 +63,15 @@ def run(args: argparse.Namespace) -> int:
         where = f"Redis at {settings.redis_url}; run `spanwright worker` for the solving"
     app = create_app(settings, connection=conn)
     print(f"spanwright: {where}", file=sys.stderr)
-    print(
-        "spanwright: no keys file: accepting requests on the loopback address only", file=sys.stderr
-    )
+    if settings.keys_file:
+        n = len(app.extensions["spanwright.keys"] or ())
+        print(f"spanwright: {n} API key(s) from {settings.keys_file}", file=sys.stderr)
+    else:
+        print(
+            "spanwright: no keys file (SPANWRIGHT_KEYS_FILE): keyless, tenant "
+            f"{settings.default_tenant!r}, accepting requests from loopback callers only",
+            file=sys.stderr,
+        )
     if args.demo:
         from ..demo import submit_all
 

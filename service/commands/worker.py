@@ -30,12 +30,16 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    import contextlib
+
+    import redis
     from rq import Queue, SimpleWorker, Worker
     from rq.serializers import JSONSerializer
 
     from ..app import connect
     from ..embedded import warm_up
     from ..logs import configure_logging
+    from ..queue import JobQueue
     from ..settings import Settings
     from ..wsgi import sentinel_connection
 
@@ -48,8 +52,19 @@ def run(args: argparse.Namespace) -> int:
     warm_up()
     conn = sentinel if sentinel is not None else connect(settings)
     queue = Queue(settings.queue_name, connection=conn, serializer=JSONSerializer)
-    cls = SimpleWorker if args.worker_class == "simple" else Worker
-    worker = cls(
+    base = SimpleWorker if args.worker_class == "simple" else Worker
+    jobs = JobQueue(conn, settings)
+
+    class ReapingWorker(base):  # type: ignore[valid-type,misc]
+        """RQ's maintenance, plus handing back the plans of dead workers on this host, so
+        recovery does not wait for API traffic (see ``JobQueue.reap``)."""
+
+        def run_maintenance_tasks(self, *a: object, **kw: object) -> None:
+            super().run_maintenance_tasks(*a, **kw)
+            with contextlib.suppress(redis.RedisError):
+                jobs.reap()
+
+    worker = ReapingWorker(
         [queue],
         connection=conn,
         serializer=JSONSerializer,

@@ -19,6 +19,8 @@ from flask import Blueprint, Response, request
 
 from workers.planning.errors import Issue
 
+from .. import limits
+from ..auth import current
 from ..problems import (
     AlreadyFinished,
     BadRequest,
@@ -29,8 +31,6 @@ from ..problems import (
     UnsupportedMediaType,
     problem_dict,
 )
-from .. import limits
-from ..auth import current
 from ..settings import Settings
 from ..store import FINISHED, STATUSES, Record, new_id
 from . import may_read, services, tenant
@@ -54,6 +54,13 @@ def _reject_constant(name: str) -> float:
     raise ValueError(f"{name} is not a JSON number")
 
 
+def _parse_int(text: str) -> int | float:
+    """JSON integers longer than any count or time we accept read as floats (so ``1`` with
+    400 zeros is ``inf`` and meets the finiteness checks, instead of overflowing a float
+    conversion deep in validation); Python refuses to parse over 4300 digits anyway."""
+    return int(text) if len(text) <= 30 else float(text)
+
+
 def read_json_body() -> tuple[bytes, Any]:
     """The raw body and its JSON value; 415 for another media type, 400 for bad JSON."""
     mt = request.mimetype or ""
@@ -63,7 +70,7 @@ def read_json_body() -> tuple[bytes, Any]:
         )
     raw = request.get_data(cache=False)  # 413 beyond MAX_CONTENT_LENGTH
     try:
-        return raw, json.loads(raw, parse_constant=_reject_constant)
+        return raw, json.loads(raw, parse_constant=_reject_constant, parse_int=_parse_int)
     except (ValueError, RecursionError) as exc:
         raise BadRequest(f"the body is not valid JSON: {exc}", [Issue("", str(exc))]) from None
 

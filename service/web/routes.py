@@ -8,7 +8,7 @@ from typing import Any
 from flask import Blueprint, Response, render_template, request
 
 from ..problems import NotFound
-from ..routes import services, tenant
+from ..routes import may_read, services, tenant
 from ..routes.jobs import ID_RE, status_document
 from . import pages
 
@@ -28,7 +28,7 @@ def _record(kind: str, rid: str) -> tuple[dict[str, Any], bytes | None]:
         raise NotFound(f"no {kind} {rid!r}")
     store = services().store
     rec = store.get(kind, rid)
-    if rec is None or rec.tenant != tenant():
+    if rec is None or not may_read(rec.tenant):
         raise NotFound(f"no {kind} {rid!r} (it may have expired)")
     doc = json.loads(status_document(rec, f"/v1/{kind}s"))
     history = store.progress_history(kind, rid) if kind == "plan" else []

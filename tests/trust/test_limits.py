@@ -1,0 +1,124 @@
+"""Back-pressure on fakeredis: per-tenant request rate, per-tenant and global queue depth.
+
+Protocol references: RFC 6585 section 4 (429 Too Many Requests, "MAY include a
+Retry-After header") and RFC 9110 section 10.2.3 (Retry-After as delta-seconds). The
+invariant checked each time: a refused request stores and queues nothing, and nothing
+that was accepted before is removed or changed.
+"""
+
+from __future__ import annotations
+
+import os
+import threading
+from dataclasses import replace
+from typing import Any
+
+import pytest
+
+from service.app import create_app
+from service.settings import Settings
+from tests.trust.conftest import bearer, small_batch
+
+
+def assert_429(resp: Any, most: int) -> int:
+    assert resp.status_code == 429, resp.get_data(as_text=True)
+    assert resp.mimetype == "application/problem+json"
+    doc = resp.get_json()
+    assert doc["type"] == "/problems/too-many-requests" and doc["status"] == 429
+    retry = int(resp.headers["Retry-After"])  # delta-seconds (RFC 9110 10.2.3)
+    assert 1 <= retry <= most
+    return retry
+
+
+def ids(client: Any, tenant: str) -> list[str]:
+    doc = client.get("/v1/plans?limit=200", headers=bearer(tenant)).get_json()
+    return [it["id"] for it in doc["items"]]
+
+
+def test_tenant_depth_limit(keyed_app: Any, drain_queue: Any) -> None:
+    """The 6th queued plan of a tenant (limit 5) is refused with 429 and is not stored; the
+    5 accepted stay queued; another tenant is not affected; once the queue drains the
+    tenant may submit again."""
+    c = keyed_app.test_client()
+    for _ in range(5):
+        assert (
+            c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code
+            == 202
+        )
+    before = ids(c, "lanternhill")
+    r = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill"))
+    assert_429(r, 60)
+    assert ids(c, "lanternhill") == before
+    for rid in before:
+        assert c.get(f"/v1/plans/{rid}", headers=bearer("lanternhill")).json["status"] == "queued"
+    assert c.post("/v1/plans", json=small_batch(), headers=bearer("brightwater")).status_code == 202
+    drain_queue()
+    for rid in before:
+        assert c.get(f"/v1/plans/{rid}", headers=bearer("lanternhill")).json["status"] == "done"
+    assert c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code == 202
+
+
+def test_global_depth_limit(keyed_app: Any) -> None:
+    """With 8 records queued over all tenants (global limit 8) every tenant gets 429, and
+    the 8 stay queued."""
+    c = keyed_app.test_client()
+    for t in ("lanternhill",) * 5 + ("brightwater",) * 3:
+        assert c.post("/v1/plans", json=small_batch(), headers=bearer(t)).status_code == 202
+    r = c.post("/v1/plans", json=small_batch(), headers=bearer("brightwater"))
+    assert_429(r, 60)
+    assert "service" in r.get_json()["detail"]
+    assert len(ids(c, "lanternhill")) == 5 and len(ids(c, "brightwater")) == 3
+
+
+def test_cancelled_records_free_their_slot(keyed_app: Any) -> None:
+    """A cancelled queued plan no longer counts (it is finished), so a new one is admitted."""
+    c = keyed_app.test_client()
+    locs = [
+        c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).headers["Location"]
+        for _ in range(5)
+    ]
+    assert c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code == 429
+    assert c.delete(locs[0], headers=bearer("lanternhill")).status_code == 200
+    assert c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code == 202
+
+
+@pytest.mark.slow
+def test_concurrent_submits_do_not_overshoot(redis_server: str, trust_settings: Settings) -> None:
+    """20 concurrent submits of one tenant with limit 5, on a real redis-server (a Lua
+    script runs atomically there; fakeredis does not promise it across threads): exactly
+    5 accepted, 15 refused."""
+    prefix = f"lim{os.getpid()}"
+    s = replace(trust_settings, redis_url=redis_server, key_prefix=prefix, queue_name=prefix)
+    app = create_app(s)
+    codes: list[int] = []
+    lock = threading.Lock()
+    go = threading.Barrier(20)
+
+    def one() -> None:
+        c = app.test_client()
+        go.wait()
+        r = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill"))
+        with lock:
+            codes.append(r.status_code)
+
+    threads = [threading.Thread(target=one) for _ in range(20)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert sorted(codes) == [202] * 5 + [429] * 15
+
+
+def test_request_rate_limit(keyed_app: Any) -> None:
+    """40 requests per 60 s window: the 41st of a tenant is 429 with Retry-After at most the
+    window; another tenant still gets through; open paths are not counted."""
+    c = keyed_app.test_client()
+    seen = []
+    for _ in range(40):
+        seen.append(c.get("/v1/plans", headers=bearer("lanternhill")).status_code)
+        c.get("/healthz")
+    assert seen == [200] * 40
+    assert_429(c.get("/v1/plans", headers=bearer("lanternhill")), 60)
+    assert_429(c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")), 60)
+    assert c.get("/v1/plans", headers=bearer("brightwater")).status_code == 200
+    assert c.get("/healthz").status_code == 200
