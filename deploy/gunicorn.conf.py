@@ -14,22 +14,17 @@ Everything is read from the environment, with defaults for one VM next to the fa
   unit, the container command); ``child_exit`` below marks dead workers' metric files.
 """
 
-import ipaddress
 import os
 
 from prometheus_client import multiprocess
+
+from service.commands.serve import is_loopback
 
 
 def _loopback(bind_addr: str) -> bool:
     if bind_addr.startswith("unix:"):
         return True
-    host = bind_addr.rsplit(":", 1)[0].strip("[]")
-    if host == "localhost":
-        return True
-    try:
-        return ipaddress.ip_address(host).is_loopback
-    except ValueError:
-        return False
+    return is_loopback(bind_addr.rsplit(":", 1)[0].strip("[]"))
 
 
 bind = [os.environ.get("SPANWRIGHT_BIND", "127.0.0.1:8080")]
