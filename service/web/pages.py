@@ -59,7 +59,8 @@ def list_rows(items: list[dict[str, Any]]) -> list[dict[str, str]]:
     for it in items:
         r = it.get("result") or it.get("summary") or {}
         dl = r.get("deadline") or {}
-        met = "-" if not dl else ("met" if dl.get("met") else "missed")
+        flag = dl.get("met") if dl else r.get("deadline_met")
+        met = "-" if flag is None else ("met" if flag else "missed")
         rows.append(
             {
                 "id": it["id"],

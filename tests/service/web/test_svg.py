@@ -75,3 +75,15 @@ def test_plan_context_refreshes_while_working() -> None:
 def test_fmt_duration(s: float, text: str) -> None:
     """Durations read as hours, minutes and seconds (common practice)."""
     assert fmt_duration(s) == text
+
+
+def test_list_rows_show_the_deadline_verdict() -> None:
+    """List rows read the stored summary: met / missed / '-' when no deadline was given."""
+    from service.web.pages import list_rows
+
+    items = [
+        {"id": "a", "status": "done", "summary": {"makespan": 10, "deadline_met": True}},
+        {"id": "b", "status": "done", "summary": {"makespan": 10, "deadline_met": False}},
+        {"id": "c", "status": "queued"},
+    ]
+    assert [r["met"] for r in list_rows(items)] == ["met", "missed", "-"]
