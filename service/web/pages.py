@@ -110,6 +110,20 @@ def plan_context(plan: dict[str, Any], groups: dict[str, str]) -> dict[str, Any]
             ("a-priori guarantee", _ratio(result.get("worst_case_ratio"))),
             ("solve time", f"{result.get('solve_seconds', 0):.3f} s"),
         ]
+        conf = result.get("confidence")
+        if conf:
+            prob = conf.get("deadline_probability")
+            if prob is not None:
+                facts.append(("deadline met in", f"{100 * prob:.1f}% of {conf['samples']} runs"))
+            facts.append(
+                (
+                    "makespan p50 / p90 / p99",
+                    " / ".join(
+                        fmt_duration(conf[k])
+                        for k in ("makespan_p50", "makespan_p90", "makespan_p99")
+                    ),
+                )
+            )
         ctx["facts"] = facts
     return ctx
 

@@ -87,3 +87,15 @@ def test_list_rows_show_the_deadline_verdict() -> None:
         {"id": "c", "status": "queued"},
     ]
     assert [r["met"] for r in list_rows(items)] == ["met", "missed", "-"]
+
+
+def test_plan_page_states_the_deadline_confidence() -> None:
+    """With a confidence block the facts give P(meet deadline) and the quantiles."""
+    res = plan_dict()
+    res["confidence"] = {
+        "deadline_probability": 0.93, "samples": 1000,
+        "makespan_p50": 7000.0, "makespan_p90": 7400.0, "makespan_p99": 7900.0,
+    }  # fmt: skip
+    facts = dict(plan_context({"id": "x", "status": "done", "result": res}, {})["facts"])
+    assert facts["deadline met in"] == "93.0% of 1000 runs"
+    assert facts["makespan p50 / p90 / p99"] == "1h 56m 40s / 2h 03m 20s / 2h 11m 40s"
