@@ -18,7 +18,7 @@ import os
 
 from prometheus_client import multiprocess
 
-from service.commands.serve import is_loopback
+from service.auth import is_loopback
 
 
 def _loopback(bind_addr: str) -> bool:

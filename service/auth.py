@@ -118,8 +118,11 @@ class KeyRing:
 
 
 def is_loopback(addr: str | None) -> bool:
+    """Whether ``addr`` (an IP address, or the name ``localhost``) is a loopback address."""
     if not addr:
         return False
+    if addr == "localhost":
+        return True
     try:
         return ipaddress.ip_address(addr.split("%", 1)[0]).is_loopback
     except ValueError:

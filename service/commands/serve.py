@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import ipaddress
 import os
 import sys
 
@@ -26,20 +25,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
 
 
-def is_loopback(host: str) -> bool:
-    if host == "localhost":
-        return True
-    try:
-        return ipaddress.ip_address(host).is_loopback
-    except ValueError:
-        return False
-
-
 def run(args: argparse.Namespace) -> int:
     import redis
     from werkzeug.serving import run_simple
 
     from ..app import connect, create_app
+    from ..auth import is_loopback
     from ..settings import Settings
 
     settings = Settings.from_env(os.environ)

@@ -20,7 +20,7 @@ MAX_TIMELINE_JOBS = 20_000
 
 def _banner() -> str | None:
     settings = services().settings
-    return None if getattr(settings, "keys_file", None) else "keyless demo on a loopback address"
+    return None if settings.keys_file else "keyless demo on a loopback address"
 
 
 def _record(kind: str, rid: str) -> tuple[dict[str, Any], bytes | None]:

@@ -161,15 +161,14 @@ def lifted_bin_packing(
     Returns the bound and its evidence (the largest refuted capacity and the alpha).
     """
     bp = BinPackingBound(q_desc)
-    refuted, evidence = low - 1, {}
-    lo, hi = low - 1, high  # invariant: lo refuted (or trivially), hi not refuted
     # Probe the simple bound itself first: when it is not refuted (the common case on
     # batches with many jobs per node) one evaluation settles the search.
     bins, alpha, which = bp.bins_needed(low)
     if bins <= m:
         return low, {}
-    lo, refuted = low, low
-    evidence = {"refuted_capacity_ticks": low, "alpha": alpha, "rule": which}
+    # invariant: lo is refuted, hi is not
+    lo, hi, refuted = low, high, low
+    evidence: dict[str, Any] = {"refuted_capacity_ticks": low, "alpha": alpha, "rule": which}
     steps = 1
     per_step = float(q_desc.size) * (1 + MAX_CARD_ALPHAS)
     while hi - lo > 1 and steps * per_step < work_limit:
