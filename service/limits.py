@@ -61,19 +61,30 @@ def check_rate(tenant: str) -> None:
         )
 
 
+#: a member with no record yet is a submit between admission and its first store write;
+#: only after this many seconds is a missing record taken to have expired
+_UNWRITTEN_GRACE = 60.0
+
+
 def _prune(conn: object, prefix: str, key: str) -> None:
-    """Drop members whose record is finished or gone."""
-    members = conn.zrange(key, 0, -1)  # type: ignore[attr-defined]
+    """Drop members whose record is finished, or gone for longer than a fresh submit takes.
+
+    A member is added before its record is stored (admission comes first, so a refused
+    request stores nothing), so a missing record may only mean "not written yet": pruning
+    it would let concurrent submits overshoot the limit.
+    """
+    members = conn.zrange(key, 0, -1, withscores=True)  # type: ignore[attr-defined]
     if not members:
         return
     pipe = conn.pipeline(transaction=False)  # type: ignore[attr-defined]
-    for m in members:
+    for m, _ in members:
         kind, _, rid = m.decode().partition(":")
         pipe.hget(f"{prefix}:{kind}:{rid}", "status")
+    stale = time.time() - _UNWRITTEN_GRACE
     gone = [
         m
-        for m, st in zip(members, pipe.execute(), strict=True)
-        if st is None or st.decode() in FINISHED
+        for (m, score), st in zip(members, pipe.execute(), strict=True)
+        if (st is None and score < stale) or (st is not None and st.decode() in FINISHED)
     ]
     if gone:
         conn.zrem(key, *gone)  # type: ignore[attr-defined]

@@ -240,7 +240,10 @@ def make_blueprint(res: Resource) -> Blueprint:
         rec = store.get(res.kind, rid)
         if rec is None:  # pragma: no cover - expired within the request
             raise NotFound(f"{res.kind} {rid} vanished")
-        return _respond(rec, res, 201 if rec.status in FINISHED else 202, extra)
+        # 201 only answers a wait (the spec's promise); without one a plan that a fast
+        # worker finished before this line still answers 202, its body saying "done"
+        done_in_wait = bool(wait) and rec.status in FINISHED
+        return _respond(rec, res, 201 if done_in_wait else 202, extra)
 
     @bp.get(res.path + "/<rid>")
     def read(rid: str) -> Response:

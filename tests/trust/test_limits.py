@@ -82,6 +82,29 @@ def test_cancelled_records_free_their_slot(keyed_app: Any) -> None:
     assert c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code == 202
 
 
+def test_reserved_slot_without_record_is_not_pruned(keyed_app: Any) -> None:
+    """The race behind an overshoot, made deterministic: five submits hold their slots but
+    have not stored their records yet (admission comes before the first write). A sixth
+    submit finds the tenant full, prunes, and must still be refused: a missing record only
+    counts as expired once it is older than any submit takes. A slot whose record has been
+    missing for longer is freed."""
+    from service import limits
+
+    c = keyed_app.test_client()
+    with keyed_app.app_context():
+        for k in range(5):
+            limits.admit("lanternhill", "plan", f"{k:021x}")  # slots taken, no record yet
+    r = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill"))
+    assert_429(r, 60)
+    conn = keyed_app.extensions["spanwright"].store.conn
+    key = "swtrust:active:lanternhill"
+    old = limits.time.time() - 2 * limits._UNWRITTEN_GRACE
+    conn.zadd(key, {f"plan:{0:021x}": old})  # that submit died long ago, before storing
+    r = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill"))
+    assert r.status_code == 202, r.get_data(as_text=True)
+    assert conn.zcard(key) == 5
+
+
 @pytest.mark.slow
 def test_concurrent_submits_do_not_overshoot(redis_server: str, trust_settings: Settings) -> None:
     """20 concurrent submits of one tenant with limit 5, on a real redis-server (a Lua
