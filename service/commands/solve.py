@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import sys
 
 from workers.planning import Instance, solve
@@ -33,8 +34,14 @@ def run(args: argparse.Namespace) -> int:
             f"unknown method {method!r}", [Issue("/method", f"must be one of {METHODS}")]
         )
     budget = args.time_budget if args.time_budget is not None else body.get("time_budget", 5.0)
-    if not isinstance(budget, int | float) or isinstance(budget, bool) or not budget >= 0:
-        raise InvalidInstance("bad time budget", [Issue("/time_budget", "must be a number >= 0")])
+    if (
+        not isinstance(budget, int | float)
+        or isinstance(budget, bool)
+        or not 0 <= budget < math.inf  # NaN and inf fail too: a budget must end
+    ):
+        raise InvalidInstance(
+            "bad time budget", [Issue("/time_budget", "must be a finite number >= 0")]
+        )
     inst = Instance.from_request(body)
     result = solve(inst, method, time_budget=float(budget))
     if args.json:

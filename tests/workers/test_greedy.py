@@ -44,6 +44,20 @@ def test_graham_tight_family_optimum_by_milp(m: int) -> None:
 
 
 @pytest.mark.parametrize("m", range(2, 11))
+def test_graham_tight_family_optimum_by_witness(m: int) -> None:
+    """Graham 1969's family has OPT = 3m for every m, by the paper's own argument: the
+    three jobs of length m fill one node to 3m and each pair (k, 3m - k), k = m+1..2m-1,
+    fills one of the other m - 1 nodes, so OPT <= 3m; the total work is 3m * m, so the
+    mean load gives OPT >= 3m. Here the witness is built and checked job by job."""
+    jobs = graham_lpt_family(m)
+    witness = [[m, m, m]] + [[k, 3 * m - k] for k in range(m + 1, 2 * m)]
+    assert len(witness) == m
+    assert sorted(d for node in witness for d in node) == sorted(jobs)
+    assert all(sum(node) == 3 * m for node in witness)
+    assert sum(jobs) == 3 * m * m
+
+
+@pytest.mark.parametrize("m", range(2, 11))
 def test_list_scheduling_meets_graham_1966_family(m: int) -> None:
     """Graham (1966), Bell Syst. Tech. J. 45: m(m-1) unit jobs then one of length m give
     list = 2m - 1 while OPT = m, the ratio 2 - 1/m."""

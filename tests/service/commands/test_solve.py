@@ -57,3 +57,14 @@ def test_console_script_runs() -> None:
     )
     assert proc.returncode == 0, proc.stderr
     assert "makespan" in proc.stdout
+
+
+@pytest.mark.parametrize("budget", ["inf", "nan", "-1"])
+def test_time_budget_must_be_finite(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], budget: str
+) -> None:
+    """A budget that could never end (inf), is not a number (nan) or is negative: exit 2
+    naming /time_budget, before any search starts (the exact search stops on its own clock)."""
+    path = write(tmp_path, {"jobs": [{"id": "a", "duration": 60}], "node_count": 1})
+    assert main(["solve", path, "--method", "exact", "--time-budget", budget]) == 2
+    assert "/time_budget" in capsys.readouterr().err
