@@ -6,27 +6,71 @@ any plan for the same estimates, and what that means for the deadline.
 
 from __future__ import annotations
 
+import math
+import re
 from typing import Any
 
-from .svg import fmt_duration, line_chart, timeline
+from .svg import fmt_duration, fmt_tick, line_chart, timeline
 
 #: seconds between self-refreshes of a page whose plan is still being worked on
 REFRESH_SECONDS = 2
 
+#: what proved a plan's lower bound, to read after "proven by"
 BOUND_WORDS = {
-    "mean_load": "total work spread evenly over the nodes",
-    "longest_job": "the longest job",
-    "pigeonhole": "two of the m+1 longest jobs sharing a node",
-    "pigeonhole_k": "k+1 of the km+1 longest jobs sharing a node",
+    "mean_load": "spreading the total work evenly over the nodes",
+    "longest_job": "the longest job, which has to run somewhere",
+    "pigeonhole": "two of the m+1 longest jobs having to share a node",
+    "pigeonhole_k": "k+1 of the km+1 longest jobs having to share a node",
     "bin_packing": "a bin-packing argument (Martello-Toth)",
     "search": "an exhaustive search that ruled out every shorter plan",
+    "busy_nodes": "the nodes still busy with earlier work",
+    "k_longest": "the longest jobs having to fit on the fastest nodes",
+    "eligibility_group": "the jobs that only some of the nodes can run",
 }
+
+#: what proved a sizing's node lower bound, to read after "proven by"
+SIZING_BOUND_WORDS = {
+    "total_work": "the total work divided by the deadline",
+    "L2": "a bin-packing argument (Martello-Toth L2)",
+    "cardinality": "counting how many jobs can share a node before the deadline",
+    "search": "an exhaustive search that ruled out every smaller farm",
+}
+
+
+def fmt_percent(fraction: float) -> str:
+    """0.0307 -> '3.07%'; a small non-zero gap keeps two significant digits ('0.000087%')
+    rather than reading as 0.00%."""
+    pct = 100 * float(fraction)
+    if not pct > 0 or pct >= 0.01:
+        return f"{pct:.2f}%"
+    return f"{pct:.{min(1 - math.floor(math.log10(pct)), 12)}f}%"
+
+
+def fmt_difference(seconds: float) -> str:
+    """A difference of times: as :func:`fmt_duration`, below 10 ms in milliseconds."""
+    if 0 < seconds < 0.01:
+        return f"{1000 * seconds:.2g} ms"
+    return fmt_duration(seconds)
+
+
+def bound_words(result: dict[str, Any]) -> str:
+    """What proved the plan's lower bound, in words, with the batch's own numbers."""
+    source = str(result.get("bound_source") or "")
+    evidence = (result.get("certificate") or {}).get(source) or {}
+    m = result.get("nodes")
+    if source == "pigeonhole" and isinstance(m, int) and "k" not in evidence:
+        return f"two of the {m + 1} longest jobs having to share one of the {m} nodes"
+    if source in ("pigeonhole", "pigeonhole_k") and "k" in evidence:
+        k, considered = int(evidence["k"]), evidence.get("jobs_considered")
+        if considered:
+            return f"{k + 1} of the {considered} longest jobs having to share a node"
+    return BOUND_WORDS.get(source, source.replace("_", " ") or "a bound")
 
 
 def certificate_sentence(result: dict[str, Any]) -> str:
     """One sentence: how long the plan is and how far it may be from the best possible."""
     ms, lb = float(result["makespan"]), float(result["lower_bound"])
-    why = BOUND_WORDS.get(result.get("bound_source", ""), result.get("bound_source", "a bound"))
+    why = bound_words(result)
     if result.get("proven_optimal"):
         text = (
             f"This plan finishes in {fmt_duration(ms)}, and no plan for these estimates can "
@@ -36,7 +80,8 @@ def certificate_sentence(result: dict[str, Any]) -> str:
         text = (
             f"This plan finishes in {fmt_duration(ms)}; no plan for these estimates can finish "
             f"before {fmt_duration(lb)} (proven by {why}), so it is at most "
-            f"{100 * float(result['gap']):.2f}% longer than the best possible."
+            f"{fmt_difference(ms - lb)} ({fmt_percent(result['gap'])}) longer than the best "
+            "possible."
         )
     dl = result.get("deadline")
     if dl:
@@ -53,6 +98,26 @@ def certificate_sentence(result: dict[str, Any]) -> str:
     return text
 
 
+def progress_sentence(progress: dict[str, Any]) -> str:
+    """Where a running search stands: time used of the budget, best plan, proven floor."""
+    elapsed = float(progress.get("elapsed") or 0.0)
+    budget = progress.get("time_budget")
+    ms, lb = progress.get("best_makespan"), progress.get("best_lower_bound")
+    text = f"After {elapsed:.1f} s"
+    text += f" of a {float(budget):g} s budget" if budget else " of search"
+    if ms is None:
+        return text + ", no plan has been found yet."
+    text += f", the best plan found finishes in {fmt_duration(float(ms))}"
+    if lb is None:
+        return text + "."
+    ms, lb = float(ms), float(lb)
+    text += f"; no plan can finish before {fmt_duration(lb)}, so it is at most "
+    text += fmt_difference(ms - lb)
+    if lb > 0:
+        text += f" ({fmt_percent((ms - lb) / lb)})"
+    return text + " longer than the best possible."
+
+
 def list_rows(items: list[dict[str, Any]]) -> list[dict[str, str]]:
     """Rows of the plan list page."""
     rows = []
@@ -65,14 +130,17 @@ def list_rows(items: list[dict[str, Any]]) -> list[dict[str, str]]:
             {
                 "id": it["id"],
                 "href": f"/plans/{it['id']}",
+                "name": it.get("name") or "",
+                "method": it.get("method") or "",
                 "status": it.get("status", "?"),
                 "size": f"{r.get('jobs', '-')} / {r.get('nodes', '-')}",
                 "makespan": fmt_duration(r["makespan"]) if "makespan" in r else "-",
                 "lower_bound": fmt_duration(r["lower_bound"]) if "lower_bound" in r else "-",
-                "gap": f"{100 * r['gap']:.2f}%" if "gap" in r else "-",
+                "gap": fmt_percent(r["gap"]) if "gap" in r else "-",
                 "met": met,
                 "met_class": {"met": "met-yes", "missed": "met-no"}.get(met, ""),
                 "submitted_at": it.get("submitted_at", ""),
+                "submitted": _when(it.get("submitted_at") or ""),
             }
         )
     return rows
@@ -87,17 +155,39 @@ def plan_context(plan: dict[str, Any], groups: dict[str, str]) -> dict[str, Any]
         "plan": plan,
         "refresh": REFRESH_SECONDS if working else None,
     }
+    progress = plan.get("progress") or {}
     history = plan.get("progress_history") or []
     if history:
+        budget = progress.get("time_budget") or max(h.get("time_budget") or 0 for h in history)
+        last = max(float(h["elapsed"]) for h in history)
         ctx["progress_chart"] = line_chart(
             {
-                "best makespan": [(h["elapsed"], h["best_makespan"]) for h in history],
-                "lower bound": [(h["elapsed"], h["best_lower_bound"]) for h in history],
+                "best makespan": [
+                    (h["elapsed"], h["best_makespan"])
+                    for h in history
+                    if h.get("best_makespan") is not None
+                ],
+                "lower bound": [
+                    (h["elapsed"], h["best_lower_bound"])
+                    for h in history
+                    if h.get("best_lower_bound") is not None
+                ],
             },
-            x_label="seconds of search",
+            x_label="time spent searching",
             y_label="makespan",
-            x_is_time=False,
+            x_range=(0.0, max(float(budget or 0), last)),
+            x_kind="time",
+            y_kind="time",
+            steps=True,
+            width=720,
+            css_class="chart progress",
         )
+    if working:
+        latest = progress if progress.get("best_makespan") is not None else None
+        if latest is None and history:
+            latest = history[-1]
+        if latest is not None or plan.get("status") == "solving":
+            ctx["progress_sentence"] = progress_sentence(latest or progress)
     if result:
         ctx["sentence"] = certificate_sentence(result)
         ctx["timeline"] = timeline(result, groups)
@@ -106,7 +196,7 @@ def plan_context(plan: dict[str, Any], groups: dict[str, str]) -> dict[str, Any]
             ("stopped because", result.get("stop_reason", "")),
             ("makespan", fmt_duration(result["makespan"])),
             ("lower bound", f"{fmt_duration(result['lower_bound'])} ({result['bound_source']})"),
-            ("gap", f"{100 * result['gap']:.3f}%"),
+            ("gap", fmt_percent(result["gap"])),
             ("a-priori guarantee", _ratio(result.get("worst_case_ratio"))),
             ("solve time", f"{result.get('solve_seconds', 0):.3f} s"),
         ]
@@ -129,7 +219,12 @@ def plan_context(plan: dict[str, Any], groups: dict[str, str]) -> dict[str, Any]
 
 
 def sizing_context(sizing: dict[str, Any]) -> dict[str, Any]:
-    """Template values for one sizing's page (``sizing`` is the API's status body)."""
+    """Template values for one sizing's page (``sizing`` is the API's status body).
+
+    Two charts over the node counts of the curve: makespan (plan found and lower bound,
+    with the deadline) and, when the request gave a node-hour price, the estimated cost.
+    Both mark the answer (``nodes_needed``) with a labelled line; the table marks its row.
+    """
     result = sizing.get("result")
     working = sizing.get("status") in ("queued", "solving")
     ctx: dict[str, Any] = {
@@ -137,44 +232,98 @@ def sizing_context(sizing: dict[str, Any]) -> dict[str, Any]:
         "sizing": sizing,
         "refresh": REFRESH_SECONDS if working else None,
     }
-    if result:
-        curve = result.get("curve") or []
-        deadline = float(result.get("deadline", 0) or 0)
-        ctx["curve_chart"] = line_chart(
-            {
-                "best makespan": [(c["nodes"], c["makespan"]) for c in curve if c.get("makespan")],
-                "lower bound": [(c["nodes"], c["lower_bound"]) for c in curve],
-            },
-            x_label="nodes",
-            y_label="makespan",
-            marks={"deadline": deadline} if deadline else None,
-            x_is_time=False,
+    progress = sizing.get("progress") or {}
+    if working and progress.get("nodes_needed") is not None:
+        text = (
+            f"After {float(progress.get('elapsed') or 0):.1f} s, {progress['nodes_needed']} "
+            "nodes meet the deadline so far"
         )
-        ctx["rows"] = [
+        low = progress.get("nodes_lower_bound")
+        if low is not None:
+            text += f", and no plan with fewer than {low} nodes can"
+        ctx["progress_sentence"] = text + "."
+    if not result:
+        return ctx
+    curve = result.get("curve") or []
+    deadline = float(result.get("deadline", 0) or 0)
+    need, low = result.get("nodes_needed"), result.get("nodes_lower_bound")
+    answer = {f"answer: {need} nodes": float(need)} if need is not None else None
+    ctx["curve_chart"] = line_chart(
+        {
+            "plan makespan": [(c["nodes"], c["makespan"]) for c in curve if c.get("makespan")],
+            "lower bound": [(c["nodes"], c["lower_bound"]) for c in curve],
+        },
+        x_label="nodes",
+        y_label="makespan",
+        marks={f"deadline {fmt_tick(deadline)}": deadline} if deadline else None,
+        x_marks=answer,
+        x_kind="integer",
+        y_kind="time",
+        width=480,
+        right=108,
+        css_class="chart curve",
+    )
+    costs = [(c["nodes"], c["cost"]) for c in curve if c.get("cost") is not None]
+    if costs:
+        ctx["cost_chart"] = line_chart(
+            {"estimated cost": costs},
+            x_label="nodes",
+            y_label="cost",
+            x_marks=answer,
+            x_kind="integer",
+            y_kind="number",
+            width=480,
+            right=108,
+            y_from_zero=True,
+            css_class="chart cost",
+        )
+        ctx["cost_note"] = (
+            f"Estimated cost at {float(result.get('node_hour_cost') or 0):,.2f} per node-hour, "
+            f"billed per {result.get('billing', 'second')}: {result.get('cost_model', '')}."
+        )
+    rows = []
+    for c in curve:
+        meets = bool(c.get("meets_deadline", c.get("makespan", math.inf) <= deadline))
+        if meets:
+            met, met_class = "yes", "met-yes"
+        elif c.get("provably_misses"):
+            met, met_class = "no (none can)", "met-no"
+        else:
+            met, met_class = "no", "met-no"
+        rows.append(
             {
                 "nodes": c["nodes"],
+                "answer": c["nodes"] == need,
                 "makespan": fmt_duration(c["makespan"]) if c.get("makespan") else "-",
                 "lower_bound": fmt_duration(c["lower_bound"]),
-                "met": "yes" if c.get("makespan") and c["makespan"] <= deadline else "no",
-                "met_class": "met-yes"
-                if c.get("makespan") and c["makespan"] <= deadline
-                else "met-no",
-                "cost": f"{c['cost']:.2f}" if c.get("cost") is not None else "-",
+                "met": met,
+                "met_class": met_class,
+                "cost": f"{c['cost']:,.2f}" if c.get("cost") is not None else "-",
             }
-            for c in curve
-        ]
-        need, low = result.get("nodes_needed"), result.get("nodes_lower_bound")
-        if need is not None:
-            source = result.get("bound_source", "a bound")
-            proof = (
-                f"no plan with fewer can meet it (proven by {source})"
-                if result.get("proven_optimal")
-                else f"no plan with fewer than {low} nodes can meet it"
-            )
-            ctx["sentence"] = (
-                f"{need} nodes meet the deadline of {fmt_duration(deadline)}; {proof}."
-            )
+        )
+    ctx["rows"] = rows
+    if need is not None:
+        text = f"{need} nodes meet the deadline of {fmt_duration(deadline)}"
+        if result.get("makespan") is not None:
+            text += f": their plan finishes in {fmt_duration(float(result['makespan']))}"
+        if result.get("estimated_cost") is not None:
+            text += f", at an estimated cost of {float(result['estimated_cost']):,.2f}"
+        source = str(result.get("bound_source") or "")
+        why = SIZING_BOUND_WORDS.get(source, source.replace("_", " ") or "a bound")
+        if result.get("proven_optimal"):
+            text += f". No plan with fewer nodes can meet it (proven by {why})."
+        else:
+            maybe = f"{low} nodes" if low == need - 1 else f"{low} to {need - 1} nodes"
+            text += f". No plan with fewer than {low} nodes can meet it (proven by {why}); "
+            text += f"{maybe} might."
+        ctx["sentence"] = text
     return ctx
+
+
+def _when(iso: str) -> str:
+    """'2026-12-02T03:07:37.421Z' -> '2026-12-02 03:07 UTC' (the ISO text if it is not one)."""
+    m = re.fullmatch(r"(\d{4}-\d\d-\d\d)T(\d\d:\d\d)(:\d\d(\.\d+)?)?Z", iso)
+    return f"{m.group(1)} {m.group(2)} UTC" if m else iso
 
 
 def _ratio(x: Any) -> str:

@@ -2,22 +2,48 @@
 
 Pure functions from the API's JSON (the same dicts ``GET /v1/plans/{id}`` returns) to SVG
 text, so the pages, the tests and anyone else can render a plan without a browser. Every
-mark that carries meaning by colour also carries it in text (labels, legend, titles).
+mark that carries meaning by colour also carries it in text (labels, legend, titles) and,
+for job groups and chart series, in a second visual cue (a texture, a dash, a hollow mark).
+
+Each chart states its own axis on its ``<svg>`` element (``data-left``, ``data-top``,
+``data-plot-width``, ``data-plot-height`` and the value range ``data-x0`` .. ``data-x1``,
+``data-y0`` .. ``data-y1``; the timeline ``data-span``), so a reader can map values to
+positions without repeating the layout.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from html import escape
-from typing import Any
+from itertools import pairwise
+from typing import Any, Literal
 
-#: our own palette: eight hues distinguishable in print and for most colour vision
+#: our own palette: eight hues distinguishable in print and for most colour vision, each
+#: dark or light enough that white or dark text on it reads at WCAG AA contrast (4.5:1)
 PALETTE = (
-    "#3b6fb6", "#e0892f", "#3f9a6b", "#c44f6a", "#7a5fb0", "#9c7a3c", "#2f9fae", "#8a8f99",
+    "#3b6fb6", "#e0892f", "#489f72", "#ba4b65", "#7a5fb0", "#8c6e36", "#2f9fae", "#8a8f99",
 )  # fmt: skip
+INK = "#1d2430"
 UNGROUPED = "(no group)"
 MAX_ROWS = 400
+#: a chart draws a mark at every point up to this many points per series
+MAX_MARKED_POINTS = 60
+#: textures laid over the group colours (8 x 8 tiles, white strokes): a second cue to colour
+TEXTURES = (
+    "",
+    '<path d="M-2,2 l4,-4 M0,8 l8,-8 M6,10 l4,-4" />',  # rising diagonals
+    '<circle cx="4" cy="4" r="1.3" />',  # dots
+    '<path d="M0,4 h8" />',  # horizontal stripes
+    '<path d="M-2,6 l4,4 M0,0 l8,8 M6,-2 l4,4" />',  # falling diagonals
+    '<path d="M4,0 v8" />',  # vertical stripes
+    '<path d="M0,4 h8 M4,0 v8" />',  # cross-hatch
+    '<path d="M0,0 l8,8 M8,0 l-8,8" />',  # diagonal cross
+)
+#: rough width of one character of the 10-11 px chart font, for fitting labels
+CHAR_W = 6.2
+
+AxisKind = Literal["time", "integer", "number"]
 
 
 def fmt_duration(seconds: float) -> str:
@@ -44,14 +70,28 @@ def fmt_tick(seconds: float) -> str:
     return f"{sec}s" if sec else "0"
 
 
+#: round steps of a time axis, in seconds
+TIME_STEPS = (1, 2, 5, 10, 15, 30, 60, 120, 300, 600, 900, 1800, 3600, 7200, 10800, 21600)
+
+
 def nice_ticks(hi: float, count: int = 8) -> list[float]:
     """Round tick positions from 0 to about ``hi`` (seconds, in 1-2-5 steps of time units)."""
     if hi <= 0:
         return [0.0]
-    steps = [1, 2, 5, 10, 15, 30, 60, 120, 300, 600, 900, 1800, 3600, 7200, 10800, 21600]
     raw = hi / count
-    step = next((s for s in steps if s >= raw), 3600 * math.ceil(raw / 3600))
+    step = next((s for s in TIME_STEPS if s >= raw), 3600 * math.ceil(raw / 3600))
     return [i * step for i in range(int(hi // step) + 1)]
+
+
+def nice_step(raw: float, kind: AxisKind = "number") -> float:
+    """The smallest round step >= ``raw``: time units on a time axis, else 1-2-2.5-5 x 10^k."""
+    if raw <= 0 or not math.isfinite(raw):
+        return 1.0
+    if kind == "time" and raw >= 1:
+        return float(next((s for s in TIME_STEPS if s >= raw), 3600 * math.ceil(raw / 3600)))
+    exp = 10.0 ** math.floor(math.log10(raw))
+    step = next(m * exp for m in (1, 2, 2.5, 5, 10) if m * exp >= raw * (1 - 1e-9))
+    return max(step, 1.0) if kind == "integer" else step
 
 
 def group_colours(groups: Iterable[str]) -> dict[str, str]:
@@ -63,6 +103,33 @@ def group_colours(groups: Iterable[str]) -> dict[str, str]:
     return out
 
 
+def _luminance(colour: str) -> float:
+    """WCAG relative luminance of ``#rrggbb``."""
+    chans = [int(colour[i : i + 2], 16) / 255 for i in (1, 3, 5)]
+    lin = [c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4 for c in chans]
+    return 0.2126 * lin[0] + 0.7152 * lin[1] + 0.0722 * lin[2]
+
+
+def contrast(a: str, b: str) -> float:
+    """WCAG contrast ratio of two ``#rrggbb`` colours (1 to 21)."""
+    la, lb = sorted((_luminance(a), _luminance(b)), reverse=True)
+    return (la + 0.05) / (lb + 0.05)
+
+
+def label_ink(fill: str) -> str:
+    """White or dark text on ``fill``: whichever reads with more contrast."""
+    return "#ffffff" if contrast("#ffffff", fill) >= contrast(INK, fill) else INK
+
+
+def _group_pattern(pid: str, colour: str, texture: str) -> str:
+    return (
+        f'<pattern id="{pid}" width="8" height="8" patternUnits="userSpaceOnUse">'
+        f'<rect width="8" height="8" fill="{colour}" />'
+        f'<g fill="#ffffff" fill-opacity=".45" stroke="#ffffff" stroke-opacity=".45" '
+        f'stroke-width="1.2">{texture}</g></pattern>'
+    )
+
+
 def timeline(
     result: dict[str, Any],
     groups: dict[str, str] | None = None,
@@ -71,8 +138,10 @@ def timeline(
 ) -> str:
     """The plan as a timeline: one row per node, one bar per job (its id on hover).
 
-    ``groups`` maps job id -> group name for colours and the legend. A solid line marks
-    the deadline, a dashed line the proven lower bound.
+    ``groups`` maps job id -> group name. Each group has a colour and a texture, both shown
+    in the legend; a bar wide enough carries its job id, else its group name, as text. A
+    solid line marks the deadline, a dashed line the proven lower bound, each labelled on
+    its own line under the chart.
     """
     groups = groups or {}
     assignment: Sequence[dict[str, Any]] = result.get("assignment") or []
@@ -83,9 +152,18 @@ def timeline(
     span = max(makespan, float(dl or 0.0), 1e-9) * 1.04
     left, top, right = 150, 34, 40
     plot_w = width - left - right
-    colours = group_colours(groups.get(j["id"], UNGROUPED) for a in shown for j in a["jobs"])
-    legend_h = 22 * math.ceil(len(colours) / 4) if colours else 0
-    height = top + row_height * len(shown) + 56 + legend_h
+    names = sorted({groups.get(j["id"], UNGROUPED) for a in shown for j in a["jobs"]})
+    colours = group_colours(names)
+    index = {g: i for i, g in enumerate(names)}
+    bottom = top + row_height * len(shown)
+    marks = [
+        (name, float(at))
+        for name, at in (("lower bound", lower), ("deadline", dl))
+        if at is not None
+    ]
+    legend_top = bottom + 16 * len(marks) + 34
+    legend_rows = math.ceil(len(colours) / 4)
+    height = legend_top + 22 * legend_rows + 6
 
     def x(t: float) -> float:
         return left + plot_w * t / span
@@ -95,11 +173,21 @@ def timeline(
         f'width="{width}" height="{height}" viewBox="0 0 {width} {height}" '
         f'data-span="{span:.6g}" data-left="{left}" data-plot-width="{plot_w}">',
         f"<title>Plan timeline: {len(assignment)} nodes, makespan {fmt_duration(makespan)}</title>",
+        "<defs>",
+        *(
+            _group_pattern(
+                f"sw-group-{i}", colours[g], TEXTURES[(i + i // len(PALETTE)) % len(TEXTURES)]
+            )
+            for g, i in index.items()
+        ),
+        "</defs>",
+        f'<text class="tick-label" x="{left - 8}" y="{top - 8}" text-anchor="end">'
+        "time from start</text>",
     ]
     for t in nice_ticks(span):
         parts.append(
             f'<line class="tick" x1="{x(t):.1f}" x2="{x(t):.1f}" y1="{top - 4}" '
-            f'y2="{top + row_height * len(shown)}" />'
+            f'y2="{bottom}" />'
             f'<text class="tick-label" x="{x(t):.1f}" y="{top - 8}" text-anchor="middle">'
             f"{fmt_tick(t)}</text>"
         )
@@ -118,43 +206,114 @@ def timeline(
             parts.append(
                 f'<rect class="job" data-job="{label}" data-group="{escape(g)}" '
                 f'x="{x0:.2f}" y="{y + 2}" width="{w:.2f}" height="{row_height - 4}" '
-                f'fill="{colours[g]}"><title>{label} ({escape(g)}): '
+                f'fill="url(#sw-group-{index[g]})"><title>{label} ({escape(g)}): '
                 f"{fmt_duration(j['start'])} to {fmt_duration(j['end'])}</title></rect>"
             )
-            if w > 7.5 * len(j["id"]) + 6:
+            text = next((t for t in (j["id"], g) if w > CHAR_W * len(t) + 6), None)
+            if text is not None and text != UNGROUPED:
                 parts.append(
-                    f'<text class="job-label" x="{x0 + 3:.1f}" y="{y + row_height * 0.7:.1f}">'
-                    f"{label}</text>"
+                    f'<text class="job-label" x="{x0 + 3:.1f}" y="{y + row_height * 0.7:.1f}" '
+                    f'style="fill:{label_ink(colours[g])};stroke:{colours[g]}">{escape(text)}</text>'
                 )
         parts.append("</g>")
-    bottom = top + row_height * len(shown)
-    if lower is not None:
+    for k, (name, at) in enumerate(marks):
+        cls = "lower-bound" if name == "lower bound" else "deadline"
+        label_y = bottom + 16 + 16 * k
+        # each label on its own line, on the side of its line where it has room
+        right_half = x(at) > left + 0.6 * plot_w
+        lx = x(at) - 5 if right_half else x(at) + 5
+        anchor = "end" if right_half else "start"
         parts.append(
-            f'<line class="lower-bound" data-at="{float(lower):.6g}" x1="{x(lower):.2f}" '
-            f'x2="{x(lower):.2f}" y1="{top - 4}" y2="{bottom + 4}" />'
-            f'<text class="mark-label" x="{x(lower) - 4:.1f}" y="{bottom + 18}" '
-            f'text-anchor="end">lower bound {fmt_duration(lower)}</text>'
+            f'<line class="{cls}" data-at="{at:.6g}" x1="{x(at):.2f}" '
+            f'x2="{x(at):.2f}" y1="{top - 4}" y2="{label_y + 4}" />'
+            f'<text class="mark-label" x="{lx:.1f}" y="{label_y}" '
+            f'text-anchor="{anchor}">{name} {fmt_duration(at)}</text>'
         )
-    if dl is not None:
-        # near the right edge the label goes left of the line
-        anchor = ' text-anchor="end"' if x(dl) > left + 0.75 * plot_w else ""
-        if anchor and lower is not None and x(lower) > left + 0.5 * plot_w:
-            anchor = ' text-anchor="end" dy="14"'
+    if colours:
         parts.append(
-            f'<line class="deadline" data-at="{float(dl):.6g}" x1="{x(dl):.2f}" '
-            f'x2="{x(dl):.2f}" y1="{top - 4}" y2="{bottom + 4}" />'
-            f'<text class="mark-label" x="{x(dl) + (-4 if anchor else 4):.1f}" y="{bottom + 18}"'
-            f"{anchor}>deadline {fmt_duration(dl)}</text>"
+            f'<text class="legend-title" x="{left - 8}" y="{legend_top}" text-anchor="end">'
+            "job group</text>"
         )
-    for i, (g, c) in enumerate(colours.items()):
+    for i, g in enumerate(colours):
         lx = left + (i % 4) * (plot_w / 4)
-        ly = bottom + 50 + 22 * (i // 4)
+        ly = legend_top + 22 * (i // 4)
         parts.append(
-            f'<g class="legend-item"><rect x="{lx:.1f}" y="{ly - 11}" width="14" height="14" '
-            f'fill="{c}" /><text x="{lx + 20:.1f}" y="{ly}">{escape(g)}</text></g>'
+            f'<g class="legend-item" data-group="{escape(g)}"><rect x="{lx:.1f}" y="{ly - 12}" '
+            f'width="22" height="15" fill="url(#sw-group-{i})" />'
+            f'<text x="{lx + 28:.1f}" y="{ly}">{escape(g)}</text></g>'
         )
     parts.append("</svg>")
     return "".join(parts)
+
+
+def _axis(
+    lo: float, hi: float, kind: AxisKind, count: int, pad: bool
+) -> tuple[float, float, float]:
+    """(low end, high end, tick step) of an axis showing ``lo`` .. ``hi``."""
+    if kind == "integer":
+        step = nice_step((hi - lo) / count, kind)
+        return lo - 0.5, hi + 0.5, step
+    if hi - lo <= 0:
+        spread = abs(hi) * 0.05 or 1.0
+        lo, hi = lo - spread, hi + spread
+    if pad:
+        extra = 0.04 * (hi - lo)
+        lo, hi = lo - extra, hi + extra
+    step = nice_step((hi - lo) / count, kind)
+    lo = math.floor(lo / step + 1e-9) * step
+    hi = math.ceil(hi / step - 1e-9) * step
+    return lo, hi, step
+
+
+def _multiples(lo: float, hi: float, step: float) -> list[float]:
+    """The multiples of ``step`` from ``lo`` to ``hi`` (both ends included, with round-off)."""
+    out, k = [], math.ceil(lo / step - 1e-9)
+    while k * step <= hi + 1e-9 * max(1.0, abs(hi)):
+        out.append(k * step)
+        k += 1
+    return out
+
+
+def _decimals(step: float) -> int:
+    """Decimal places that show every multiple of ``step`` exactly (at most 6)."""
+    d = 0
+    while d < 6 and abs(step * 10**d - round(step * 10**d)) > 1e-6:
+        d += 1
+    return d
+
+
+def fmt_fine_tick(seconds: float, decimals: int) -> str:
+    """Axis labels finer than a second: 3725.25 -> '1h02m05.25s', 5.5 -> '5.5s'."""
+    rounded = round(seconds, decimals)
+    whole = math.floor(rounded)
+    frac = f"{rounded - whole:.{decimals}f}"[1:] if decimals else ""
+    h, rem = divmod(whole, 3600)
+    m, sec = divmod(rem, 60)
+    if h:
+        return f"{h}h{m:02d}m{sec:02d}{frac}s"
+    if m:
+        return f"{m}m{sec:02d}{frac}s"
+    return f"{sec}{frac}s"
+
+
+def _tick_text(kind: AxisKind, step: float) -> Callable[[float], str]:
+    if kind == "time":
+        if step >= 1:
+            return fmt_tick
+        decimals = _decimals(step)
+        return lambda v: fmt_fine_tick(v, decimals)
+    if kind == "integer":
+        return lambda v: f"{round(v)}"
+    decimals = _decimals(step)
+    return lambda v: f"{v:,.{decimals}f}"
+
+
+def _value_text(kind: AxisKind) -> Callable[[float], str]:
+    if kind == "time":
+        return fmt_duration
+    if kind == "integer":
+        return lambda v: f"{round(v)}"
+    return lambda v: f"{v:,.2f}"
 
 
 def line_chart(
@@ -162,28 +321,56 @@ def line_chart(
     *,
     x_label: str,
     y_label: str,
-    width: int = 520,
-    height: int = 230,
+    width: int = 540,
+    height: int = 260,
     marks: dict[str, float] | None = None,
-    x_is_time: bool = True,
+    x_marks: dict[str, float] | None = None,
+    x_range: tuple[float, float] | None = None,
+    x_kind: AxisKind = "number",
+    y_kind: AxisKind = "time",
+    steps: bool = False,
+    css_class: str = "chart",
+    right: int | None = None,
+    y_from_zero: bool = False,
 ) -> str:
-    """A small multi-series line chart with labelled lines (used for progress and curves).
+    """A small multi-series line chart with a legend (used for progress and curves).
 
-    ``marks`` draws labelled horizontal lines (e.g. the deadline).
+    Series are told apart by colour, by dash (every second series is dashed) and by mark
+    (filled or hollow circles), and named in a legend above the plot. ``marks`` draws
+    labelled horizontal lines (e.g. the deadline), ``x_marks`` labelled vertical lines
+    (e.g. the answer of a sizing) with their labels above the plot, clear of the data.
+    ``x_range`` fixes the x axis (e.g. 0 to the time budget); ``y_from_zero`` puts 0 on
+    the y axis. ``right`` is the margin for the marks' labels (charts shown side by side
+    pass the same one so their x axes line up). ``steps`` draws each series as a step
+    line: a value holds until the next point (a best-so-far over time). Every point is a
+    ``circle.point`` with its values in its ``<title>`` (up to :data:`MAX_MARKED_POINTS`
+    points per series).
     """
     pts = [p for s in series.values() for p in s]
     if not pts:
         return ""
     marks = marks or {}
-    xs = [p[0] for p in pts]
-    ys = [p[1] for p in pts] + list(marks.values())
-    x0, x1 = min(xs), max(xs)
-    y0, y1 = min(ys), max(ys)
-    if x1 == x0:
-        x1 = x0 + 1
-    pad = (y1 - y0) * 0.08 or max(abs(y1) * 0.05, 1.0)
-    y0, y1 = y0 - pad, y1 + pad
-    left, right, top, bottom = 86, 120, 14, 44
+    x_marks = x_marks or {}
+    xs = [p[0] for p in pts] + list(x_marks.values())
+    ys = [p[1] for p in pts] + list(marks.values()) + ([0.0] if y_from_zero else [])
+    if x_range is not None:
+        xs += list(x_range)
+    x0, x1, x_step = _axis(min(xs), max(xs), x_kind, 6, pad=False)
+    y0, y1, y_step = _axis(min(ys), max(ys), y_kind, 5, pad=True)
+    if y_from_zero and min(ys) >= 0:
+        y0 = 0.0  # the padding stops at zero
+    if x_range is not None and x_kind != "integer":
+        x0, x1 = min(x_range[0], min(xs)), max(x_range[1], max(xs))
+    tick_x, tick_y = _tick_text(x_kind, x_step), _tick_text(y_kind, y_step)
+    val_x, val_y = _value_text(x_kind), _value_text(y_kind)
+    x_ticks, y_ticks = _multiples(x0, x1, x_step), _multiples(y0, y1, y_step)
+    y_texts = [tick_y(v) for v in y_ticks]
+    # room on the left for the longest value label and the rotated axis label
+    left = max(64, math.ceil(30 + CHAR_W * max(map(len, y_texts), default=0)))
+    bottom = 44
+    top = 48 if x_marks else 36  # the x marks' labels sit between the legend and the plot
+    if right is None:
+        right = 108 if marks else 24
     pw, ph = width - left - right, height - top - bottom
 
     def sx(v: float) -> float:
@@ -192,44 +379,78 @@ def line_chart(
     def sy(v: float) -> float:
         return top + ph * (1 - (v - y0) / (y1 - y0))
 
-    fmt_x = fmt_duration if x_is_time else (lambda v: f"{v:.3g}")
     out = [
-        f'<svg xmlns="http://www.w3.org/2000/svg" class="chart" role="img" width="{width}" '
-        f'height="{height}" viewBox="0 0 {width} {height}"><title>{escape(y_label)} by '
-        f"{escape(x_label)}</title>",
+        f'<svg xmlns="http://www.w3.org/2000/svg" class="{css_class}" role="img" '
+        f'width="{width}" height="{height}" viewBox="0 0 {width} {height}" '
+        f'data-x0="{x0:.6g}" data-x1="{x1:.6g}" data-y0="{y0:.12g}" data-y1="{y1:.12g}" '
+        f'data-left="{left}" data-top="{top}" data-plot-width="{pw}" data-plot-height="{ph}">'
+        f"<title>{escape(y_label)} by {escape(x_label)}</title>",
+    ]
+    for v in x_ticks:
+        out.append(
+            f'<line class="tick" x1="{sx(v):.1f}" x2="{sx(v):.1f}" y1="{top}" y2="{top + ph}" />'
+            f'<text class="tick-label" x="{sx(v):.1f}" y="{top + ph + 14}" '
+            f'text-anchor="middle">{tick_x(v)}</text>'
+        )
+    for v, text in zip(y_ticks, y_texts, strict=True):
+        out.append(
+            f'<line class="tick" x1="{left}" x2="{left + pw}" y1="{sy(v):.1f}" y2="{sy(v):.1f}" />'
+            f'<text class="tick-label" x="{left - 6}" y="{sy(v) + 4:.1f}" text-anchor="end">'
+            f"{text}</text>"
+        )
+    out += [
         f'<rect class="frame" x="{left}" y="{top}" width="{pw}" height="{ph}" />',
-        f'<text class="axis-label" x="{left + pw / 2:.1f}" y="{height - 4}" '
+        f'<text class="axis-label" x="{left + pw / 2:.1f}" y="{height - 6}" '
         f'text-anchor="middle">{escape(x_label)}</text>',
-        f'<text class="tick-label" x="{left}" y="{top + ph + 14}">{fmt_x(x0)}</text>',
-        f'<text class="tick-label" x="{left + pw}" y="{top + ph + 14}" text-anchor="end">'
-        f"{fmt_x(x1)}</text>",
-        f'<text class="tick-label" x="{left - 6}" y="{top + 10}" text-anchor="end">'
-        f"{fmt_duration(y1)}</text>",
-        f'<text class="tick-label" x="{left - 6}" y="{top + ph}" text-anchor="end">'
-        f"{fmt_duration(y0)}</text>",
+        f'<text class="axis-label" transform="translate(14 {top + ph / 2:.1f}) rotate(-90)" '
+        f'text-anchor="middle">{escape(y_label)}</text>',
     ]
     for name, at in marks.items():
         out.append(
-            f'<line class="mark" x1="{left}" x2="{left + pw}" y1="{sy(at):.1f}" '
-            f'y2="{sy(at):.1f}" /><text class="mark-label" x="{left + pw + 4}" '
-            f'y="{sy(at) + 4:.1f}">{escape(name)}</text>'
+            f'<line class="mark" data-at="{at:.6g}" x1="{left}" x2="{left + pw}" '
+            f'y1="{sy(at):.1f}" y2="{sy(at):.1f}" /><text class="mark-label" '
+            f'x="{left + pw + 5}" y="{sy(at) + 4:.1f}">{escape(name)}</text>'
         )
+    for name, at in x_marks.items():
+        right_half = sx(at) > left + 0.6 * pw
+        out.append(
+            f'<line class="x-mark" data-at="{at:.6g}" x1="{sx(at):.1f}" x2="{sx(at):.1f}" '
+            f'y1="{top - 10}" y2="{top + ph}" /><text class="mark-label" '
+            f'x="{sx(at) + (-5 if right_half else 5):.1f}" y="{top - 4}" '
+            f'text-anchor="{"end" if right_half else "start"}">{escape(name)}</text>'
+        )
+    lx = float(left)
     for i, (name, s) in enumerate(series.items()):
+        colour = PALETTE[i % len(PALETTE)]
+        dash = ' stroke-dasharray="6 3"' if i % 2 else ""
+        fill = "#ffffff" if i % 2 else colour
+        # legend: a sample of the line and its mark, then the name
+        out.append(
+            f'<g class="legend-item" data-series="{escape(name)}">'
+            f'<line x1="{lx:.1f}" x2="{lx + 24:.1f}" y1="14" y2="14" stroke="{colour}" '
+            f'stroke-width="2"{dash} /><circle cx="{lx + 12:.1f}" cy="14" r="3" fill="{fill}" '
+            f'stroke="{colour}" stroke-width="1.5" />'
+            f'<text x="{lx + 30:.1f}" y="18">{escape(name)}</text></g>'
+        )
+        lx += 30 + CHAR_W * len(name) + 22
         if not s:
             continue
-        colour = PALETTE[i % len(PALETTE)]
-        dash = ' stroke-dasharray="5 3"' if i % 2 else ""
-        d = " ".join(f"{sx(a):.1f},{sy(b):.1f}" for a, b in s)
+        line = list(s)
+        if steps:
+            line = [p for a, b in pairwise(s) for p in (a, (b[0], a[1]))]
+            line.append(s[-1])
+        d = " ".join(f"{sx(a):.2f},{sy(b):.2f}" for a, b in line)
         out.append(
             f'<polyline class="series" data-series="{escape(name)}" points="{d}" fill="none" '
             f'stroke="{colour}" stroke-width="2"{dash} />'
         )
-        for a, b in s if len(s) <= 40 else []:
-            out.append(f'<circle cx="{sx(a):.1f}" cy="{sy(b):.1f}" r="2.5" fill="{colour}" />')
-        ly = s[-1][1]
-        out.append(
-            f'<text class="series-label" x="{left + pw + 4}" y="{sy(ly) + 4 + 12 * i:.1f}" '
-            f'fill="{colour}">{escape(name)}</text>'
-        )
+        if len(s) <= MAX_MARKED_POINTS:
+            out.extend(
+                f'<circle class="point" data-series="{escape(name)}" cx="{sx(a):.2f}" '
+                f'cy="{sy(b):.2f}" r="3" fill="{fill}" stroke="{colour}" stroke-width="1.5">'
+                f"<title>{escape(x_label)} {val_x(a)}: {escape(name)} {val_y(b)}</title>"
+                "</circle>"
+                for a, b in s
+            )
     out.append("</svg>")
     return "".join(out)

@@ -1,7 +1,9 @@
-"""The pages through the Flask test client: list links to plans, plan pages draw them."""
+"""The pages through the Flask test client: list links to plans, plan pages draw them,
+a solving plan's page charts its progress, a sizing's page its curve, answer and cost."""
 
 from __future__ import annotations
 
+import re
 import time
 import xml.etree.ElementTree as ET
 from typing import Any
@@ -38,6 +40,18 @@ def test_list_page_links_to_plan(client: Any) -> None:
     assert f'href="/plans/{doc["id"]}"' in html
 
 
+def test_list_page_names_plans_and_reads_times_in_utc(client: Any) -> None:
+    """A listed plan shows the name and method it was submitted with, and its submission
+    time as date, hours and minutes in UTC, the exact time from the JSON API kept in the
+    <time> element's datetime attribute."""
+    doc = finished(client, {**body(20, 3), "name": "Lantern Hill sq040 layout"})
+    html = client.get("/").get_data(as_text=True)
+    assert "Lantern Hill sq040 layout · longest_first" in html
+    iso = doc["submitted_at"]
+    assert iso.endswith("Z")
+    assert f'<time datetime="{iso}">{iso[:10]} {iso[11:16]} UTC</time>' in html
+
+
 def test_plan_page_has_every_job_and_node(client: Any) -> None:
     """The plan page's timeline has one bar per job (all 200 ids) and one row per node."""
     doc = finished(client, body())
@@ -55,3 +69,71 @@ def test_plan_page_has_every_job_and_node(client: Any) -> None:
 def test_unknown_plan_page_is_404(client: Any) -> None:
     """An unknown id is a 404 problem, as in the API."""
     assert client.get("/plans/0123456789abcdef01234").status_code == 404
+
+
+def svgs(html: str) -> dict[str, ET.Element]:
+    """Every inline chart of a page, by its class."""
+    out = {}
+    for m in re.finditer(r"<svg .*?</svg>", html, re.S):
+        root = ET.fromstring(m.group(0))
+        out[root.get("class")] = root
+    return out
+
+
+def test_solving_plan_page_charts_its_stored_progress(idle_app: Any) -> None:
+    """A plan a worker has claimed and written three progress points for (this test plays
+    the worker through the store, with values written by hand): its page refreshes itself,
+    charts one best-makespan and one lower-bound point per stored point, says where the
+    search stands in words, and shows no timeline yet; all without a line of JavaScript."""
+    c = idle_app.test_client()
+    loc = c.post("/v1/plans", json={**body(20, 3), "time_budget": 2.0}).headers["Location"]
+    rid = loc.rsplit("/", 1)[1]
+    store = idle_app.extensions["spanwright"].store
+    assert store.claim("plan", rid) is not None
+    points = [(0.4, 5200.0, 4700.0), (0.8, 5000.0, 4700.0), (1.2, 4900.0, 4800.0)]
+    for elapsed, ms, lb in points:
+        point = {"elapsed": elapsed, "time_budget": 2.0, "best_makespan": ms,
+                 "best_lower_bound": lb}  # fmt: skip
+        store.publish_progress("plan", rid, point)
+        store.append_progress_history("plan", rid, point)
+    html = c.get(f"/plans/{rid}").get_data(as_text=True)
+    assert '<meta http-equiv="refresh"' in html
+    chart = svgs(html)["chart progress"]
+    for series in ("best makespan", "lower bound"):
+        drawn = chart.findall(f".//s:circle[@data-series='{series}']", NS)
+        assert len(drawn) == len(points)
+    assert "After 1.2 s of a 2 s budget, the best plan found finishes in 1h 21m 40s" in html
+    assert "timeline" not in svgs(html)
+    assert "<script" not in html  # the refresh is a meta tag: no JavaScript needed
+
+
+def test_sizing_page_has_every_curve_row_the_answer_and_the_cost(
+    client: Any, priced_sizing: dict[str, Any]
+) -> None:
+    """The hand-checked sizing (conftest.py: 3600 + 1800 + 1800 s of jobs, 3600 s
+    deadline: 2 nodes) at 1.80 per node-hour: the page has one table row and
+    one point in each chart per curve row of the JSON API's result, the 2-node row tagged
+    as the answer with its cost 3.60 (2 nodes x 1 h x 1.80), and both charts mark 2 nodes;
+    server-rendered, with no JavaScript."""
+    r = client.post("/v1/sizings", json=priced_sizing, headers={"Prefer": "wait=5"})
+    assert r.status_code == 201, r.get_json()
+    doc = r.get_json()
+    curve = doc["result"]["curve"]
+    resp = client.get(f"/sizings/{doc['id']}")
+    assert resp.status_code == 200 and resp.mimetype == "text/html"
+    html = resp.get_data(as_text=True)
+    rows = re.findall(r'<tr(?: class="(answer)")? data-nodes="(\d+)">', html)
+    assert [int(n) for _, n in rows] == [c["nodes"] for c in curve]
+    assert [int(n) for a, n in rows if a] == [2]
+    answer_row = html[
+        html.index('class="answer"') : html.index("</tr>", html.index('class="answer"'))
+    ]
+    assert '<span class="tag">answer</span>' in answer_row and ">3.60<" in answer_row
+    charts = svgs(html)
+    for css, series in (("chart curve", "plan makespan"), ("chart cost", "estimated cost")):
+        drawn = charts[css].findall(f".//s:circle[@data-series='{series}']", NS)
+        assert len(drawn) == len(curve)
+        labels = [t.text for t in charts[css].findall(".//s:text[@class='mark-label']", NS)]
+        assert "answer: 2 nodes" in labels
+    assert "estimated cost of 3.60" in html
+    assert "<script" not in html
