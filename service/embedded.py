@@ -2,7 +2,8 @@
 
 With no ``REDIS_URL`` the API and one worker share a fakeredis ``FakeServer`` (two
 ``FakeRedis`` clients never share data unless they share a server). The worker is RQ's
-``SimpleWorker`` running the very same task as a separate ``spanwright worker``; it runs in
+``SimpleWorker`` (our :class:`service.worker.LeanWorker`) running the very same task as a
+separate ``spanwright worker``; it runs in
 a thread, so it installs no signal handlers and enforces the job timeout with a timer
 instead of SIGALRM (which only works in the main thread).
 """
@@ -14,18 +15,19 @@ import threading
 
 import fakeredis
 import numpy as np
-from rq import Queue, SimpleWorker
+from rq import Queue
 from rq.exceptions import StopRequested
 from rq.serializers import JSONSerializer
 from rq.timeouts import TimerDeathPenalty
 
 from .settings import Settings
+from .worker import LeanWorker
 
 log = logging.getLogger("spanwright.embedded")
 
 
-class ThreadWorker(SimpleWorker):
-    """A SimpleWorker that can live in a non-main thread."""
+class ThreadWorker(LeanWorker):
+    """The worker of ``spanwright worker``, able to live in a non-main thread."""
 
     death_penalty_class = TimerDeathPenalty
     stop_flag = False

@@ -5,8 +5,9 @@ RFC 9110 section 10.2.3). A refused request is refused before anything is stored
 nothing already accepted is ever removed to make room.
 
 * **Request rate**: a fixed window per tenant, ``{prefix}:rate:{tenant}:{window number}``
-  (``INCR`` then ``EXPIRE`` in one transaction): at most ``SPANWRIGHT_RATE_LIMIT`` requests
-  per ``SPANWRIGHT_RATE_WINDOW`` seconds; ``Retry-After`` is the time to the next window.
+  (``INCR``, and ``EXPIRE`` on the window's first request, in one script): at most
+  ``SPANWRIGHT_RATE_LIMIT`` requests per ``SPANWRIGHT_RATE_WINDOW`` seconds;
+  ``Retry-After`` is the time to the next window.
   Open paths (health, spec, problem pages) are not counted.
 * **Queue depth**: each accepted record is a member of ``{prefix}:active:{tenant}`` and of
   ``{prefix}:active`` (sorted sets scored by submission time). Admission is one Lua script:
@@ -20,6 +21,8 @@ from __future__ import annotations
 
 import math
 import time
+import weakref
+from typing import Any
 
 from .problems import TooManyRequests
 from .routes import services
@@ -38,6 +41,25 @@ return 0
 """
 
 
+# KEYS[1] the tenant's counter of this window; ARGV[1] its expiry. One round trip.
+_COUNT = """
+local n = redis.call('INCR', KEYS[1])
+if n == 1 then redis.call('EXPIRE', KEYS[1], ARGV[1]) end
+return n
+"""
+
+
+_SCRIPTS: weakref.WeakKeyDictionary[Any, dict[str, Any]] = weakref.WeakKeyDictionary()
+
+
+def _script(conn: Any, source: str) -> Any:
+    """The registered script ``source`` on ``conn``, made once per client."""
+    made = _SCRIPTS.setdefault(conn, {})
+    if source not in made:
+        made[source] = conn.register_script(source)
+    return made[source]
+
+
 def _active_key(prefix: str, tenant: str | None) -> str:
     return f"{prefix}:active:{tenant}" if tenant is not None else f"{prefix}:active"
 
@@ -49,10 +71,7 @@ def check_rate(tenant: str) -> None:
     now = time.time()
     window = int(now // s.rate_window)
     key = f"{s.key_prefix}:rate:{tenant}:{window}"
-    pipe = conn.pipeline(transaction=True)
-    pipe.incr(key)
-    pipe.expire(key, s.rate_window + 1)
-    count = int(pipe.execute()[0])
+    count = int(_script(conn, _COUNT)(keys=[key], args=[s.rate_window + 1]))
     if count > s.rate_limit:
         retry = math.ceil((window + 1) * s.rate_window - now)
         raise TooManyRequests(
@@ -99,7 +118,7 @@ def admit(tenant: str, kind: str, rid: str) -> None:
     member = f"{kind}:{rid}"
     args: list[str | int] = [member, repr(time.time()), s.max_queued_per_tenant]
     args += [s.max_queued_total, 2 * s.retention]
-    script = conn.register_script(_ADMIT)
+    script = _script(conn, _ADMIT)
     verdict = int(script(keys=keys, args=args))
     if verdict == 0:
         return

@@ -10,11 +10,12 @@ Three sources, merged into one registry that is built afresh for every scrape:
   time; ``child_exit`` in ``deploy/gunicorn.conf.py`` marks dead workers. Without the
   variable the metrics live in a registry private to the app (tests, ``spanwright serve``).
 * **Solve seconds and gap at finish** happen in worker processes on other machines, so
-  the worker records them into Redis with :func:`record_finish` (one pipelined round trip:
-  a few ``HINCRBY``/``HINCRBYFLOAT`` on one small hash per kind, ``{prefix}:metrics:{kind}``,
-  no TTL) and the API turns that hash into histograms and counters at scrape time. The
-  counts survive API restarts and are shared by every API replica; they reset only if the
-  hash is deleted (Prometheus treats that as a counter reset).
+  the worker records them into Redis (:func:`finish_counters`: a few
+  ``HINCRBY``/``HINCRBYFLOAT`` on one small hash per kind, ``{prefix}:metrics:{kind}``, no
+  TTL, applied by the same script that stores the result, so counted exactly once) and
+  the API turns that hash into histograms and counters at scrape time. The counts survive
+  API restarts and are shared by every API replica; they reset only if the hash is
+  deleted (Prometheus treats that as a counter reset).
 * **State read from Redis at scrape time**: records by status, queue depth, started and
   failed RQ registries, worker count. See :class:`RedisCollector` for the cost.
 
@@ -106,36 +107,57 @@ def _bucket_index(bounds: tuple[float, ...], value: float) -> int:
     return bisect.bisect_left(bounds, value)
 
 
+def finish_counters(
+    prefix: str, kind: str, result_dict: Mapping[str, Any]
+) -> tuple[str, list[tuple[str, str, float]]]:
+    """The increments that count one finished ``kind`` record: (hash key, [(op, field, by)]).
+
+    ``op`` is ``"i"`` (``HINCRBY``) or ``"f"`` (``HINCRBYFLOAT``). ``result_dict`` is the
+    contract's ``result`` object (``PlanResult.to_dict()`` or the sizing's; the assignment
+    is not read): ``solve_seconds``, ``gap`` (null when no finite gap exists),
+    ``stop_reason`` and ``proven_optimal`` are read when present. Status is ``cancelled``
+    when ``stop_reason == "cancelled"``, else ``done``. Never raises on a missing field.
+    ``Store.finish`` applies them in its own script; :func:`record_finish` on its own.
+    """
+    stop = result_dict.get("stop_reason")
+    status = "cancelled" if stop == "cancelled" else "done"
+    out: list[tuple[str, str, float]] = [("i", f"finished:{status}", 1)]
+    if isinstance(stop, str) and stop:
+        out.append(("i", f"stop_reason:{stop}", 1))
+    if result_dict.get("proven_optimal") is True:
+        out.append(("i", "proven_optimal", 1))
+    secs = result_dict.get("solve_seconds")
+    if isinstance(secs, int | float) and math.isfinite(secs) and secs >= 0:
+        out.append(("i", f"solve_seconds:b{_bucket_index(SOLVE_SECONDS_BUCKETS, secs)}", 1))
+        out.append(("f", "solve_seconds:sum", float(secs)))
+    gap = result_dict.get("gap")
+    if isinstance(gap, int | float) and math.isfinite(gap) and gap >= 0:
+        out.append(("i", f"gap:b{_bucket_index(GAP_BUCKETS, gap)}", 1))
+        out.append(("f", "gap:sum", float(gap)))
+    else:
+        out.append(("i", "gap:unknown", 1))
+    return metrics_key(prefix, kind), out
+
+
+def failed_counters(prefix: str, kind: str) -> tuple[str, list[tuple[str, str, float]]]:
+    """The increment that counts one ``kind`` record ended ``failed``."""
+    return metrics_key(prefix, kind), [("i", "finished:failed", 1)]
+
+
 def record_finish(
     conn: redis.Redis, prefix: str, kind: str, result_dict: Mapping[str, Any]
 ) -> None:
-    """Count one finished ``kind`` record from its result object (worker side, one round trip).
-
-    ``result_dict`` is the contract's ``result`` object (``PlanResult.to_dict()`` or the
-    sizing's): ``solve_seconds``, ``gap`` (null when no finite gap exists), ``stop_reason``
-    and ``proven_optimal`` are read when present. Status is ``cancelled`` when
-    ``stop_reason == "cancelled"``, else ``done``. Never raises on a missing field; a Redis
-    error propagates (the caller decides whether metrics may fail a job: they should not).
-    """
-    key = metrics_key(prefix, kind)
-    stop = result_dict.get("stop_reason")
-    status = "cancelled" if stop == "cancelled" else "done"
+    """Count one finished ``kind`` record from its result object, on its own (one round
+    trip); see :func:`finish_counters`. A Redis error propagates (the caller decides
+    whether metrics may fail a job: they should not). The worker counts inside
+    ``Store.finish`` instead, in the same script that stores the result."""
+    key, increments = finish_counters(prefix, kind, result_dict)
     pipe = conn.pipeline(transaction=False)
-    pipe.hincrby(key, f"finished:{status}", 1)
-    if isinstance(stop, str) and stop:
-        pipe.hincrby(key, f"stop_reason:{stop}", 1)
-    if result_dict.get("proven_optimal") is True:
-        pipe.hincrby(key, "proven_optimal", 1)
-    secs = result_dict.get("solve_seconds")
-    if isinstance(secs, int | float) and math.isfinite(secs) and secs >= 0:
-        pipe.hincrby(key, f"solve_seconds:b{_bucket_index(SOLVE_SECONDS_BUCKETS, secs)}", 1)
-        pipe.hincrbyfloat(key, "solve_seconds:sum", float(secs))
-    gap = result_dict.get("gap")
-    if isinstance(gap, int | float) and math.isfinite(gap) and gap >= 0:
-        pipe.hincrby(key, f"gap:b{_bucket_index(GAP_BUCKETS, gap)}", 1)
-        pipe.hincrbyfloat(key, "gap:sum", float(gap))
-    else:
-        pipe.hincrby(key, "gap:unknown", 1)
+    for op, name, amount in increments:
+        if op == "f":
+            pipe.hincrbyfloat(key, name, amount)
+        else:
+            pipe.hincrby(key, name, int(amount))
     pipe.execute()
 
 

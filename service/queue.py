@@ -18,6 +18,7 @@ import socket
 import time
 
 import redis
+from redis.client import Pipeline
 from rq import Callback, Queue, Retry, Worker
 from rq.job import Job
 from rq.registry import StartedJobRegistry
@@ -45,7 +46,11 @@ class JobQueue:
         self._last_reap = float("-inf")
         self._push_back = conn.register_script(_PUSH_BACK)
 
-    def enqueue(self, kind: str, rid: str, time_budget: float) -> None:
+    def enqueue(
+        self, kind: str, rid: str, time_budget: float, pipeline: Pipeline | None = None
+    ) -> None:
+        """Queue the job of record ``rid``; with ``pipeline`` (in a transaction) RQ only adds
+        its writes to it (RQ's documented ``pipeline`` argument), the caller executes."""
         s = self.settings
         self.queue.enqueue(
             TASK,
@@ -63,6 +68,7 @@ class JobQueue:
             failure_ttl=s.retention,
             on_failure=Callback(ON_FAILURE),
             description=f"{kind} {rid}",
+            pipeline=pipeline,
         )
 
     def workers(self) -> int:

@@ -15,8 +15,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
+from dataclasses import dataclass
+from operator import itemgetter
 from typing import Any
 
+import numpy as np
+import numpy.typing as npt
 from marshmallow import RAISE, Schema, ValidationError, fields, validate, validates_schema
 
 from workers.planning.errors import InvalidInstance, Issue
@@ -190,6 +194,8 @@ class PlanRequestSchema(StrictSchema):
 
 
 PLAN_SCHEMA = PlanRequestSchema()
+#: the same schema for a body whose jobs were read as columns (:func:`job_columns`)
+PLAN_ENVELOPE_SCHEMA = PlanRequestSchema(exclude=("jobs",))
 
 
 class SizingNodeSchema(StrictSchema):
@@ -290,6 +296,86 @@ def load_plan_request(body: Any, settings: Settings) -> dict[str, Any]:
     Raises :class:`LimitExceeded` or :class:`InvalidInstance` (both 422) with pointers.
     """
     return _load(PLAN_SCHEMA, body, settings)
+
+
+@dataclass(frozen=True, slots=True)
+class JobColumns:
+    """The jobs of a body as columns: ``ids[j]``, ``durations[j]``, ``groups[j]``."""
+
+    ids: list[str]
+    durations: npt.NDArray[np.float64]
+    groups: list[str | None] | None
+
+
+_get_id, _get_duration = itemgetter("id"), itemgetter("duration")
+_NUMBER_TYPES = frozenset((int, float))
+
+
+def job_columns(jobs: Any) -> JobColumns | None:
+    """The jobs as columns if :class:`JobList` accepts every one of them as plain, else None.
+
+    Plain means an object with exactly ``id`` and ``duration`` (and maybe a string
+    ``group``), each of the right type and in range. The checks run over whole columns
+    (``map``, ``set`` and numpy, no Python statement per job); anything else (another
+    field, a null group, a wrong value) answers None, and the caller then takes the exact
+    per-job path, which names every problem with its pointer. A None never means "invalid".
+    """
+    if type(jobs) is not list or not jobs:
+        return None
+    n = len(jobs)
+    try:
+        if set(map(type, jobs)) != {dict}:
+            return None
+        ids = list(map(_get_id, jobs))
+        durs = list(map(_get_duration, jobs))
+    except KeyError:
+        return None
+    size = sum(map(len, jobs))
+    groups: list[Any] | None = None
+    if size != 2 * n:  # some jobs carry a third field: only a string group is plain here
+        groups = [job.get("group") for job in jobs]
+        named = [g for g in groups if g is not None]
+        if size != 2 * n + len(named) or set(map(type, named)) != {str}:
+            return None
+        if max(map(len, named)) > MAX_ID_LENGTH:
+            return None
+    if set(map(type, ids)) != {str} or not set(map(type, durs)) <= _NUMBER_TYPES:
+        return None
+    lengths = list(map(len, ids))
+    if min(lengths) < 1 or max(lengths) > MAX_ID_LENGTH:
+        return None
+    try:
+        d = np.array(durs, dtype=np.float64)
+    except (OverflowError, ValueError, TypeError):
+        return None
+    if not (np.isfinite(d).all() and (d >= 0).all() and (d <= MAX_SECONDS).all()):
+        return None
+    return JobColumns(ids, d, groups)
+
+
+def load_plan_columns(body: Any, settings: Settings) -> tuple[dict[str, Any], JobColumns] | None:
+    """:func:`load_plan_request` for a body whose jobs are all plain, read in columns.
+
+    Returns the loaded body (its ``jobs`` the input list itself) and the job columns; or
+    None when a job is not plain or the rest of the body has a problem: the caller then
+    runs :func:`load_plan_request`, which finds and names every problem. Limits are
+    checked first, as there (a batch above them raises :class:`LimitExceeded` here too).
+    """
+    if not isinstance(body, Mapping):
+        return None
+    check_plan_limits(body, settings)
+    cols = job_columns(body.get("jobs"))
+    if cols is None:
+        return None
+    try:
+        data: dict[str, Any] = PLAN_ENVELOPE_SCHEMA.load(
+            {k: v for k, v in body.items() if k != "jobs"}
+        )
+    except ValidationError:
+        return None
+    data["jobs"] = body["jobs"]
+    data.setdefault("time_budget", settings.default_time_budget)
+    return data, cols
 
 
 def load_sizing_request(body: Any, settings: Settings) -> dict[str, Any]:

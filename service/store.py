@@ -4,6 +4,8 @@ Keys, for a record of ``kind`` (``plan`` | ``sizing``) and id ``I`` owned by ten
 
     {prefix}:{kind}:{I}            hash: tenant, status, timestamps, progress, version, ...
     {prefix}:{kind}:{I}:request    the request body as received (bytes)
+    {prefix}:{kind}:{I}:work       the worker's copy of a checked plan body, jobs in columns
+                                   (``service/payload.py``; only when the body allows it)
     {prefix}:{kind}:{I}:result     the result object as JSON, once finished
     {prefix}:{kind}:{I}:done       a one-token list pushed when the record finishes (wakes waiters)
     {prefix}:index:{T}:{kind}      sorted set of the tenant's ids (all score 0, ordered by id)
@@ -15,6 +17,12 @@ A record waiting in the queue expires ``2 * retention`` after submission (so a b
 does not eat it); once finished, every key of it expires ``retention`` after it finished:
 the result is kept that long after it is computed. Status changes are
 Lua scripts (atomic), and every visible change bumps ``version`` (the ETag).
+
+Round trips per plan: the API stores and enqueues in one transaction (:meth:`Store.create`
+with ``enqueue``) and waits with one ``BLPOP`` plus one read (:meth:`Store.wait_for`); the
+worker claims a record and reads its body in one script (:meth:`Store.claim`) and stores
+the outcome, refreshes every expiry, wakes the waiters and counts the metrics in another
+(:meth:`Store.finish`).
 """
 
 from __future__ import annotations
@@ -24,12 +32,13 @@ import hashlib
 import json
 import secrets
 import time
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from typing import Any
 
 import redis
+from redis.client import Pipeline
 
 KINDS = ("plan", "sizing")
 STATUSES = ("queued", "solving", "done", "failed", "cancelled")
@@ -47,6 +56,62 @@ _ITEM_FIELDS = (
     "method",
     "summary",
 )
+
+# KEYS[1] record, KEYS[2] worker's copy of the body, KEYS[3] raw body; ARGV[1] started_at.
+# queued (or solving again after a crash) -> solving, one more attempt; returns
+# {old status, time_budget, method, body (the copy if there is one), 1 if it is the copy},
+# or false (not queued/solving, or no body left: then nothing changes).
+_CLAIM = """
+local old = redis.call('HGET', KEYS[1], 'status')
+if old ~= 'queued' and old ~= 'solving' then return false end
+local copy = 1
+local body = redis.call('GET', KEYS[2])
+if not body then
+  copy = 0
+  body = redis.call('GET', KEYS[3])
+  if not body then return false end
+end
+redis.call('HSET', KEYS[1], 'status', 'solving', 'started_at', ARGV[1])
+redis.call('HINCRBY', KEYS[1], 'version', 1)
+redis.call('HINCRBY', KEYS[1], 'attempts', 1)
+local f = redis.call('HMGET', KEYS[1], 'time_budget', 'method')
+return {old, f[1], f[2], body, copy}
+"""
+
+# KEYS[1] record, [2] request, [3] result, [4] work copy, [5] done list, [6] metrics hash.
+# ARGV[1] allowed old statuses (comma separated), [2] new status, [3] retention seconds,
+# [4] '1' to store ARGV[5] as the result, [6] n field pairs from ARGV[7], then metric
+# increments as (op 'i' or 'f', field, amount) triples. If the move is allowed: store the
+# result, set the fields, bump the version, give every key of the record (and its
+# idempotency record) the retention, push the done token, count; returns the old status.
+_FINISH = """
+local old = redis.call('HGET', KEYS[1], 'status')
+if not old then return false end
+if not string.find(',' .. ARGV[1] .. ',', ',' .. old .. ',', 1, true) then return false end
+local ttl = tonumber(ARGV[3])
+if ARGV[4] == '1' then redis.call('SET', KEYS[3], ARGV[5], 'EX', ttl) end
+redis.call('HSET', KEYS[1], 'status', ARGV[2])
+local i = 7
+for k = 1, tonumber(ARGV[6]) do
+  redis.call('HSET', KEYS[1], ARGV[i], ARGV[i + 1])
+  i = i + 2
+end
+redis.call('HINCRBY', KEYS[1], 'version', 1)
+for k = 1, 4 do redis.call('EXPIRE', KEYS[k], ttl) end
+local idem = redis.call('HGET', KEYS[1], 'idem_key')
+if idem then redis.call('EXPIRE', idem, ttl) end
+redis.call('RPUSH', KEYS[5], '1')
+redis.call('EXPIRE', KEYS[5], 60)
+while i + 2 <= #ARGV do
+  if ARGV[i] == 'f' then
+    redis.pcall('HINCRBYFLOAT', KEYS[6], ARGV[i + 1], ARGV[i + 2])
+  else
+    redis.pcall('HINCRBY', KEYS[6], ARGV[i + 1], ARGV[i + 2])
+  end
+  i = i + 3
+end
+return old
+"""
 
 # KEYS[1] record; ARGV[1] allowed old statuses (comma separated), ARGV[2] new status,
 # ARGV[3..] field, value pairs. Returns the old status, or false when not allowed/missing.
@@ -116,6 +181,21 @@ class Record:
         return int(self.fields.get("version", 0))
 
 
+@dataclass(frozen=True, slots=True)
+class Claim:
+    """A record a worker moved to ``solving``: what it needs to solve it."""
+
+    time_budget: float
+    method: str
+    body: bytes
+    #: True when ``body`` is the worker's copy in columns (``service/payload.py``)
+    columns: bool
+
+
+#: a metric increment for :meth:`Store.finish`: (hash key, [(op 'i'|'f', field, amount)])
+Counters = tuple[str, list[tuple[str, str, float]]]
+
+
 class Store:
     """Our Redis keys. ``conn`` must not decode responses (RQ shares the client)."""
 
@@ -126,6 +206,8 @@ class Store:
         self._transition = conn.register_script(_TRANSITION)
         self._cancel = conn.register_script(_CANCEL)
         self._while_solving = conn.register_script(_WHILE_SOLVING)
+        self._claim = conn.register_script(_CLAIM)
+        self._finish = conn.register_script(_FINISH)
 
     # -- key names ----------------------------------------------------------------------
     def key(self, kind: str, rid: str, part: str = "") -> str:
@@ -140,7 +222,12 @@ class Store:
         return f"{self.prefix}:idem:{tenant}:{kind}:{digest}"
 
     def _all_keys(self, kind: str, rid: str) -> list[str]:
-        return [self.key(kind, rid), self.key(kind, rid, "request"), self.key(kind, rid, "result")]
+        return [
+            self.key(kind, rid),
+            self.key(kind, rid, "request"),
+            self.key(kind, rid, "result"),
+            self.key(kind, rid, "work"),
+        ]
 
     # -- writing ------------------------------------------------------------------------
     def create(
@@ -152,8 +239,16 @@ class Store:
         *,
         rid: str | None = None,
         now: float | None = None,
+        work: bytes | None = None,
+        enqueue: Callable[[Pipeline], object] | None = None,
     ) -> str:
-        """Store a new queued record; returns its id."""
+        """Store a new queued record; returns its id.
+
+        ``work`` is the worker's copy of the body (``service/payload.py``), stored next to
+        it. ``enqueue(pipeline)``, when given, adds the queue's own writes to the same
+        transaction: the record and its job appear together or not at all, in one round
+        trip.
+        """
         t = time.time() if now is None else now
         rid = rid or new_id(t)
         fields: dict[str, Any] = {
@@ -167,16 +262,21 @@ class Store:
         for k, v in meta.items():
             if v is not None:
                 fields[k] = json.dumps(v) if k in _JSON_FIELDS else v
+        keep = 2 * self.retention
         pipe = self.conn.pipeline(transaction=True)
+        pipe.multi()  # explicit: a queue adding its writes finds the transaction open
         pipe.hset(self.key(kind, rid), mapping=fields)  # type: ignore[arg-type]
-        pipe.set(self.key(kind, rid, "request"), request_body)
-        pipe.expire(self.key(kind, rid), 2 * self.retention)
-        pipe.expire(self.key(kind, rid, "request"), 2 * self.retention)
+        pipe.expire(self.key(kind, rid), keep)
+        pipe.set(self.key(kind, rid, "request"), request_body, ex=keep)
+        if work is not None:
+            pipe.set(self.key(kind, rid, "work"), work, ex=keep)
         pipe.zadd(self.index_key(tenant, kind), {rid: 0})
         pipe.expire(self.index_key(tenant, kind), 3 * self.retention)
         # ids older than three retentions can have no record left: drop them
         oldest = new_id(t - 3 * self.retention)[:11]
         pipe.zremrangebylex(self.index_key(tenant, kind), "-", "(" + oldest)
+        if enqueue is not None:
+            enqueue(pipe)
         pipe.execute()
         return rid
 
@@ -219,6 +319,24 @@ class Store:
             self.conn.hincrby(self.key(kind, rid), "attempts", 1)
         return old is not None
 
+    def claim(self, kind: str, rid: str) -> Claim | None:
+        """queued (or solving again after a crash) -> solving, and what solving needs, in
+        one round trip; None when the record is not there to solve (cancelled while
+        queued, finished, expired)."""
+        got = self._claim(
+            keys=[self.key(kind, rid), self.key(kind, rid, "work"), self.key(kind, rid, "request")],
+            args=[rfc3339(time.time())],
+        )
+        if not got:
+            return None
+        _old, budget, method, body, copy = got
+        return Claim(
+            time_budget=float(_text(budget)) if budget is not None else 5.0,
+            method=_text(method) if method is not None else "longest_first",
+            body=bytes(body),
+            columns=int(copy) == 1,
+        )
+
     def requeue(self, kind: str, rid: str, detail: str) -> bool:
         """solving -> queued after a crash, when the queue will retry it."""
         old = self._transition(
@@ -259,21 +377,37 @@ class Store:
         summary: dict[str, Any] | None = None,
         progress: dict[str, Any] | None = None,
         allowed_from: str = "solving",
+        counters: Counters | None = None,
     ) -> bool:
-        """Move to a finished status, store the result, refresh every TTL, wake waiters."""
+        """Move to a finished status, store the result, refresh every TTL, wake waiters.
+
+        One script, one round trip; ``counters`` (a metrics hash and its increments) are
+        counted by the same script only when the move happened. False when the move is not
+        allowed (then nothing is written).
+        """
         if status not in FINISHED:
             raise ValueError(f"{status!r} is not a finished status")
-        if result_json is not None:
-            self.conn.set(self.key(kind, rid, "result"), result_json, ex=self.retention)
-        args: list[Any] = [allowed_from, status, "finished_at", rfc3339(time.time())]
+        pairs: list[Any] = ["finished_at", rfc3339(time.time())]
         for name, doc in (("error", error), ("summary", summary), ("progress", progress)):
             if doc is not None:
-                args += [name, json.dumps(doc, allow_nan=False)]
-        old = self._transition(keys=[self.key(kind, rid)], args=args)
-        if old is None:
-            return False
-        self._refresh_and_notify(kind, rid)
-        return True
+                pairs += [name, json.dumps(doc, allow_nan=False)]
+        args: list[Any] = [
+            allowed_from,
+            status,
+            self.retention,
+            "0" if result_json is None else "1",
+            result_json or "",
+            len(pairs) // 2,
+            *pairs,
+        ]
+        metrics_key = self.key(kind, rid)  # an unused slot when there is nothing to count
+        if counters is not None:
+            metrics_key = counters[0]
+            for op, name, amount in counters[1]:
+                args += [op, name, repr(float(amount)) if op == "f" else int(amount)]
+        # [record, request, result, work, done, metrics], as the script reads them
+        keys = [*self._all_keys(kind, rid), self.key(kind, rid, "done"), metrics_key]
+        return self._finish(keys=keys, args=args) is not None
 
     def _refresh_and_notify(self, kind: str, rid: str) -> None:
         idem = self.conn.hget(self.key(kind, rid), "idem_key")
@@ -329,16 +463,43 @@ class Store:
 
     def wait(self, kind: str, rid: str, timeout: float) -> str | None:
         """Block until the record is finished or ``timeout`` seconds pass; returns the status."""
+        rec = self.wait_for(kind, rid, timeout, with_result=False)
+        return rec.status if rec is not None else None
+
+    def wait_for(
+        self, kind: str, rid: str, timeout: float, *, with_result: bool = True
+    ) -> Record | None:
+        """The record once it is finished, or as it is after ``timeout`` seconds.
+
+        Sleeps in ``BLPOP`` on the record's done list (:meth:`finish` pushes one token,
+        kept a minute, so a record finished just before the call answers at once); a
+        waiter that takes the token puts it back for the others in the same round trip as
+        its read. The common case, a record finished within the wait, costs two round
+        trips. Every second without a token the record is read again, so a finish whose
+        token is gone is still seen within a second. Callers wait on records they have just
+        seen unfinished (the token outlives that by far).
+        """
         deadline = time.monotonic() + max(0.0, timeout)
         done = self.key(kind, rid, "done")
         while True:
-            status = self.status(kind, rid)
             left = deadline - time.monotonic()
-            if status is None or status in FINISHED or left <= 0:
-                return status
-            got = self.conn.blpop([done], timeout=max(0.01, min(left, 1.0)))
+            got = None
+            if left > 0:
+                got = self.conn.blpop([done], timeout=max(0.01, min(left, 1.0)))
+            pipe = self.conn.pipeline(transaction=False)
             if got is not None:
-                self.conn.rpush(done, b"1")  # hand the token on to other waiters
+                pipe.rpush(done, b"1")  # hand the token on to other waiters
+            pipe.hgetall(self.key(kind, rid))
+            if with_result:
+                pipe.get(self.key(kind, rid, "result"))
+            out = pipe.execute()[1 if got is not None else 0 :]
+            raw = out[0]
+            if not raw:
+                return None
+            fields = _decode(raw)
+            if fields.get("status") in FINISHED or deadline - time.monotonic() <= 0:
+                result = _text(out[1]) if with_result and out[1] is not None else None
+                return Record(kind, rid, fields, result)
 
     def list(
         self,

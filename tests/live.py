@@ -27,16 +27,22 @@ def serve(app: Any) -> Iterator[str]:
         thread.join(timeout=5)
 
 
-def hard_batch(n: int = 100, m: int = 40, seed: int = 7) -> dict[str, Any]:
-    """Few jobs per node with normal times, int(N(4n, n)) (Dell'Amico-Martello-style class 7,
-    references.md section 2.2): such batches keep an exact search busy for seconds."""
+def fine_grained(seed: int, n: int = 40, m: int = 4) -> dict[str, Any]:
+    """An invented Lantern Hill batch of 40 fx caches (30 to 90 min, timed to the
+    microsecond) on 4 nodes. With durations this fine an even split is all but impossible,
+    so no lower bound reaches the optimum and an exact search can only prove optimality by
+    exhausting a multiway number-partitioning tree (Korf 2009, "Multi-way number
+    partitioning", IJCAI): it runs to its budget, improving its best plan as it goes."""
     import numpy as np
 
     rng = np.random.default_rng(seed)
-    p = np.maximum(1, rng.normal(4 * n, n, size=n).astype(int))
+    durations = np.round(rng.uniform(1800, 5400, size=n), 6)
     return {
+        "name": "Lantern Hill fx caches, timed to the microsecond",
         "jobs": [
-            {"id": f"sim_{i:03d}", "duration": int(x), "group": "sim"} for i, x in enumerate(p)
+            {"id": f"lh_fx_cache_{i:03d}", "duration": float(d), "group": f"fx{i % 4}"}
+            for i, d in enumerate(durations)
         ],
         "node_count": m,
+        "resolution": 1e-6,
     }

@@ -1,8 +1,11 @@
 """The RQ task: a thin adapter between the queue, the store and the planning core.
 
-``run_job`` loads the stored request, solves it with the core, publishes progress
-(elapsed, best makespan, best bound) while the core runs, honours a cancel flag through the
-core's ``should_stop`` hook, and stores the result under our keys with their retention.
+``run_job`` claims the record and loads its stored request (one script: the worker's copy
+in columns when the API stored one, ``service/payload.py``, else the raw body), solves it
+with the core, publishes progress (elapsed, best makespan, best bound) while the core runs
+longer than the progress interval, honours a cancel flag through the core's
+``should_stop`` hook, and stores the result under our keys with their retention, the
+metrics counted in the same script (``Store.finish``).
 Input errors of the core (:class:`SpanwrightError`) end the record as ``failed`` with a
 problem document; anything else propagates so RQ's single retry and then ``on_failure``
 deal with it (the search loop is never wrapped in ``except Exception``: RQ's timeout
@@ -11,17 +14,16 @@ exception derives from it).
 
 from __future__ import annotations
 
-import contextlib
 import json
 import time
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
-import redis
 from rq import get_current_job
 
-from service.metrics import record_failed, record_finish
+from service import payload
+from service.metrics import failed_counters, finish_counters
 from service.problems import InternalError, problem_dict
 from service.store import Store
 from workers.planning.errors import SpanwrightError
@@ -29,40 +31,55 @@ from workers.planning.errors import SpanwrightError
 
 @dataclass(frozen=True, slots=True)
 class Outcome:
-    """What a runner hands back: the result object and a few summary fields for lists."""
+    """What a runner hands back: the result object and a few summary fields for lists.
+
+    ``result_json``, when given, is the whole result as JSON text, and ``result`` may then
+    leave out the bulky part (a plan's assignment); otherwise ``result`` is written out.
+    """
 
     result: dict[str, Any]
     summary: dict[str, Any]
     cancelled: bool
+    result_json: str | None = None
 
 
 Runner = Callable[..., Outcome]
 
 
 def solve_plan(
-    body: Mapping[str, Any],
+    body: Mapping[str, Any] | payload.Columns,
     *,
     method: str,
     time_budget: float,
     progress: Callable[[Any], None],
     should_stop: Callable[[], bool],
 ) -> Outcome:
-    """``POST /v1/plans``: build the instance and solve it."""
+    """``POST /v1/plans``: build the instance and solve it.
+
+    ``body`` is the request body, or the API's copy of it with the jobs in columns.
+    """
     from workers.planning import Instance, solve
 
-    inst = Instance.from_request(body)
+    if isinstance(body, payload.Columns):
+        inst = Instance.from_columns(body.envelope, body.ids, body.durations, body.groups)
+        body = body.envelope  # everything but the jobs
+    else:
+        inst = Instance.from_request(body)
     res = solve(inst, method, time_budget=time_budget, progress=progress, should_stop=should_stop)
-    result = res.to_dict()
+    result = res.to_dict(with_assignment=False)
+    extra: dict[str, Any] = {}
     if inst.duration_p90 is not None or "spread" in body or "confidence_samples" in body:
         from workers.planning.confidence import confidence_block
 
-        result["confidence"] = confidence_block(
+        extra["confidence"] = confidence_block(
             res.schedule,
             spread=body.get("spread"),
             samples=int(body.get("confidence_samples", 1000)),
             seed=int(body.get("confidence_seed", 0)),
             deadline=inst.deadline,
         )
+    text = res.to_json(extra)
+    result.update(extra)
     dl = result.get("deadline")
     summary = {
         "makespan": res.makespan,
@@ -74,7 +91,7 @@ def solve_plan(
         "stop_reason": res.stop_reason,
         "deadline_met": None if dl is None else dl["met"],
     }
-    return Outcome(result, summary, res.stop_reason == "cancelled")
+    return Outcome(result, summary, res.stop_reason == "cancelled", text)
 
 
 def size_farm(
@@ -111,17 +128,18 @@ def run_job(
 
 
 def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 0.25) -> str:
-    """Solve record ``rid`` and store the outcome; returns the final status (or 'skipped')."""
-    if not store.mark_solving(kind, rid):
+    """Solve record ``rid`` and store the outcome; returns the final status (or 'skipped').
+
+    Redis round trips: one to claim the record and read its body, one to store the outcome
+    (with the metrics); a solve longer than ``progress_interval`` adds its progress writes
+    and cancel checks.
+    """
+    claim = store.claim(kind, rid)
+    if claim is None:
         return "skipped"  # cancelled while queued, expired, or already finished
-    rec = store.get(kind, rid, with_result=False)
-    raw = store.load_request(kind, rid)
-    if rec is None or raw is None:
-        return "skipped"
-    time_budget = float(rec.fields.get("time_budget", 5.0))
-    method = str(rec.fields.get("method", "longest_first"))
+    time_budget, method = claim.time_budget, claim.method
     t0 = time.perf_counter()
-    last = [0.0]
+    last = [t0]  # the first progress write waits one interval: quick solves write none
     best: dict[str, Any] = {}
 
     def progress(p: Any) -> None:
@@ -141,21 +159,26 @@ def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 
             if kind == "plan":
                 store.append_progress_history(kind, rid, dict(best))
 
-    def should_stop() -> bool:
+    def should_stop() -> bool:  # the core's Budget asks at most every 0.25 s
         return store.cancel_requested(kind, rid)
 
+    body: Any = payload.decode(claim.body) if claim.columns else json.loads(claim.body)
     try:
         out = RUNNERS[kind](
-            json.loads(raw),
+            body,
             method=method,
             time_budget=time_budget,
             progress=progress,
             should_stop=should_stop,
         )
     except SpanwrightError as exc:
-        if store.finish(kind, rid, "failed", error=problem_dict(exc)):
-            with contextlib.suppress(redis.RedisError):
-                record_failed(store.conn, store.prefix, kind)
+        store.finish(
+            kind,
+            rid,
+            "failed",
+            error=problem_dict(exc),
+            counters=failed_counters(store.prefix, kind),
+        )
         return "failed"
     # a cancel that arrives after the solver finished its work changes nothing: status done
     status = "cancelled" if out.cancelled else "done"
@@ -173,17 +196,18 @@ def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 
             nodes_needed=out.summary.get("nodes_needed"),
             nodes_lower_bound=out.summary.get("nodes_lower_bound"),
         )
-    finished = store.finish(
+    text = out.result_json
+    if text is None:
+        text = json.dumps(out.result, allow_nan=False, separators=(",", ":"))
+    store.finish(
         kind,
         rid,
         status,
-        result_json=json.dumps(out.result, allow_nan=False, separators=(",", ":")),
+        result_json=text,
         summary=out.summary,
         progress=final,
+        counters=finish_counters(store.prefix, kind, out.result),
     )
-    if finished:
-        with contextlib.suppress(redis.RedisError):
-            record_finish(store.conn, store.prefix, kind, out.result)
     return status
 
 
@@ -198,12 +222,11 @@ def on_failure(job: Any, connection: Any, exc_type: Any, exc: Any, tb: Any) -> N
     if job.retries_left:
         store.requeue(kw["kind"], kw["record_id"], detail)
         return
-    if store.finish(
+    store.finish(
         kw["kind"],
         kw["record_id"],
         "failed",
         error=problem_dict(InternalError(detail)),
         allowed_from="queued,solving",
-    ):
-        with contextlib.suppress(redis.RedisError):
-            record_failed(connection, kw["prefix"], kw["kind"])
+        counters=failed_counters(kw["prefix"], kw["kind"]),
+    )

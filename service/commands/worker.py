@@ -15,8 +15,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--worker-class",
         choices=("simple", "fork"),
         default="simple",
-        help="simple: run jobs in this process (fast, the default); fork: one child per job "
-        "(isolates a crashing job from the worker, costs a fork per job)",
+        help="simple: run jobs in this process, with RQ's bookkeeping batched into few round "
+        "trips (fast, the default); fork: one child per job (isolates a crashing job from "
+        "the worker, costs a fork per job)",
     )
     p.add_argument(
         "--maintenance-interval",
@@ -33,7 +34,7 @@ def run(args: argparse.Namespace) -> int:
     import contextlib
 
     import redis
-    from rq import Queue, SimpleWorker, Worker
+    from rq import Queue, Worker
     from rq.serializers import JSONSerializer
 
     from ..app import connect
@@ -41,6 +42,7 @@ def run(args: argparse.Namespace) -> int:
     from ..logs import configure_logging
     from ..queue import JobQueue
     from ..settings import Settings
+    from ..worker import LeanWorker
     from ..wsgi import sentinel_connection
 
     settings = Settings.from_env(os.environ)
@@ -52,7 +54,7 @@ def run(args: argparse.Namespace) -> int:
     warm_up()
     conn = sentinel if sentinel is not None else connect(settings)
     queue = Queue(settings.queue_name, connection=conn, serializer=JSONSerializer)
-    base = SimpleWorker if args.worker_class == "simple" else Worker
+    base = LeanWorker if args.worker_class == "simple" else Worker
     jobs = JobQueue(conn, settings)
 
     class ReapingWorker(base):  # type: ignore[valid-type,misc]

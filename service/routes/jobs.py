@@ -39,8 +39,18 @@ ID_RE = re.compile(r"[0-9a-f]{21}")
 _KEY_RE = re.compile(r"[\x20-\x21\x23-\x5b\x5d-\x7e]{1,255}")  # printable ASCII but " and \
 _WAIT_RE = re.compile(r"^\s*wait\s*=\s*\"?(\d+(?:\.\d+)?)\"?\s*$", re.IGNORECASE)
 
-#: validate a body: shape (marshmallow) then semantics (the core); returns the loaded body
-Validator = Callable[[Any, Settings], dict[str, Any]]
+
+@dataclass(frozen=True, slots=True)
+class Validated:
+    """A checked request body: the loaded body, and maybe the worker's copy of it."""
+
+    data: dict[str, Any]
+    #: stored for the worker next to the raw body (``service/payload.py``); None: the raw one
+    work: bytes | None = None
+
+
+#: validate a body: shape (marshmallow) then semantics (the core)
+Validator = Callable[[Any, Settings], Validated]
 
 
 @dataclass(frozen=True, slots=True)
@@ -61,6 +71,20 @@ def _parse_int(text: str) -> int | float:
     return int(text) if len(text) <= 30 else float(text)
 
 
+#: every digit to "0": a run of 31 zeros in the copy is a run of 31 digits in the body
+_DIGITS_TO_ZERO = bytes.maketrans(b"123456789", b"000000000")
+_LONG_RUN = b"0" * 31
+
+
+def _loads(raw: bytes) -> Any:
+    """``json.loads`` with :func:`_parse_int`, which costs a Python call per integer. A UTF-8
+    body without a run of 31 digits has no integer it would change, so the C parser reads
+    the integers alone, with the same result (the check is two C passes over the bytes)."""
+    if json.detect_encoding(raw) == "utf-8" and _LONG_RUN not in raw.translate(_DIGITS_TO_ZERO):
+        return json.loads(raw, parse_constant=_reject_constant)
+    return json.loads(raw, parse_constant=_reject_constant, parse_int=_parse_int)
+
+
 def read_json_body() -> tuple[bytes, Any]:
     """The raw body and its JSON value; 415 for another media type, 400 for bad JSON."""
     mt = request.mimetype or ""
@@ -70,7 +94,7 @@ def read_json_body() -> tuple[bytes, Any]:
         )
     raw = request.get_data(cache=False)  # 413 beyond MAX_CONTENT_LENGTH
     try:
-        return raw, json.loads(raw, parse_constant=_reject_constant, parse_int=_parse_int)
+        return raw, _loads(raw)
     except (ValueError, RecursionError) as exc:
         raise BadRequest(f"the body is not valid JSON: {exc}", [Issue("", str(exc))]) from None
 
@@ -178,7 +202,8 @@ def make_blueprint(res: Resource) -> Blueprint:
         svc = services()
         store, settings = svc.store, svc.settings
         raw, body = read_json_body()
-        data = res.validate(body, settings)
+        checked = res.validate(body, settings)
+        data = checked.data
         key = idempotency_key()
         wait, is_async = preferences()
         who = tenant()
@@ -194,9 +219,16 @@ def make_blueprint(res: Resource) -> Blueprint:
         elif is_async:
             extra["Preference-Applied"] = "respond-async"
         rid = new_id()
+        budget = float(data["time_budget"])
         limits.admit(who, res.kind, rid)  # 429 before anything is stored
-        rid = store.create(res.kind, who, raw, meta, rid=rid)
-        if key is not None:
+        if key is None:  # record and queue entry in one transaction, one round trip
+
+            def enqueue(pipe: Any) -> None:
+                svc.queue.enqueue(res.kind, rid, budget, pipeline=pipe)
+
+            store.create(res.kind, who, raw, meta, rid=rid, work=checked.work, enqueue=enqueue)
+        else:
+            store.create(res.kind, who, raw, meta, rid=rid, work=checked.work)
             fingerprint = hashlib.sha256(raw).hexdigest()
             for _ in range(2):
                 bound = store.claim_idempotency(who, res.kind, key, fingerprint, rid)
@@ -216,28 +248,25 @@ def make_blueprint(res: Resource) -> Blueprint:
                 store.discard(res.kind, rid, who)
                 limits.release(who, res.kind, rid)
                 if wait and old.status not in FINISHED:
-                    store.wait(res.kind, old.id, wait)
-                    old = store.get(res.kind, old.id) or old
+                    old = store.wait_for(res.kind, old.id, wait) or old
                 code = 200 if old.status in FINISHED else 202
                 return _respond(old, res, code, {**extra, "Idempotent-Replayed": "true"})
             else:  # pragma: no cover - needs two expiries in a row
                 store.discard(res.kind, rid, who)
                 limits.release(who, res.kind, rid)
                 raise IdempotencyKeyInFlight("the key is being re-bound; retry in a moment")
-        try:
-            svc.queue.enqueue(res.kind, rid, float(data["time_budget"]))
-        except Exception:
-            store.finish(
-                res.kind,
-                rid,
-                "failed",
-                allowed_from="queued",
-                error=problem_dict(StoreUnavailable("the plan could not be queued")),
-            )
-            raise
-        if wait:
-            store.wait(res.kind, rid, wait)
-        rec = store.get(res.kind, rid)
+            try:
+                svc.queue.enqueue(res.kind, rid, budget)
+            except Exception:
+                store.finish(
+                    res.kind,
+                    rid,
+                    "failed",
+                    allowed_from="queued",
+                    error=problem_dict(StoreUnavailable("the plan could not be queued")),
+                )
+                raise
+        rec = store.wait_for(res.kind, rid, wait) if wait else store.get(res.kind, rid)
         if rec is None:  # pragma: no cover - expired within the request
             raise NotFound(f"{res.kind} {rid} vanished")
         # 201 only answers a wait (the spec's promise); without one a plan that a fast

@@ -6,17 +6,36 @@ from typing import Any
 
 from workers.planning import Instance
 
-from ..schemas import load_plan_request
+from .. import payload
+from ..schemas import load_plan_columns, load_plan_request
 from ..settings import Settings
-from .jobs import Resource, make_blueprint
+from .jobs import Resource, Validated, make_blueprint
+
+
+def read_plan(body: Any, settings: Settings) -> Validated:
+    """Limits and shape (marshmallow), then the core's semantic checks (422 either way).
+
+    A body whose jobs are all plain ``{id, duration[, group]}`` objects is read once, in
+    columns (``load_plan_columns`` then ``Instance.from_columns``), and the worker gets
+    those columns (``service/payload.py``); any other body, and every body with a
+    problem, takes the per-job path (``load_plan_request`` then
+    ``Instance.from_request``), whose verdicts and messages both paths share.
+    """
+    fast = load_plan_columns(body, settings)
+    if fast is None:
+        data = load_plan_request(body, settings)
+        Instance.from_request(data)
+        return Validated(data)
+    data, cols = fast
+    Instance.from_columns(body, cols.ids, cols.durations, cols.groups)
+    envelope = {k: v for k, v in body.items() if k != "jobs"}
+    return Validated(data, payload.encode(envelope, cols.ids, cols.durations, cols.groups))
 
 
 def validate_plan(body: Any, settings: Settings) -> dict[str, Any]:
-    """Limits and shape (marshmallow), then the core's semantic checks (422 either way)."""
-    data = load_plan_request(body, settings)
-    Instance.from_request(data)
-    return data
+    """:func:`read_plan`, the loaded body only."""
+    return read_plan(body, settings).data
 
 
-RESOURCE = Resource(kind="plan", path="/v1/plans", validate=validate_plan)
+RESOURCE = Resource(kind="plan", path="/v1/plans", validate=read_plan)
 blueprint = make_blueprint(RESOURCE)

@@ -16,9 +16,10 @@ from flask import Blueprint, Response
 from workers.planning.replan import read_events, remaining_work
 
 from ..problems import NotFinished, NotFound
+from ..store import new_id as new_record_id
 from . import services, tenant
 from .jobs import ID_RE, etag_of, read_json_body, status_document
-from .plans import RESOURCE, validate_plan
+from .plans import RESOURCE, read_plan
 
 blueprint = Blueprint("replan", __name__)
 
@@ -37,15 +38,21 @@ def replan(rid: str) -> Response:
         raise NotFinished(f"plan {rid} is {old.status}; only a finished plan can be re-planned")
     _, events = read_json_body()
     work = remaining_work(json.loads(raw_request), json.loads(old.result_json), read_events(events))
-    data = validate_plan(work.request, svc.settings)
+    checked = read_plan(work.request, svc.settings)
+    data = checked.data
     raw = json.dumps(work.request, allow_nan=False).encode()
     meta: dict[str, Any] = {
         "method": data.get("method"),
         "time_budget": repr(float(data["time_budget"])),
         "name": f"replan of {rid}",
     }
-    new_id = store.create("plan", who, raw, meta)
-    svc.queue.enqueue("plan", new_id, float(data["time_budget"]))
+    budget = float(data["time_budget"])
+    new_id = new_record_id()
+
+    def enqueue(pipe: Any) -> None:
+        svc.queue.enqueue("plan", new_id, budget, pipeline=pipe)
+
+    store.create("plan", who, raw, meta, rid=new_id, work=checked.work, enqueue=enqueue)
     rec = store.get("plan", new_id)
     if rec is None:  # pragma: no cover - expired within the request
         raise NotFound(f"plan {new_id} vanished")

@@ -13,7 +13,7 @@ from typing import Any
 
 from ..schemas import load_sizing_request
 from ..settings import Settings
-from .jobs import Resource, make_blueprint
+from .jobs import Resource, Validated, make_blueprint
 
 
 def validate_sizing(body: Any, settings: Settings) -> dict[str, Any]:
@@ -25,5 +25,10 @@ def validate_sizing(body: Any, settings: Settings) -> dict[str, Any]:
     return data
 
 
-RESOURCE = Resource(kind="sizing", path="/v1/sizings", validate=validate_sizing)
+def read_sizing(body: Any, settings: Settings) -> Validated:
+    """:func:`validate_sizing` for the job machinery (the worker reads the raw body)."""
+    return Validated(validate_sizing(body, settings))
+
+
+RESOURCE = Resource(kind="sizing", path="/v1/sizings", validate=read_sizing)
 blueprint = make_blueprint(RESOURCE)

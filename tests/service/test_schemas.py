@@ -138,3 +138,98 @@ def test_fast_job_list_agrees_with_the_reference_schema(jobs: list[Any]) -> None
         return None
 
     assert verdict(Fast()) == verdict(Reference())
+
+
+_plain_jobs = st.lists(
+    st.one_of(
+        st.fixed_dictionaries(
+            {
+                "id": st.one_of(st.text(min_size=1, max_size=3), st.sampled_from(["a", "a\n"])),
+                "duration": st.one_of(st.integers(0, 10**4), st.floats(0, 1e4)),
+            },
+            optional={"group": st.one_of(st.text(max_size=2), st.none())},
+        ),
+        st.fixed_dictionaries({"id": st.just("x"), "duration": _values}),
+        st.fixed_dictionaries({"id": _values, "duration": st.just(1)}),
+        _values,
+    ),
+    max_size=4,
+)
+_envelope = st.fixed_dictionaries(
+    {},
+    optional={
+        "node_count": st.one_of(st.integers(0, 5), st.sampled_from([2.0, 2.5, "2", True])),
+        "nodes": st.lists(
+            st.fixed_dictionaries({"id": st.sampled_from(["n", "m", ""])}), max_size=2
+        ),
+        "method": st.sampled_from(["longest_first", "list", "bogus"]),
+        "time_budget": st.sampled_from([0.5, 9.0, -1.0]),
+        "deadline": st.sampled_from([100.0, 0.0, None]),
+        "name": st.text(max_size=2),
+        "colour": st.just("red"),
+    },
+)
+
+
+def _verdict(run: Any) -> Any:
+    try:
+        data = run()
+    except (InvalidInstance, LimitExceeded) as exc:
+        return (type(exc).__name__, exc.detail, [(i.pointer, i.detail) for i in exc.issues])
+    return ("ok", data)
+
+
+@settings(max_examples=400, deadline=None)
+@given(_plain_jobs, _envelope)
+def test_read_once_in_columns_agrees_with_the_per_job_path(
+    jobs: list[Any], envelope: dict[str, Any]
+) -> None:
+    """``read_plan`` (jobs read in columns when they are all plain) gives exactly the verdict
+    of the per-job path it replaces, marshmallow's ``load_plan_request`` then the core's
+    ``Instance.from_request``: the same loaded body, or the same problem with the same
+    issues (pointers and messages, in order). When it stores a worker's copy, that copy
+    builds the very instance ``from_request`` builds from the body."""
+    from service import payload
+    from service.routes.plans import read_plan
+    from workers.planning import Instance
+
+    body = {**envelope, "jobs": jobs}
+
+    def reference() -> Any:
+        data = load_plan_request(body, S)
+        Instance.from_request(data)
+        return data
+
+    got = _verdict(lambda: read_plan(body, S).data)
+    assert got == _verdict(reference)
+    if got[0] == "ok":
+        work = read_plan(body, S).work
+        if work is not None:
+            cols = payload.decode(work)
+            inst = Instance.from_columns(cols.envelope, cols.ids, cols.durations, cols.groups)
+            ref = Instance.from_request(body)
+            assert inst.job_ids == ref.job_ids and inst.groups == ref.groups
+            assert inst.durations.tolist() == ref.durations.tolist()
+            assert (inst.nodes, inst.deadline, inst.resolution) == (
+                ref.nodes,
+                ref.deadline,
+                ref.resolution,
+            )
+
+
+def test_only_plain_jobs_get_a_worker_copy() -> None:
+    """Jobs that are all plain ``{id, duration[, group]}`` objects get the worker's copy in
+    columns; a job with another field (``requires``) sends the worker the raw body. Checked
+    against the body itself: the copy holds its ids, durations and groups in order."""
+    from service import payload
+    from service.routes.plans import read_plan
+
+    jobs = [{"id": "sh010_f1", "duration": 1840}, {"id": "sh010_f2", "duration": 2.5, "group": "g"}]
+    work = read_plan({"jobs": jobs, "node_count": 2}, S).work
+    assert work is not None
+    cols = payload.decode(work)
+    assert cols.ids == ["sh010_f1", "sh010_f2"] and cols.durations.tolist() == [1840.0, 2.5]
+    assert cols.groups == [None, "g"] and cols.envelope == {"node_count": 2}
+    tagged = [{"id": "a", "duration": 1, "requires": ["gpu"]}]
+    nodes = [{"id": "n", "provides": ["gpu"]}]
+    assert read_plan({"jobs": tagged, "nodes": nodes}, S).work is None

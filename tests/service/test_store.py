@@ -61,8 +61,9 @@ def test_expired_records_leave_the_listing(store: Store) -> None:
 
 
 def test_every_key_has_the_retention(store: Store) -> None:
-    """Records, requests, results and idempotency records expire after the retention."""
-    rid = store.create("plan", "local", b'{"jobs": []}', {})
+    """Records, requests, the worker's copies, results and idempotency records expire after
+    the retention."""
+    rid = store.create("plan", "local", b'{"jobs": []}', {}, work=b"copy")
     assert store.claim_idempotency("local", "plan", "k", "f", rid) is None
     assert 300 < store.conn.ttl(store.key("plan", rid)) <= 600  # queued: twice the retention
     store.mark_solving("plan", rid)
@@ -115,3 +116,40 @@ def test_wait_returns_when_finished(store: Store) -> None:
     store.mark_solving("plan", rid)
     store.finish("plan", rid, "failed", error={"title": "x"})
     assert store.wait("plan", rid, 5) == "failed"
+
+
+def test_claim_hands_over_the_copy_or_the_body(store: Store) -> None:
+    """A claim moves queued -> solving, counts the attempt and returns the worker's copy
+    when one was stored, else the raw body; a cancelled record cannot be claimed."""
+    a = store.create("plan", "local", b'{"raw": 1}', {"method": "list", "time_budget": "2.5"})
+    b = store.create("plan", "local", b'{"raw": 2}', {}, work=b"copy")
+    got = store.claim("plan", a)
+    assert got is not None and (got.body, got.columns) == (b'{"raw": 1}', False)
+    assert (got.method, got.time_budget) == ("list", 2.5)
+    assert store.status("plan", a) == "solving"
+    again = store.claim("plan", a)  # a crash retry claims a solving record once more
+    assert again is not None and store.conn.hget(store.key("plan", a), "attempts") == b"2"
+    got = store.claim("plan", b)
+    assert got is not None and (got.body, got.columns) == (b"copy", True)
+    c = store.create("plan", "local", b"{}", {})
+    store.request_cancel("plan", c)
+    assert store.claim("plan", c) is None and store.status("plan", c) == "cancelled"
+
+
+def test_finish_writes_all_or_nothing(store: Store) -> None:
+    """A refused finish writes nothing (no result, no count); an allowed one stores the
+    result, wakes a waiter and applies the counters exactly once."""
+    counters = ("t:metrics:plan", [("i", "finished:done", 1), ("f", "solve_seconds:sum", 0.25)])
+    rid = store.create("plan", "local", b"{}", {})
+    assert not store.finish("plan", rid, "done", result_json='{"a":1}', counters=counters)
+    assert store.conn.get(store.key("plan", rid, "result")) is None
+    assert store.conn.hgetall("t:metrics:plan") == {}
+    store.mark_solving("plan", rid)
+    assert store.finish("plan", rid, "done", result_json='{"a":1}', counters=counters)
+    assert not store.finish("plan", rid, "done", result_json='{"a":2}', counters=counters)
+    assert store.conn.hgetall("t:metrics:plan") == {
+        b"finished:done": b"1",
+        b"solve_seconds:sum": b"0.25",
+    }
+    rec = store.wait_for("plan", rid, 5)
+    assert rec is not None and rec.status == "done" and rec.result_json == '{"a":1}'

@@ -184,3 +184,14 @@ def test_fewer_jobs_than_nodes_is_optimal() -> None:
     res = solve(Instance.build([30, 10, 20], 5), "longest_first")
     assert res.makespan == 30 and res.proven_optimal and res.gap == 0
     assert res.extras["a_posteriori_ratio"] == 1.0
+
+
+def test_zero_length_jobs_leaving_a_node_empty() -> None:
+    """More jobs than nodes, but zero-length jobs leave a node empty (k = 0): the plan is
+    still made, the a-posteriori ratio falls back to Graham's 4/3 - 1/(3m) (Coffman-Sethi
+    needs at least one job per node), and it still holds against brute force."""
+    p, m = [0.1, 0, 0, 0, 5, 0.1], 5
+    res = solve(Instance.build(p, m), "longest_first")
+    assert res.extras["a_posteriori_ratio"] == pytest.approx(lpt_ratio(m))
+    opt = brute_force_makespan(p, m)
+    assert res.lower_bound <= opt <= res.makespan <= res.extras["a_posteriori_ratio"] * opt

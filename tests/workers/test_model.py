@@ -3,8 +3,11 @@
 from __future__ import annotations
 
 import math
+from typing import Any
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from workers.planning import Instance, InvalidInstance
 
@@ -72,3 +75,72 @@ def test_unicode_ids_are_accepted() -> None:
     """Printable unicode in ids is fine (studios name shots in many scripts)."""
     inst = Instance.from_request({"jobs": [{"id": "場面_07", "duration": 1}], "node_count": 1})
     assert inst.job_ids == ("場面_07",)
+
+
+def _outcome(build: Any) -> Any:
+    """What a reader makes of a body: the instance's fields, or the issues it raises."""
+    try:
+        inst = build()
+    except InvalidInstance as exc:
+        return ("invalid", exc.detail, [(i.pointer, i.detail) for i in exc.issues])
+    return (
+        inst.job_ids,
+        inst.durations.tolist(),
+        inst.nodes,
+        inst.groups,
+        inst.deadline,
+        inst.resolution,
+    )
+
+
+_ids = st.one_of(
+    st.text(max_size=4),
+    st.sampled_from(["a", "a", "b\u0007", "x" * 201, "場面"]),
+    st.integers(0, 3),
+)
+_durations = st.one_of(
+    st.integers(0, 10**4),
+    st.floats(-5, 1e4),
+    st.sampled_from([math.inf, math.nan, -1.0]),
+)
+_envelopes = st.fixed_dictionaries(
+    {},
+    optional={
+        "node_count": st.one_of(st.integers(-1, 4), st.sampled_from([1.5, "2", True])),
+        "nodes": st.lists(
+            st.fixed_dictionaries(
+                {"id": st.sampled_from(["n1", "n2", ""])},
+                optional={"speed": st.sampled_from([1.0, 2.0, 0.0]), "free_at": st.just(5.0)},
+            ),
+            max_size=3,
+        ),
+        "deadline": st.sampled_from([100.0, -5.0, math.inf]),
+        "resolution": st.sampled_from([1.0, 0.0, 0.5]),
+    },
+)
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    st.lists(st.tuples(_ids, _durations, st.one_of(st.none(), st.text(max_size=2))), max_size=5),
+    _envelopes,
+)
+def test_columns_read_exactly_like_the_request(
+    jobs: list[tuple[Any, Any, Any]], envelope: dict[str, Any]
+) -> None:
+    """``Instance.from_columns`` gives the instance, or the very issues (pointers and
+    messages, in order), that ``Instance.from_request`` gives for the same body with its
+    jobs written out as objects: the per-job reader is the reference, on random columns
+    with bad ids (empty, too long, control characters, duplicates, not strings), bad
+    durations (negative, NaN, infinite) and bad node lists, counts, deadlines."""
+    ids = [j[0] for j in jobs]
+    durations = [j[1] for j in jobs]
+    groups = [j[2] for j in jobs]
+    objects: list[dict[str, Any]] = [
+        {"id": i, "duration": d, **({"group": g} if g is not None else {})}
+        for i, d, g in zip(ids, durations, groups, strict=True)
+    ]
+    body = {**envelope, "jobs": objects}
+    want = _outcome(lambda: Instance.from_request(body))
+    got = _outcome(lambda: Instance.from_columns(envelope, ids, durations, groups))
+    assert got == want

@@ -5,6 +5,8 @@ from __future__ import annotations
 import json
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from workers.planning import Instance, solve
 
@@ -41,3 +43,44 @@ def test_zero_work_batch() -> None:
     """A batch of zero-length jobs has makespan 0, bound 0, gap 0 and is optimal."""
     d = solve(Instance.build([0.0, 0.0], 2), "longest_first").to_dict()
     assert d["makespan"] == 0 and d["gap"] == 0 and d["proven_optimal"]
+
+
+# positive: zero-length jobs are left out here, they are not about writing JSON
+_times = st.one_of(
+    st.integers(1, 10**6),  # whole seconds: the common case, written from ints
+    st.floats(1e-3, 1e6),
+    st.sampled_from([0.1, 1e15, 2.0**53, 9999999999999998.0, 1e16, 3e17]),
+)
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    st.lists(_times, min_size=1, max_size=60),
+    st.integers(1, 7),
+    st.sampled_from(["longest_first", "list"]),
+    st.text(max_size=4),
+)
+def test_json_text_is_the_dict_written_by_json_dumps(
+    durations: list[float], m: int, method: str, suffix: str
+) -> None:
+    """``to_json()`` is byte for byte ``json.dumps(to_dict())`` (compact separators), and so
+    parses back to the same dict: checked against the standard library's encoder on random
+    batches, whole and fractional times, times past 1e16 (where float repr turns to exponent
+    notation), and ids with quotes, backslashes and non-ASCII characters."""
+    ids = [f'j{i}"\\\u00e9{suffix}' for i in range(len(durations))]
+    res = solve(Instance.build(durations, m, job_ids=ids, deadline=5000), method)
+    reference = json.dumps(res.to_dict(), allow_nan=False, separators=(",", ":"))
+    assert res.to_json() == reference
+    extra = {"confidence": {"samples": 10}}
+    assert json.loads(res.to_json(extra)) == {**res.to_dict(), **extra}
+
+
+def test_json_text_refuses_non_finite_times_like_json_dumps() -> None:
+    """A non-finite time is not JSON: ``to_json`` raises ValueError, as ``json.dumps(...,
+    allow_nan=False)`` does (Python's json module is the reference)."""
+    res = solve(Instance.build([1.0, 2.0], 1), "longest_first")
+    res.schedule.start[0] = float("inf")
+    with pytest.raises(ValueError):
+        json.dumps(res.schedule.to_assignment(), allow_nan=False)
+    with pytest.raises(ValueError):
+        res.schedule.assignment_json()

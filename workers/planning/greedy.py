@@ -84,10 +84,13 @@ def a_posteriori_ratio(schedule: Schedule) -> tuple[float, int]:
     """The Coffman-Sethi bound for an LPT schedule, with the k it used.
 
     k is the least number of jobs on any node; the ratio is never reported above
-    Graham's 4/3 - 1/(3m). With no more jobs than nodes LPT is optimal (ratio 1).
+    Graham's 4/3 - 1/(3m), which is also what a node left empty gets (k = 0, possible when
+    jobs of zero length remain). With no more jobs than nodes LPT is optimal (ratio 1).
     """
     m = schedule.instance.m
     if schedule.instance.n <= m:
         return 1.0, 1
     k = int(schedule.jobs_per_node().min())
+    if k == 0:  # a node left empty (zero-length jobs): Coffman-Sethi needs k >= 1
+        return lpt_ratio(m), 0
     return min(lpt_ratio(m), coffman_sethi_ratio(k, m)), k

@@ -13,7 +13,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from live import hard_batch, serve
+from live import fine_grained, serve
 
 from service.cli import main
 
@@ -67,7 +67,7 @@ def test_progress_on_a_slow_solve(
     import json
 
     f = tmp_path / "hard.json"
-    f.write_text(json.dumps(hard_batch()))
+    f.write_text(json.dumps(fine_grained(seed=1)))
     code = main(
         ["submit", str(f), "--server", url, "--method", "exact", "--time-budget", "2", "--wait"]
     )

@@ -24,7 +24,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from live import serve
+from live import fine_grained, serve
 
 from service.demo import demo_files
 from service.settings import Settings
@@ -130,27 +130,6 @@ def lantern_hill(n: int = 200, m: int = 18) -> dict[str, Any]:
         for i in range(n)
     ]  # fmt: skip
     return {"jobs": jobs, "node_count": m, "deadline": 10_800, "name": "Lantern Hill sq010-030"}
-
-
-def fine_grained(seed: int, n: int = 40, m: int = 4) -> dict[str, Any]:
-    """An invented Lantern Hill batch of 40 fx caches (30 to 90 min, timed to the
-    microsecond) on 4 nodes. With durations this fine an even split is all but impossible,
-    so no lower bound reaches the optimum and an exact search can only prove optimality by
-    exhausting a multiway number-partitioning tree (Korf 2009, "Multi-way number
-    partitioning", IJCAI): it runs to its budget, improving its best plan as it goes."""
-    import numpy as np
-
-    rng = np.random.default_rng(seed)
-    durations = np.round(rng.uniform(1800, 5400, size=n), 6)
-    return {
-        "name": "Lantern Hill fx caches, timed to the microsecond",
-        "jobs": [
-            {"id": f"lh_fx_cache_{i:03d}", "duration": float(d), "group": f"fx{i % 4}"}
-            for i, d in enumerate(durations)
-        ],
-        "node_count": m,
-        "resolution": 1e-6,
-    }
 
 
 def shot(driver: Any, name: str, still: str = "true") -> Path:
