@@ -14,7 +14,6 @@ import logging
 import threading
 
 import fakeredis
-import numpy as np
 from rq import Queue
 from rq.exceptions import StopRequested
 from rq.serializers import JSONSerializer
@@ -87,14 +86,7 @@ def warm_up() -> None:
     solve(Instance.build([3.0, 2.0, 2.0, 1.0], 2), "longest_first")
     solve(Instance.build([3.0, 2.0, 2.0, 1.0], 2), "list")
     from workers.planning.binpacking import warm_up as warm_up_packing
-    from workers.planning.exact import decision
+    from workers.planning.exact import warm_up as warm_up_exact
 
     warm_up_packing()
-    # The exact search compiles its decision kernels only when it first needs them; a few
-    # small batches with few jobs per node get it there before any real plan is timed.
-    rng = np.random.default_rng(0)
-    for _ in range(6):
-        p = np.maximum(1, rng.normal(160, 40, size=40)).astype(int)
-        solve(Instance.build(p, 16), "exact", time_budget=0.3)
-        if getattr(decision.complete, "signatures", [None]):
-            break
+    warm_up_exact()  # every kernel of the exact search, LP bound included

@@ -303,3 +303,136 @@ def test_neighbourhood_search_keeps_a_valid_packing_and_never_worsens() -> None:
         assert node_of.min() >= 0 and node_of.max() < m
         assert loads.sum() == q.sum()
         assert 400 <= loads.max() <= before
+
+
+def test_best_split_is_the_best_subset_sum() -> None:
+    """The two-node split finds the largest subset sum not above the target (brute force
+    over all subsets), marks a subset with that sum, and the pure twin agrees."""
+    rng = np.random.default_rng(31)
+    for _ in range(60):
+        w = rng.integers(1, 300, size=int(rng.integers(1, 11))).astype(np.int64)
+        target = int(rng.integers(0, int(w.sum()) + 5))
+        want = max(
+            s
+            for k in range(w.size + 1)
+            for c in itertools.combinations(w.tolist(), k)
+            if (s := sum(c)) <= target
+        )
+        for fn in (improve.best_split, improve.best_split.py_func):
+            bits = np.empty((w.size + 1, target // 64 + 1), dtype=np.uint64)
+            take = np.zeros(w.size, dtype=np.uint8)
+            got = fn(w, target, bits, take)
+            assert got == want
+            assert int(w[take.astype(bool)].sum()) == want
+
+
+def test_pair_balance_keeps_every_job_and_never_worsens() -> None:
+    """The two-node balancing keeps a valid assignment, never raises the largest load, and
+    on many small jobs per node reaches the mean-load bound (planted: optimum u)."""
+    rng = np.random.default_rng(32)
+    for m in (3, 5, 8):
+        p = planted(rng, m, 5000, 12)
+        q = np.array(sorted(p, reverse=True), dtype=np.int64)
+        node_of = (np.arange(q.size) % m).astype(np.int32)
+        before = np.bincount(node_of, weights=q, minlength=m).max()
+        improve.pair_balance(q, node_of, m, 5000, 2.0)
+        loads = np.bincount(node_of, weights=q, minlength=m)
+        assert node_of.min() >= 0 and node_of.max() < m and loads.sum() == q.sum()
+        assert 5000 <= loads.max() <= before
+        slow = (np.arange(q.size) % m).astype(np.int32)
+        improve.pair_balance(q, slow, m, 5000, 2.0, compiled=False)
+        assert (slow == node_of).all()
+    # many jobs per node: the balancing reaches the optimum
+    assert loads.max() == 5000
+
+
+def test_lp_bound_proves_what_bin_completion_cannot_in_time() -> None:
+    """Nearly equal lengths, five per node (the Frangioni NU family): the LP bound refutes
+    the capacity below the optimum at once; the certificate's Farley duals re-check in
+    plain integers, and the optimum agrees with brute force on a smaller twin."""
+    from workers.planning.exact.lpbound import check_certificate
+
+    rng = np.random.default_rng(33)
+    p = [int(x) for x in rng.integers(90, 101, size=49)] + [10]
+    m = 10
+    res = solve_exact(Instance.build(p, m), Budget(5.0))
+    assert res.proven_optimal
+    d = res.to_dict()
+    ev = d["certificate"].get("search", {})
+    if ev.get("refuted_by", {}).get("rule") == "lp_farley":
+        cert = ev["refuted_by"]
+        assert check_certificate(cert, m, int(cert["capacity_ticks"]))
+        assert int(cert["capacity_ticks"]) == res.makespan - 1
+    small = [int(x) for x in rng.integers(90, 101, size=10)] + [10]
+    assert exact(small, 3).makespan == brute_force(small, 3)
+
+
+def test_hard_region_instances_are_proven_fast() -> None:
+    """n/m = 2.5 with normal lengths (the Lawrinenko hard region): proven optimal well
+    within a second, the bound never above the plan."""
+    for seed in range(3):
+        inst = Instance.build(hard_instance(40 + seed), 40)
+        t0 = time.perf_counter()
+        res = solve_exact(inst, Budget(5.0))
+        assert res.proven_optimal
+        assert time.perf_counter() - t0 < 5.0
+        assert res.lower_bound <= res.makespan
+
+
+@pytest.mark.parametrize("m,u", [(24, 997), (40, 600)])
+def test_few_jobs_per_node_planted_reach_and_prove_the_optimum(m: int, u: int) -> None:
+    """Three pieces per node (the hard region, optimum u by construction): proven optimal,
+    by the LP bound and its dives where the search alone would take long."""
+    rng = np.random.default_rng(m + u)
+    p = planted(rng, m, u, 3)
+    res = exact(p, m, seconds=5.0)
+    assert res.makespan == u
+    assert res.proven_optimal
+
+
+def test_real_durations_with_the_lp_keep_a_valid_bound() -> None:
+    """Real durations, few per node, resolution 0.01: the bound (ticks rounded down, LP
+    included) stays below the planted optimum and the makespan is measured on the true
+    durations."""
+    rng = np.random.default_rng(41)
+    m, u = 15, 700
+    p = [x / 100 + 0.004 for x in planted(rng, m, u, 3)]  # not multiples of the resolution
+    true_opt = u / 100 + 3 * 0.004  # every planted segment; also the mean load
+    inst = Instance.build(p, m, resolution=0.01)
+    res = solve_exact(inst, Budget(3.0))
+    assert res.lower_bound <= true_opt + 1e-9
+    loads = np.zeros(m)
+    np.add.at(loads, res.schedule.node_of, inst.durations)
+    assert res.makespan == pytest.approx(loads.max())
+    res.schedule.check()
+
+
+def test_constructions_stop_when_asked() -> None:
+    """MULTIFIT and LDM look at the clock: LDM gives up (None), MULTIFIT returns its best
+    packing so far, still a valid one."""
+    rng = np.random.default_rng(34)
+    q = np.sort(rng.integers(1, 1000, size=400))[::-1].astype(np.int64)
+    assert constructions.ldm(q, 20, should_stop=lambda: True) is None
+    packing = constructions.multifit(q, 20, should_stop=lambda: True)
+    assert packing is not None and packing.min() >= 0 and packing.max() < 20
+    full = constructions.multifit(q, 20)
+    assert full is not None
+    assert constructions.makespan_ticks(q, full, 20) <= constructions.makespan_ticks(q, packing, 20)
+
+
+def test_decision_search_tables_match_their_definitions() -> None:
+    """The Fenwick tree and the next-shorter index of the decision search (built with numpy)
+    answer as defined: prefix sums of the lengths, the first later index with a shorter job."""
+    rng = np.random.default_rng(35)
+    for _ in range(50):
+        q = np.sort(rng.integers(1, 6, size=int(rng.integers(1, 40))))[::-1].astype(np.int64)
+        s = decision.CompletionSearch(q, 3, int(q.sum()))
+        for k in range(q.size + 1):
+            got, i = 0, k
+            while i > 0:
+                got += int(s.fen[i])
+                i -= i & -i
+            assert got == int(q[:k].sum())
+        for i in range(q.size):
+            later = [j for j in range(i + 1, q.size) if q[j] < q[i]]
+            assert s.next_smaller[i] == (later[0] if later else q.size)

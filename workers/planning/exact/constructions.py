@@ -15,6 +15,7 @@ Both work on integer ticks and return the node of every job (indices into ``q``)
 from __future__ import annotations
 
 import heapq
+from collections.abc import Callable
 
 import numpy as np
 import numpy.typing as npt
@@ -32,30 +33,45 @@ LDM_MAX_WORK = 2_000_000
 def first_fit_decreasing(q: I64, m: int, cap: int, node_of: I32) -> bool:
     """FFD of ``q`` (longest first) into ``m`` bins of size ``cap``; fills ``node_of``.
 
-    Returns False as soon as a job fits in no bin.
+    Returns False as soon as a job fits in no bin. First fit finds the leftmost bin with
+    room in O(log m): a tree over the bins holds the largest room below each node (bins
+    not opened yet have all of ``cap``, so the leftmost of them is the next one to open).
     """
     n = q.shape[0]
-    load = np.zeros(m, dtype=np.int64)
-    used = 0
+    size = 1
+    while size < m:
+        size *= 2
+    room = np.full(2 * size, -1, dtype=np.int64)
+    for k in range(m):
+        room[size + k] = cap
+    for v in range(size - 1, 0, -1):
+        room[v] = max(room[2 * v], room[2 * v + 1])
     for j in range(n):
-        placed = False
-        for k in range(used):
-            if load[k] + q[j] <= cap:
-                load[k] += q[j]
-                node_of[j] = k
-                placed = True
-                break
-        if not placed:
-            if used == m or q[j] > cap:
-                return False
-            load[used] = q[j]
-            node_of[j] = used
-            used += 1
+        w = q[j]
+        if room[1] < w:
+            return False
+        v = 1
+        while v < size:
+            v = 2 * v if room[2 * v] >= w else 2 * v + 1
+        node_of[j] = v - size
+        room[v] -= w
+        v //= 2
+        while v >= 1:
+            room[v] = max(room[2 * v], room[2 * v + 1])
+            v //= 2
     return True
 
 
-def multifit(q: I64, m: int, iterations: int = 30, compiled: bool = True) -> I32 | None:
-    """MULTIFIT on ticks (``q`` longest first); the best FFD packing found, or None."""
+def multifit(
+    q: I64,
+    m: int,
+    iterations: int = 30,
+    compiled: bool = True,
+    should_stop: Callable[[], bool] | None = None,
+) -> I32 | None:
+    """MULTIFIT on ticks (``q`` longest first); the best FFD packing found, or None.
+
+    ``should_stop`` is asked between two halvings (the best packing so far is returned)."""
     ffd = first_fit_decreasing if compiled else first_fit_decreasing.py_func  # type: ignore[attr-defined]
     total = int(q.sum())
     lo = max(-(-total // m), int(q[0])) - 1  # FFD fails here or below (by the bounds)
@@ -67,7 +83,7 @@ def multifit(q: I64, m: int, iterations: int = 30, compiled: bool = True) -> I32
     else:  # pragma: no cover - FFD always fits at 2S/m (Coffman et al. 1978)
         return None
     for _ in range(iterations):
-        if hi - lo <= 1:
+        if hi - lo <= 1 or (should_stop is not None and should_stop()):
             break
         mid = (lo + hi) // 2
         if ffd(q, m, mid, node_of):
@@ -78,8 +94,9 @@ def multifit(q: I64, m: int, iterations: int = 30, compiled: bool = True) -> I32
     return best
 
 
-def ldm(q: I64, m: int) -> I32 | None:
-    """Largest differencing method (m-way Karmarkar-Karp); None when too large to run.
+def ldm(q: I64, m: int, should_stop: Callable[[], bool] | None = None) -> I32 | None:
+    """Largest differencing method (m-way Karmarkar-Karp); None when too large to run, or
+    when ``should_stop`` (asked every few merges) says so.
 
     A partition is m subset sums (sorted descending) and the subset each one is; subsets
     are kept as a merge forest (a new subset is the union of two older ones), so a merge
@@ -100,6 +117,8 @@ def ldm(q: I64, m: int) -> I32 | None:
     heapq.heapify(heap)
     tie = n
     while len(heap) > 1:
+        if should_stop is not None and tie % 64 == 0 and should_stop():
+            return None
         _, _, sa, ia = heapq.heappop(heap)
         _, _, sb, ib = heapq.heappop(heap)
         sums = sa + sb[::-1]  # largest of one with smallest of the other

@@ -425,21 +425,19 @@ class CompletionSearch:
         self.m = int(m)
         self.cap = int(cap)
         self.used = np.zeros(n, dtype=np.uint8)
+        # Fenwick tree over the job lengths: entry i holds the sum of the (i & -i) lengths
+        # ending at position i
+        idx = np.arange(1, n + 1, dtype=np.int64)
+        prefix = np.concatenate(([0], np.cumsum(self.q)))
         self.fen = np.zeros(n + 1, dtype=np.int64)
-        for i in range(1, n + 1):  # Fenwick tree over the job lengths
-            self.fen[i] += self.q[i - 1]
-            up = i + (i & -i)
-            if up <= n:
-                self.fen[up] += self.fen[i]
+        self.fen[1:] = prefix[idx] - prefix[idx - (idx & -idx)]
         self.asg = np.full(n, -1, dtype=np.int32)
         # first index after k with a shorter job
-        ns = np.empty(n, dtype=np.int32)
-        nxt = n
-        for i in range(n - 1, -1, -1):
-            if i + 1 < n and self.q[i + 1] < self.q[i]:
-                nxt = i + 1
-            ns[i] = nxt
-        self.next_smaller = ns
+        # (the start of the next run of equal lengths)
+        starts = np.flatnonzero(np.diff(self.q) != 0) + 1
+        self.next_smaller = np.append(starts, n)[
+            np.searchsorted(starts, np.arange(n), side="right")
+        ].astype(np.int32)
         rng = np.random.default_rng(seed)
         self.z1 = rng.integers(0, 1 << 62, size=n, dtype=np.int64)
         self.z2 = rng.integers(0, 1 << 62, size=n, dtype=np.int64)
