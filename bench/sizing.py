@@ -18,6 +18,9 @@ asked for beyond the answer. Run::
 
     python bench/sizing.py            # the full grid (a few minutes)
     python bench/sizing.py --quick    # 1,000 and 10,000 jobs only
+    python bench/sizing.py --mix triplets --sizes 100000   # one mix, one size
+
+With ``--mix`` or ``--sizes`` the summary lines count only the rows that ran.
 """
 
 from __future__ import annotations
@@ -83,13 +86,20 @@ def main() -> None:
     ap.add_argument("--seeds", type=int, default=5, help="batches per cell")
     ap.add_argument("--budget", type=float, default=1.0, help="time budget per sizing (s)")
     ap.add_argument("--out", help="write a markdown table here")
+    ap.add_argument("--mix", action="append", choices=MIXES, help="only this mix (may be repeated)")
+    ap.add_argument(
+        "--sizes", type=int, nargs="+", help="only these batch sizes (jobs), e.g. 100000"
+    )
     args = ap.parse_args()
     sizes = (1_000, 10_000) if args.quick else (1_000, 10_000, 100_000)
+    if args.sizes:
+        sizes = tuple(args.sizes)
+    mixes = tuple(args.mix) if args.mix else MIXES
     warm_up()  # compile the kernels (or load them from the cache) before timing
     rows = []
     first: dict[int, list[float]] = defaultdict(list)
     for n in sizes:
-        for mix in MIXES:
+        for mix in mixes:
             ratios = (3,) if mix == "triplets" else RATIOS
             for ratio in ratios:
                 res = []
@@ -163,6 +173,10 @@ def summary(rows: list[dict], first: dict[int, list[float]]) -> list[str]:
 
 def table(rows: list[dict], lines: list[str], args: argparse.Namespace) -> str:
     cmd = "python bench/sizing.py" + (" --quick" if args.quick else "")
+    for mix in args.mix or ():
+        cmd += f" --mix {mix}"
+    if args.sizes:
+        cmd += " --sizes " + " ".join(str(n) for n in args.sizes)
     if args.seeds != 5:
         cmd += f" --seeds {args.seeds}"
     if args.budget != 1.0:

@@ -15,6 +15,7 @@ from workers.planning.binpacking import (
     REFUTED,
     UNDECIDED,
     best_fit_decreasing,
+    bin_starts,
     first_fit_decreasing,
     min_bin_slack,
     pack_search,
@@ -178,6 +179,16 @@ def test_too_long_item_is_reported() -> None:
     assert pack_search(np.array([120, 10], dtype=np.int64), 100, 5, 100)[0] == REFUTED
 
 
+def test_bin_starts_hand_example() -> None:
+    """Hand-checkable: jobs run back to back on their node in the order given, each
+    starting when the one before it on that node ends (7 then 3 on node 0; 5, 4, 1 on
+    node 1)."""
+    sizes = np.array([7.0, 5.0, 4.0, 3.0, 1.0])
+    bins = np.array([0, 1, 1, 0, 1], dtype=np.int32)
+    start = bin_starts(np.arange(5, dtype=np.int64), bins, sizes, 2)
+    assert start.tolist() == [0.0, 0.0, 5.0, 7.0, 9.0]
+
+
 def test_ffd_hand_example() -> None:
     """Hand-checkable first fit decreasing (Johnson 1973 rule): items 7,5,4,3,1 in bins of 10
     go {7,3}, {5,4,1}: two bins, and the load sums are the running sums."""
@@ -210,6 +221,9 @@ def test_compiled_and_pure_python_agree(seed: int) -> None:
     fast_r = reduce_bins(q, int(cap), b_sorted, used, 2, 10**4, seed)
     slow_r = reduce_bins.py_func(q, int(cap), b_sorted, used, 2, 10**4, seed)
     assert fast_r[1] == slow_r[1] and np.array_equal(fast_r[0], slow_r[0])
+    order = np.argsort(b_sorted, kind="stable").astype(np.int64)
+    fast_t = bin_starts(order, b_sorted, sizes, used)
+    assert np.array_equal(fast_t, bin_starts.py_func(order, b_sorted, sizes, used))
     k = math.ceil(q.sum() / cap) + int(rng.integers(0, 2))
     fast_s = pack_search(q, int(cap), k, 5000)
     slow_s = pack_search.py_func(q, int(cap), k, 5000)

@@ -268,7 +268,7 @@ def test_ticks_round_the_safe_way() -> None:
 
 def test_search_closes_what_ffd_leaves_open() -> None:
     """Triplets (Falkenauer 1996 construction, three jobs filling each node exactly, so the
-    optimum is n / 3 by construction): with 15 jobs the exact search proves 5 nodes, where
+    optimum is n / 3 by construction): with 15 jobs the search proves 5 nodes, where
     first fit decreasing asks for more or equal."""
     rng = np.random.default_rng(11)
     a = rng.integers(380, 491, 5)
@@ -278,6 +278,44 @@ def test_search_closes_what_ffd_leaves_open() -> None:
     assert r.nodes_needed == 5 and r.proven_optimal
     assert r.upper_bounds["ffd"] >= 5
     assert r.to_dict()["ffd_excess"] == r.upper_bounds["ffd"] - 5
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_triplets_are_sized_to_the_total_work_bound(seed: int) -> None:
+    """Falkenauer's triplets (J. Heuristics 2, 1996): 900 jobs whose planted optimum runs
+    three jobs per node that fill the 6 h deadline to the second, so the optimum is 300
+    nodes by construction and equals the total-work bound. The sizing proves 300 within
+    its budget with a plan that meets the deadline; first fit decreasing needs more."""
+    rng = np.random.default_rng(40 + seed)
+    cap, k = 21_600, 300
+    a = rng.integers(int(0.38 * cap), int(0.49 * cap) + 1, k)
+    b = rng.integers(int(0.25 * cap), 1 + (cap - a) // 2)
+    d = np.concatenate([a, b, cap - a - b]).astype(float)
+    rng.shuffle(d)
+    r = size(d, float(cap), time_budget=5.0)
+    assert (r.nodes_needed, r.nodes_lower_bound, r.bound_source) == (k, k, "total_work")
+    assert r.proven_optimal and r.stop_reason == "proved_optimal"
+    assert r.upper_bounds["ffd"] > k
+    check_plan(r, d, 1.0, float(cap))
+
+
+def test_planted_cuts_with_real_durations_and_speed() -> None:
+    """Planted instance (../shared/references.md section 2.5: 40 nodes of a 2 h deadline on a
+    speed-1.5 node, i.e. 10 800 s of speed-1 work each, cut at random points into 2 to 5
+    jobs, then jobs shortened by a few seconds): the optimum is 40 by construction (the
+    cut nodes hold the jobs; the total still needs 40). Durations are not whole seconds
+    at resolution 0.5 s; the sizing proves 40 and its plan meets the deadline on the true
+    durations."""
+    rng = np.random.default_rng(7)
+    work = 10_800.0
+    jobs: list[float] = []
+    for _ in range(40):
+        cuts = np.sort(rng.uniform(60.0, work - 60.0, int(rng.integers(1, 5))))
+        jobs.extend(np.diff(np.concatenate(([0.0], cuts, [work]))).tolist())
+    d = np.array(jobs) - rng.uniform(0.0, 3.0, len(jobs))
+    r = size(d, 7200.0, Node("n", speed=1.5), time_budget=5.0, resolution=0.5)
+    assert r.nodes_needed == r.nodes_lower_bound == 40 and r.proven_optimal
+    check_plan(r, d.tolist(), 1.5, 7200.0)
 
 
 def test_progress_and_cancel() -> None:

@@ -4,7 +4,9 @@ With identical nodes this is one-dimensional bin packing: every node is a bin wh
 capacity is the deadline, every job an item of ``duration / speed`` seconds
 (``../shared/references.md`` section 5). The answer is an interval, proven from both
 sides: ``nodes_needed`` comes with a plan that meets the deadline (first fit decreasing,
-best fit decreasing, or the exact search), and ``nodes_lower_bound`` with the rule that
+best fit decreasing, the perfect packing search of :mod:`workers.planning.perfect` at
+the lower bound, minimum bin slack, the local search or the exact search), and
+``nodes_lower_bound`` with the rule that
 proves no plan with fewer nodes exists (``total_work`` = the work over the deadline
 rounded up; Martello-Toth ``L2``; the ``cardinality`` bound; ``search`` when the exact
 search refuted a count). When they meet, the answer is proven optimal.
@@ -17,8 +19,9 @@ measured in ticks of ``resolution`` seconds of a speed-1 node; a node can do
   in real seconds has a tick sum that is an integer no larger than its real work over
   the resolution, so no larger than C: every real plan is a packing of the rounded
   items, and a bound on those bins is a bound for the real jobs;
-* packings found by the exact search use every job *rounded up*: their real work is at
-  most their tick sum, at most C, so they fit in real seconds too;
+* packings found by the perfect packing, local and exact searches use every job
+  *rounded up*: their real work is at most their tick sum, at most C, so they fit in
+  real seconds too;
 * every plan returned is checked again on the real durations with the arithmetic of
   :class:`workers.planning.result.Schedule` (``start + duration / speed``), so its
   makespan is at most the deadline as the plan itself reports it.
@@ -45,6 +48,7 @@ from .binpacking import (
     FOUND,
     REFUTED,
     best_fit_decreasing,
+    bin_starts,
     first_fit_decreasing,
     min_bin_slack,
     pack_search,
@@ -54,6 +58,7 @@ from .budget import Budget
 from .errors import Infeasible, InvalidInstance, Issue
 from .kernels import least_loaded
 from .model import Instance, Node
+from .perfect import perfect_fill
 from .result import Schedule
 
 #: billing granularities and their unit in seconds
@@ -78,6 +83,12 @@ MBS_NODES, MBS_WORK, MBS_PAIR_WORK = 1000, 4_000_000, 30_000_000
 LOCAL_SHARE, LOCAL_FREE_BINS, LOCAL_WORK = 0.5, 3, 2_000_000
 #: share of the time left that the search may use (the curve comes after it)
 SEARCH_SHARE = 0.85
+#: share of the time left that the perfect packing search (workers.planning.perfect) may
+#: use at the lower bound before minimum bin slack and the search (it gives up sooner
+#: when the bound looks out of reach)
+FILL_SHARE = 0.9
+#: ... for batches of more than this many jobs (below, the exact search is the stronger)
+FILL_MIN_JOBS = 60
 #: the exact search runs for lower bounds up to this many nodes (a node of it costs O(bins))
 EXACT_MAX_BINS = 1000
 #: best fit decreasing runs for batches up to this many jobs (its bin moves grow with n)
@@ -607,16 +618,20 @@ def _search(
     return info
 
 
-def _starts(bin_of: npt.NDArray[np.int32], times: F64, m: int) -> F64:
-    """Start times when each node runs its jobs longest first, back to back."""
-    order = np.lexsort((-times, bin_of))
-    start = np.empty(times.size, dtype=np.float64)
-    loads = np.zeros(m, dtype=np.float64)
-    for j in order.tolist():
-        b = int(bin_of[j])
-        start[j] = loads[b]
-        loads[b] = loads[b] + times[j]
-    return start
+def _starts(
+    bin_of: npt.NDArray[np.int32],
+    times: F64,
+    m: int,
+    order: npt.NDArray[np.intp] | None = None,
+) -> F64:
+    """Start times when each node runs its jobs longest first, back to back.
+
+    ``order`` (all jobs longest first, ties by index) may be given to save the sort:
+    visiting the jobs in it, each node sees its own jobs longest first.
+    """
+    if order is None:
+        order = np.argsort(-times, kind="stable")
+    return bin_starts(order.astype(np.int64), bin_of.astype(np.int32), times, m)
 
 
 def _loads_ok(
@@ -683,7 +698,29 @@ def _size(
             state.upper, state.method = int(n_bfd), "bfd"
             state.bin_of, state.start = plan_from(b_bfd, s_bfd)
             report()
-    if state.lower < state.upper and time_budget > 0:
+    if state.lower < state.upper and time_budget > 0 and base.n > FILL_MIN_JOBS:
+        # a packing at the lower bound itself, when the bound is tight (issue 5)
+        fill_budget = budget.child(FILL_SHARE)
+        fill = perfect_fill(
+            q_hi,
+            cap,
+            state.lower,
+            fill_budget.remaining(),
+            should_stop=fill_budget.expired,
+            order=order,  # longest first by time is longest first in ticks too
+        )
+        cancelled = fill_budget.cancelled
+        if fill is not None:
+            upper_bounds["perfect_fill"] = fill.bins
+            evidence["perfect_fill"] = {"attempts": fill.attempts, "moves": fill.moves}
+            if fill.bins < state.upper:
+                bin_of = fill.bin_of.astype(np.int32)
+                start = _starts(bin_of, times, fill.bins, order)
+                if _loads_ok(bin_of, start, times, deadline, fill.bins):
+                    state.upper, state.method = fill.bins, "perfect_fill"
+                    state.bin_of, state.start = bin_of, start
+                    report()
+    if state.lower < state.upper and time_budget > 0 and not cancelled:
         bins = max(1, state.lower)
         scale = min(1.0, budget.remaining())  # a second's worth of work at most
         nodes_per_bin = min(MBS_NODES, max(20, int(scale * MBS_WORK) // bins))
@@ -694,7 +731,7 @@ def _size(
             state.upper, state.method = int(n_mbs), "mbs"
             state.bin_of, state.start = plan_from(b_mbs, s_mbs)
             report()
-    if state.lower < state.upper and time_budget > 0:
+    if state.lower < state.upper and time_budget > 0 and not cancelled:
         search_budget = budget.child(SEARCH_SHARE)  # the rest is for the curve
         info = _search(state, q_lo, q_hi, cap, times, deadline, search_budget, report)
         evidence["search"] = info
