@@ -15,10 +15,14 @@ operator's: it may read and cancel any tenant's record by id, and list another t
 records with ``?tenant=<name>``; it submits as its own tenant.
 
 Without a keys file the service is keyless (the embedded demo): every request is the
-default tenant, and only callers on a loopback address are served; others get 401.
+default tenant, and only callers on a loopback address are served; others get 401. So a
+service reachable from other machines needs a keys file: ``spanwright serve`` and
+``deploy/gunicorn.conf.py`` refuse a non-loopback bind without one.
 
-No key is needed for ``/healthz``, ``/readyz``, ``/openapi.json`` and ``/problems/{kind}``
-(probes and documentation).
+No key is needed for ``/healthz``, ``/readyz``, ``/openapi.json``, ``/problems/{kind}``
+(probes and documentation) and ``/metrics`` (Prometheus scrapes: counts and timings by
+kind, status, route and queue, never a tenant name or a record id). Keep the service's
+port on a private network, or keep these paths off a public ingress.
 """
 
 from __future__ import annotations
@@ -38,8 +42,8 @@ from workers.planning.errors import Issue
 from .problems import Unauthorized
 from .settings import Settings, SettingsError
 
-#: paths served without a key (probes and documentation)
-OPEN_PATHS = ("/healthz", "/readyz", "/openapi.json")
+#: paths served without a key (probes, documentation, the Prometheus scrape)
+OPEN_PATHS = ("/healthz", "/readyz", "/openapi.json", "/metrics")
 OPEN_PREFIXES = ("/problems/",)
 _TENANT_RE = re.compile(r"[A-Za-z0-9_.-]{1,64}")
 _HEX_RE = re.compile(r"[0-9a-f]{64}")
@@ -92,7 +96,12 @@ class KeyRing:
                 continue
             entries.append((parts[0], parts[1].lower(), len(parts) == 3))
         if issues:
-            raise SettingsError(f"{source}: {len(issues)} unreadable line(s)", issues)
+            lines = ", ".join(i.pointer.rsplit(":", 1)[1] for i in issues)
+            raise SettingsError(
+                f"{source}: unreadable line(s) {lines}; each line must be "
+                "`<tenant> <sha256 hex of the key> [admin]`",
+                issues,
+            )
         return cls(entries)
 
     @classmethod

@@ -446,9 +446,12 @@ def init_metrics(
     http = HttpMetrics.build(multiprocess_dir)
     collector = RedisCollector(connection, settings)
 
-    @app.before_request
     def _start_timer() -> None:
         g.spanwright_t0 = time.perf_counter()
+
+    # first of all before-request hooks, so requests refused by authentication (401) or a
+    # rate limit (429) are timed and counted too
+    app.before_request_funcs.setdefault(None, []).insert(0, _start_timer)
 
     @app.after_request
     def _observe(resp: Response) -> Response:

@@ -2,12 +2,14 @@
 
 The task is ``workers.tasks.run_job(kind=, record_id=, prefix=, retention=,
 progress_interval=)``; everything it needs travels in its (JSON) arguments, so a worker
-process needs nothing but the Redis URL. ``job_timeout`` is the time budget plus a margin:
-the solver stops itself on its budget, the timeout only catches a hung or runaway job.
-``Retry(max=1)`` re-runs a job once after a crash (a killed worker, an out-of-memory horse);
-the solver is deterministic, so a re-run gives the same plan. :meth:`JobQueue.reap`
-(run by the API at most every 2 s) hands back jobs of killed workers within seconds
-instead of RQ's ~90 s entry expiry plus a worker's maintenance run.
+process needs nothing but the Redis URL. ``job_timeout`` is the time budget plus a margin
+(plus the simulation a request asks for, :func:`simulation_allowance`): the solver stops
+itself on its budget, the timeout only catches a hung or runaway job. ``Retry(max=1)``
+re-runs a job once after a crash (a killed worker, an out-of-memory horse); the solver is
+deterministic, so a re-run gives the same plan. :meth:`JobQueue.reap` (run by the API at
+most every 2 s) hands back jobs of killed workers on its host within seconds; elsewhere a
+dead worker's entry in the started registry lapses once its heartbeat stops (at most about
+70 s, ``service/worker.py``) and the same clean-up re-queues it.
 """
 
 from __future__ import annotations
@@ -16,6 +18,7 @@ import math
 import os
 import socket
 import time
+from typing import Any
 
 import redis
 from redis.client import Pipeline
@@ -30,6 +33,36 @@ from .settings import Settings
 
 TASK = "workers.tasks.run_job"
 ON_FAILURE = "workers.tasks.on_failure"
+
+
+#: seconds one Monte-Carlo draw (one job in one sample) may cost, generously: measured
+#: about 10 ns static and 45 ns dynamic on a 2-core machine (bench/RESULTS.md), times 4
+SECONDS_PER_DRAW = 2e-7
+#: node counts a sizing "to a confidence" may simulate (gallop, bisect, step down)
+CONFIDENCE_COUNTS = 40
+
+
+def simulation_allowance(kind: str, body: Any) -> float:
+    """Seconds of Monte-Carlo simulation a request asks for on top of its time budget.
+
+    The confidence block (``workers/planning/confidence.py``) runs after the solve and
+    outside the budget: the static and the dynamic policy over ``confidence_samples``
+    samples of every job, and for a sizing with a ``confidence`` target, up to
+    :data:`CONFIDENCE_COUNTS` node counts more. The job timeout, a crash guard only, must
+    not cut that work short.
+    """
+    if not isinstance(body, dict) or not isinstance(body.get("jobs"), list):
+        return 0.0
+    jobs = body["jobs"]
+    asked = any(k in body for k in ("spread", "confidence_samples", "confidence")) or any(
+        isinstance(j, dict) and "duration_p90" in j for j in jobs
+    )
+    if not asked:
+        return 0.0
+    samples = body.get("confidence_samples", 1000)
+    samples = samples if isinstance(samples, int) and samples > 0 else 1000
+    runs = 2 + (CONFIDENCE_COUNTS if kind == "sizing" and "confidence" in body else 0)
+    return samples * len(jobs) * runs * SECONDS_PER_DRAW
 
 
 def rq_job_id(kind: str, rid: str) -> str:
@@ -47,10 +80,17 @@ class JobQueue:
         self._push_back = conn.register_script(_PUSH_BACK)
 
     def enqueue(
-        self, kind: str, rid: str, time_budget: float, pipeline: Pipeline | None = None
+        self,
+        kind: str,
+        rid: str,
+        time_budget: float,
+        pipeline: Pipeline | None = None,
+        extra_seconds: float = 0.0,
     ) -> None:
         """Queue the job of record ``rid``; with ``pipeline`` (in a transaction) RQ only adds
-        its writes to it (RQ's documented ``pipeline`` argument), the caller executes."""
+        its writes to it (RQ's documented ``pipeline`` argument), the caller executes.
+        ``extra_seconds`` is work the request asks for beyond its budget (see
+        :func:`simulation_allowance`), added to the crash-guard timeout."""
         s = self.settings
         self.queue.enqueue(
             TASK,
@@ -62,7 +102,7 @@ class JobQueue:
                 "progress_interval": s.progress_interval,
             },
             job_id=rq_job_id(kind, rid),
-            job_timeout=math.ceil(time_budget) + s.job_timeout_margin,
+            job_timeout=math.ceil(time_budget + extra_seconds) + s.job_timeout_margin,
             retry=Retry(max=1),
             result_ttl=0,  # the result lives under our own keys with our own retention
             failure_ttl=s.retention,
@@ -81,8 +121,8 @@ class JobQueue:
     def reap(self) -> int:
         """Hand jobs of dead workers back to RQ now; returns how many were found.
 
-        RQ notices a killed worker only when its started-registry entry expires (about
-        ``min(job_timeout, 30) + 60`` s after the job started) *and* a worker then runs its
+        RQ notices a killed worker only when its started-registry entry expires (its last
+        heartbeat plus 60 s; ``LeanWorker`` beats every 10 s) *and* a worker then runs its
         maintenance (an idle worker may sit in a blocking dequeue for minutes). Here a
         worker on this host whose process is gone (``kill(pid, 0)`` fails) has its entries
         expired at once; then ``StartedJobRegistry.cleanup()`` runs RQ's own abandoned-job

@@ -23,6 +23,7 @@ import numpy as np
 import numpy.typing as npt
 from marshmallow import RAISE, Schema, ValidationError, fields, validate, validates_schema
 
+from workers.planning.confidence import SpreadRequest
 from workers.planning.errors import InvalidInstance, Issue
 from workers.planning.model import MAX_ID_LENGTH
 from workers.planning.solve import METHODS
@@ -217,6 +218,15 @@ class SizingRequestSchema(StrictSchema):
     billing = fields.String(validate=validate.OneOf(("second", "minute", "hour")))
     curve_nodes = fields.List(WholeNumber(validate=validate.Range(min=1, max=10**6)))
     resolution = FiniteNumber(validate=validate.Range(*RESOLUTIONS))
+    # estimate spread: the plan's own fields (same rules and limits; marshmallow copies
+    # declared fields into every schema instance, so sharing them is safe)
+    spread = PlanRequestSchema._declared_fields["spread"]
+    confidence_samples = PlanRequestSchema._declared_fields["confidence_samples"]
+    confidence_seed = PlanRequestSchema._declared_fields["confidence_seed"]
+    #: size to this confidence q: the fewest nodes with P(meet deadline) >= q
+    confidence = FiniteNumber(
+        validate=validate.Range(0, 1, min_inclusive=False, max_inclusive=False)
+    )
 
 
 SIZING_SCHEMA = SizingRequestSchema()
@@ -379,8 +389,17 @@ def load_plan_columns(body: Any, settings: Settings) -> tuple[dict[str, Any], Jo
 
 
 def load_sizing_request(body: Any, settings: Settings) -> dict[str, Any]:
-    """As :func:`load_plan_request`, for ``POST /v1/sizings``."""
-    return _load(SIZING_SCHEMA, body, settings)
+    """As :func:`load_plan_request`, for ``POST /v1/sizings``.
+
+    With spread inputs, also the core's checks of them that need no sampling
+    (``SpreadRequest.check_body``: a target ``confidence`` the sample count cannot show,
+    or no node count can reach, is a 422 here rather than a failed sizing later).
+    """
+    data = _load(SIZING_SCHEMA, body, settings)
+    asked = SpreadRequest.from_body(data)
+    if asked is not None:
+        asked.check_body(data)
+    return data
 
 
 def _load(schema: Schema, body: Any, settings: Settings) -> dict[str, Any]:
@@ -395,4 +414,44 @@ def _load(schema: Schema, body: Any, settings: Settings) -> dict[str, Any]:
         issues = messages_to_issues(exc.messages)
         raise InvalidInstance(f"{len(issues)} problem(s) in the request", issues) from None
     data.setdefault("time_budget", settings.default_time_budget)
+    return data
+
+
+# -- ReplanRequest: the events body of POST /v1/plans/{id}/replan ------------------------
+
+
+class RunningJobSchema(StrictSchema):
+    """A job running now: its id, its node and when it started (original plan time)."""
+
+    job = _ident()
+    node = _ident()
+    started_at = FiniteNumber(required=True, validate=_seconds())
+
+
+class ReplanRequestSchema(StrictSchema):
+    """The body of ``POST /v1/plans/{id}/replan`` (the core's ``read_events`` then checks
+    what needs the plan: ``started_at`` not after ``elapsed``, ids listed once)."""
+
+    elapsed = FiniteNumber(required=True, validate=_seconds())
+    finished = fields.List(_ident())
+    running = fields.List(fields.Nested(RunningJobSchema))
+    lost_nodes = fields.List(_ident())
+    added_nodes = fields.List(fields.Nested(NodeSchema))
+    method = fields.String(validate=validate.OneOf(METHODS))
+    time_budget = FiniteNumber(validate=validate.Range(min=0))
+
+
+REPLAN_SCHEMA = ReplanRequestSchema()
+
+
+def load_replan_request(body: Any) -> dict[str, Any]:
+    """The shape of an events body: unknown fields, wrong types and out-of-range values are
+    refused with :class:`InvalidInstance` (422), one JSON Pointer per problem."""
+    if not isinstance(body, Mapping):
+        raise InvalidInstance("the events body must be a JSON object", [Issue("", "not an object")])
+    try:
+        data: dict[str, Any] = REPLAN_SCHEMA.load(body)
+    except ValidationError as exc:
+        issues = messages_to_issues(exc.messages)
+        raise InvalidInstance(f"{len(issues)} problem(s) in the events", issues) from None
     return data

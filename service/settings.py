@@ -7,10 +7,11 @@ process and the result is passed down explicitly: no module reads the environmen
 
 from __future__ import annotations
 
+import logging
 import math
 import re
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields
 from typing import Any
 
 from workers.planning.errors import Issue, SpanwrightError
@@ -68,6 +69,16 @@ class Settings:
     rate_limit: int = 1_200
     #: length of the request-rate window in seconds (a fixed window)
     rate_window: int = 60
+    #: Redis Sentinels, ``host1:26379,host2:26379``; set, they replace ``REDIS_URL``
+    sentinels: str = ""
+    #: the master name the Sentinels monitor (required with ``sentinels``)
+    sentinel_master: str = ""
+    #: database number on the Sentinel-named master
+    sentinel_db: int = 0
+    #: password of the Redis data nodes behind the Sentinels; never logged, not in repr
+    sentinel_password: str = field(default="", repr=False)
+    #: level of the JSON logs (``DEBUG``, ``INFO``, ``WARNING``, ``ERROR``, ``CRITICAL``)
+    log_level: str = "INFO"
 
     def __post_init__(self) -> None:
         issues: list[Issue] = []
@@ -78,8 +89,28 @@ class Settings:
         for f in fields(self):
             v = getattr(self, f.name)
             number = isinstance(v, int | float) and not isinstance(v, bool)
-            if number and not (math.isfinite(v) and v > 0):
+            if f.name in _MAY_BE_ZERO:
+                if number and not v >= 0:
+                    issues.append(Issue(PREFIX + f.name.upper(), "must be a whole number >= 0"))
+            elif number and not (math.isfinite(v) and v > 0):
                 issues.append(Issue(PREFIX + f.name.upper(), "must be a finite number > 0"))
+        if self.sentinels:
+            try:
+                if not parse_sentinels(self.sentinels):
+                    issues.append(Issue("SPANWRIGHT_SENTINELS", "at least one host:port"))
+            except SettingsError as exc:
+                issues.extend(exc.issues)
+            if not self.sentinel_master:
+                issues.append(
+                    Issue(
+                        "SPANWRIGHT_SENTINEL_MASTER",
+                        "required with SPANWRIGHT_SENTINELS: the master name the Sentinels monitor",
+                    )
+                )
+        if not isinstance(logging.getLevelName(self.log_level.upper()), int):
+            issues.append(
+                Issue("SPANWRIGHT_LOG_LEVEL", "one of DEBUG, INFO, WARNING, ERROR, CRITICAL")
+            )
         if self.default_time_budget > self.max_time_budget:
             issues.append(
                 Issue(
@@ -116,6 +147,31 @@ class Settings:
     def embedded(self) -> bool:
         """True when no Redis URL is set: API and worker share an in-process store."""
         return self.redis_url is None
+
+    @property
+    def sentinel_hosts(self) -> list[tuple[str, int]]:
+        """``sentinels`` as ``[(host, port), ...]`` (empty when Sentinel is not used)."""
+        return parse_sentinels(self.sentinels)
+
+
+#: numeric settings for which 0 is a meaningful value
+_MAY_BE_ZERO = frozenset({"sentinel_db"})
+
+
+def parse_sentinels(raw: str) -> list[tuple[str, int]]:
+    """``"h1:26379,h2:26379"`` -> ``[("h1", 26379), ("h2", 26379)]``; bad parts raise."""
+    out: list[tuple[str, int]] = []
+    for part in (p.strip() for p in raw.split(",")):
+        if not part:
+            continue
+        host, sep, port = part.rpartition(":")
+        if not sep or not host or not port.isdigit():
+            raise SettingsError(
+                f"SPANWRIGHT_SENTINELS: {part!r} is not host:port",
+                [Issue("SPANWRIGHT_SENTINELS", "comma-separated host:port pairs")],
+            )
+        out.append((host.strip("[]"), int(port)))
+    return out
 
 
 def _int(raw: str) -> int:

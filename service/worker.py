@@ -17,25 +17,111 @@ retry and callback untouched) and writes them in fewer round trips:
 * the worker state is not rewritten when it has not changed, and the suspension flag
   (``rq suspend``) is read at most every :attr:`LeanWorker.suspension_check_every` seconds.
 
+One thing is added, for crash recovery across hosts. RQ's ``SimpleWorker`` cannot beat
+while its job runs in the same thread, so it gives the job's started-registry entry the
+whole job timeout + 60 s to live, and a worker killed on another host is only noticed
+when that entry expires: up to ``time_budget + SPANWRIGHT_JOB_TIMEOUT_MARGIN + 60`` s
+(150 s for a 60 s budget). :class:`LeanWorker` beats like RQ's forking ``Worker`` does: a
+daemon thread refreshes the running job's entry every ``job_monitoring_interval`` seconds
+(RQ's setting; :data:`JOB_MONITORING_INTERVAL` by default) with a time to live of that
+interval + 60 s (RQ's ``BaseWorker.get_heartbeat_ttl``). So a dead worker's entry expires
+at most :data:`JOB_MONITORING_INTERVAL` + 60 = 70 s after its death, whatever the budget;
+jobs shorter than the interval cost no extra write.
+
 With our task's two round trips (``Store.claim``, ``Store.finish``) a plan costs the
 worker six: dequeue, fetch, start, claim, finish, end.
 """
 
 from __future__ import annotations
 
+import logging
+import threading
 import time
 from datetime import timedelta
 from typing import Any
 
+import redis
 from redis.client import Pipeline
 from rq import SimpleWorker
+from rq.exceptions import StopRequested
 from rq.executions import Execution
 from rq.job import Job, JobStatus
 from rq.queue import Queue
 from rq.registry import StartedJobRegistry
 from rq.results import Result
 from rq.utils import now
-from rq.worker import WorkerStatus
+from rq.worker import BaseWorker, WorkerStatus
+
+log = logging.getLogger("spanwright.worker")
+
+#: seconds between heartbeats of a running job (RQ's ``job_monitoring_interval``): a
+#: killed worker's job is seen abandoned at most this + 60 s after the kill
+JOB_MONITORING_INTERVAL = 10
+
+
+class Pulse:
+    """Refreshes the heartbeat of the job a worker is running, from one daemon thread.
+
+    :meth:`start` and :meth:`stop` bracket a job (no Redis call: a job shorter than the
+    interval costs nothing); while a job runs, the thread calls the worker's
+    ``maintain_heartbeats`` (RQ's, as its forking worker does) every ``interval`` seconds.
+    A beat holds the lock, so once :meth:`stop` returns no beat of that job follows; RQ's
+    heartbeat writes only update entries that exist (``ZADD XX``), so a beat racing the
+    job's end cannot bring it back.
+    """
+
+    def __init__(self, worker: BaseWorker, interval: float) -> None:
+        self.worker = worker
+        self.interval = interval
+        self._cv = threading.Condition()
+        self._running: tuple[Job, Execution] | None = None
+        self._generation = 0
+        self._thread: threading.Thread | None = None
+        self._closed = False
+
+    def start(self, job: Job, execution: Execution) -> None:
+        with self._cv:
+            self._running = (job, execution)
+            self._generation += 1
+            if self._thread is None:
+                self._thread = threading.Thread(
+                    target=self._run, name=f"heartbeat {self.worker.name}", daemon=True
+                )
+                self._thread.start()
+            self._cv.notify_all()
+
+    def stop(self) -> None:
+        with self._cv:
+            self._running = None
+            self._generation += 1
+            self._cv.notify_all()
+
+    def close(self) -> None:
+        """End the thread (the worker is shutting down)."""
+        with self._cv:
+            self._closed = True
+            self._running = None
+            self._cv.notify_all()
+        if self._thread is not None:
+            self._thread.join(timeout=5)
+
+    def _run(self) -> None:
+        with self._cv:
+            while not self._closed:
+                if self._running is None:
+                    self._cv.wait()
+                    continue
+                generation = self._generation
+                self._cv.wait(timeout=self.interval)
+                if self._running is None or self._generation != generation:
+                    continue  # the job ended (or another began) meanwhile
+                job, execution = self._running
+                try:
+                    self.worker.maintain_heartbeats(job, execution)
+                except (redis.RedisError, StopRequested) as exc:
+                    # Redis away: the entry may expire and the job be handed back, which
+                    # RQ's retry and the deterministic solver make safe; stopping: done
+                    log.warning("heartbeat of %s not written: %r", job.id, exc)
 
 
 class LeanWorker(SimpleWorker):
@@ -47,10 +133,32 @@ class LeanWorker(SimpleWorker):
     suspension_check_every: float = 1.0
 
     def __init__(self, *args: Any, **kwargs: Any) -> None:
+        kwargs.setdefault("job_monitoring_interval", JOB_MONITORING_INTERVAL)
         super().__init__(*args, **kwargs)
         self._beaten_at = float("-inf")
         self._suspension_checked_at = float("-inf")
         self._started_in_pipeline: str | None = None
+        self._pulse = Pulse(self, self.job_monitoring_interval)
+
+    # -- heartbeats while a job runs (see the module docstring) --------------------------
+    def get_heartbeat_ttl(self, job: Job, working_time: float = 0.0) -> int:
+        """RQ's rule for workers that beat during a job (``BaseWorker``): the time left, at
+        most ``job_monitoring_interval``, + 60 s; not SimpleWorker's whole timeout + 60."""
+        return BaseWorker.get_heartbeat_ttl(self, job, working_time)
+
+    def execute_job(self, job: Job, queue: Queue) -> None:
+        """SimpleWorker's ``execute_job`` with the job's heartbeats kept up while it runs."""
+        execution = self.prepare_execution(job)
+        self._pulse.start(job, execution)
+        try:
+            self.perform_job(job, queue, execution)
+        finally:
+            self._pulse.stop()
+        self.set_state(WorkerStatus.IDLE)
+
+    def teardown(self) -> None:
+        self._pulse.close()
+        super().teardown()
 
     # -- fewer standalone writes -------------------------------------------------------
     def heartbeat(self, timeout: int | None = None, pipeline: Pipeline | None = None) -> None:
@@ -119,6 +227,7 @@ class LeanWorker(SimpleWorker):
 
     def handle_execution_ended(self, job: Job, queue: Queue, heartbeat_ttl: int) -> None:
         """The job's last heartbeat is not written when the job is deleted right after."""
+        self._pulse.stop()  # the job has returned: no more beats before its end is written
         if job.get_status(refresh=False) == JobStatus.STARTED and self._lean_success(job):
             job.ended_at = now()
             return

@@ -7,12 +7,13 @@ with :func:`service.app.create_app`, then adds JSON logs with request ids
 Redis is required: ``REDIS_URL`` (``redis://host:6379/0``), or Sentinel with
 ``SPANWRIGHT_SENTINELS=host1:26379,host2:26379`` and ``SPANWRIGHT_SENTINEL_MASTER=name``
 (optional ``SPANWRIGHT_SENTINEL_DB``, and ``SPANWRIGHT_SENTINEL_PASSWORD`` for the data
-nodes; the password is never logged). The embedded in-memory store is for
+nodes; the password is never logged). All of them, and ``SPANWRIGHT_LOG_LEVEL`` (default
+INFO), are fields of :class:`Settings`. The embedded in-memory store is for
 ``spanwright serve`` only; without Redis this module refuses to start with a message.
 
 ``app`` is built when first read (a module ``__getattr__``), so importing the module has no
-side effect. Other variables: ``SPANWRIGHT_LOG_LEVEL`` (default INFO) and
-``PROMETHEUS_MULTIPROC_DIR`` (set and wiped by the start-up shell or unit, never here).
+side effect. ``PROMETHEUS_MULTIPROC_DIR`` (prometheus_client's own variable) is set and
+wiped by the start-up shell or unit, never here.
 """
 
 from __future__ import annotations
@@ -25,12 +26,12 @@ import redis
 from flask import Flask
 from redis.sentinel import Sentinel
 
-from workers.planning.errors import Issue
-
 from .app import connect, create_app
 from .logs import configure_logging, init_request_logging
 from .metrics import init_metrics
-from .settings import Settings, SettingsError
+from .settings import Settings, SettingsError, parse_sentinels
+
+__all__ = ["NoRedis", "build", "parse_sentinels", "sentinel_connection"]
 
 log = logging.getLogger("spanwright.wsgi")
 
@@ -39,44 +40,19 @@ class NoRedis(SystemExit):
     """Raised at import when no Redis is configured: gunicorn stops with the message."""
 
 
-def parse_sentinels(raw: str) -> list[tuple[str, int]]:
-    """``"h1:26379,h2:26379"`` -> ``[("h1", 26379), ("h2", 26379)]``; bad parts raise."""
-    out: list[tuple[str, int]] = []
-    for part in (p.strip() for p in raw.split(",")):
-        if not part:
-            continue
-        host, sep, port = part.rpartition(":")
-        if not sep or not host or not port.isdigit():
-            raise SettingsError(
-                f"SPANWRIGHT_SENTINELS: {part!r} is not host:port",
-                [Issue("SPANWRIGHT_SENTINELS", "comma-separated host:port pairs")],
-            )
-        out.append((host.strip("[]"), int(port)))
-    return out
-
-
-def sentinel_connection(environ: Mapping[str, str]) -> redis.Redis | None:
+def sentinel_connection(settings: Settings) -> redis.Redis | None:
     """A client for the current Sentinel master, or None when Sentinel is not configured.
 
     redis-py's ``master_for`` asks the Sentinels for the master on every new connection and
     reconnects after a failover; RQ shares this client (responses stay bytes).
     """
-    raw = environ.get("SPANWRIGHT_SENTINELS", "").strip()
-    if not raw:
+    if not settings.sentinels:
         return None
-    master = environ.get("SPANWRIGHT_SENTINEL_MASTER", "").strip()
-    if not master:
-        raise SettingsError(
-            "SPANWRIGHT_SENTINELS is set but SPANWRIGHT_SENTINEL_MASTER is not",
-            [Issue("SPANWRIGHT_SENTINEL_MASTER", "the master name the Sentinels monitor")],
-        )
-    db = int(environ.get("SPANWRIGHT_SENTINEL_DB", "0") or 0)
-    password = environ.get("SPANWRIGHT_SENTINEL_PASSWORD") or None
-    sentinel = Sentinel(parse_sentinels(raw), socket_timeout=5, socket_connect_timeout=5)
+    sentinel = Sentinel(settings.sentinel_hosts, socket_timeout=5, socket_connect_timeout=5)
     client: redis.Redis = sentinel.master_for(
-        master,
-        db=db,
-        password=password,
+        settings.sentinel_master,
+        db=settings.sentinel_db,
+        password=settings.sentinel_password or None,
         socket_timeout=60,
         socket_connect_timeout=5,
         health_check_interval=30,
@@ -87,8 +63,8 @@ def sentinel_connection(environ: Mapping[str, str]) -> redis.Redis | None:
 def build(environ: Mapping[str, str]) -> Flask:
     """The configured app for ``environ``; raises :class:`NoRedis` without a Redis."""
     settings = Settings.from_env(environ)
-    configure_logging(environ.get("SPANWRIGHT_LOG_LEVEL", "INFO") or "INFO")
-    conn = sentinel_connection(environ)
+    configure_logging(settings.log_level)
+    conn = sentinel_connection(settings)
     if conn is None:
         if settings.redis_url is None:
             raise NoRedis(
@@ -99,7 +75,7 @@ def build(environ: Mapping[str, str]) -> Flask:
         conn = connect(settings)
         where = "REDIS_URL"
     else:
-        where = "Sentinel master " + environ.get("SPANWRIGHT_SENTINEL_MASTER", "")
+        where = "Sentinel master " + settings.sentinel_master
     app = create_app(settings, connection=conn)
     init_request_logging(app)
     init_metrics(

@@ -102,15 +102,26 @@ def size_farm(
     progress: Callable[[Any], None],
     should_stop: Callable[[], bool],
 ) -> Outcome:
-    """``POST /v1/sizings``: the fewest nodes meeting the deadline."""
+    """``POST /v1/sizings``: the fewest nodes meeting the deadline.
+
+    With spread inputs (a job's ``duration_p90``, ``spread``, ``confidence_samples``) or a
+    target ``confidence``, the result also carries the ``confidence`` of the answer's plan
+    and, with the target, ``confidence_sizing`` (``confidence.sizing_confidence``); a
+    cancelled sizing skips the simulation.
+    """
+    from workers.planning.confidence import SpreadRequest, sizing_confidence
     from workers.planning.sizing import size_from_request
 
+    asked = SpreadRequest.from_body(body)  # bad spread inputs fail before the search
     res = size_from_request(
         body, time_budget=time_budget, progress=progress, should_stop=should_stop
     )
     d = res.to_dict()
+    cancelled = d.get("stop_reason") == "cancelled"
+    if asked is not None and not cancelled:
+        d.update(sizing_confidence(res.schedule, asked))
     keys = ("nodes_needed", "nodes_lower_bound", "proven_optimal", "estimated_cost")
-    return Outcome(d, {k: d.get(k) for k in keys}, d.get("stop_reason") == "cancelled")
+    return Outcome(d, {k: d.get(k) for k in keys}, cancelled)
 
 
 RUNNERS: dict[str, Runner] = {"plan": solve_plan, "sizing": size_farm}

@@ -67,11 +67,12 @@ def run(args: argparse.Namespace) -> int:
         sys.stdout.write("\n")
         return 0
     print(result.summary())
-    print(_summary(block))
+    print(block_lines(block))
     return 0
 
 
-def _summary(block: dict[str, Any]) -> str:
+def block_lines(block: dict[str, Any]) -> str:
+    """The ``confidence`` block of a plan or sizing result, a few lines for people."""
     model = block["model"]
     lines = [
         f"spread model    {model['distribution']}, {block['samples']} samples, "
@@ -88,4 +89,23 @@ def _summary(block: dict[str, Any]) -> str:
             lines.append(f"{'':<16}P(meet deadline) {p:.4f} (95% interval {lo:.4f} - {hi:.4f})")
         crit = ", ".join(f"{c['node']} {100 * c['share']:.1f} %" for c in part["critical_nodes"])
         lines.append(f"{'':<16}last to finish: {crit}")
+    return "\n".join(lines)
+
+
+def target_lines(sizing: dict[str, Any]) -> str:
+    """The ``confidence_sizing`` of a sizing result: the answer, the count below, the rule."""
+    chosen, fewer = sizing["chosen"], sizing["fewer"]
+    lo, hi = chosen["interval"]
+    lines = [
+        f"to confidence   {sizing['confidence']:g}: {sizing['nodes_needed']} node(s), "
+        f"P(meet deadline) {chosen['deadline_probability']:.4f} "
+        f"(95% interval {lo:.4f} - {hi:.4f})",
+    ]
+    if fewer is not None:
+        lo, hi = fewer["interval"]
+        lines.append(
+            f"{'':<16}{fewer['nodes']} node(s): P(meet deadline) "
+            f"{fewer['deadline_probability']:.4f} (95% interval {lo:.4f} - {hi:.4f})"
+        )
+    lines.append(f"{'':<16}rule: {sizing['rule']}; {sizing['samples']} samples each")
     return "\n".join(lines)

@@ -42,11 +42,11 @@ def run(args: argparse.Namespace) -> int:
     from ..logs import configure_logging
     from ..queue import JobQueue
     from ..settings import Settings
-    from ..worker import LeanWorker
+    from ..worker import JOB_MONITORING_INTERVAL, LeanWorker
     from ..wsgi import sentinel_connection
 
     settings = Settings.from_env(os.environ)
-    sentinel = sentinel_connection(os.environ)
+    sentinel = sentinel_connection(settings)
     if settings.embedded and sentinel is None:
         print("spanwright: set REDIS_URL (e.g. redis://127.0.0.1:6379/0)", file=sys.stderr)
         return 2
@@ -72,6 +72,8 @@ def run(args: argparse.Namespace) -> int:
         serializer=JSONSerializer,
         name=args.name,
         maintenance_interval=args.maintenance_interval,
+        # heartbeats of a running job: a worker killed on any host is seen within 70 s
+        job_monitoring_interval=JOB_MONITORING_INTERVAL,
     )
     worker.work(burst=args.burst, logging_level=args.log_level)
     return 0

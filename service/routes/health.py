@@ -4,7 +4,8 @@
 from __future__ import annotations
 
 import json
-from pathlib import Path
+from importlib import resources
+from importlib.resources.abc import Traversable
 from typing import Any
 
 import yaml
@@ -15,7 +16,16 @@ from . import services
 
 blueprint = Blueprint("health", __name__)
 
-SPEC_PATH = Path(__file__).resolve().parents[2] / "openapi" / "openapi.yaml"
+#: the spec ships inside the package: ``service/openapi.yaml`` is a link to the one source,
+#: ``openapi/openapi.yaml``, and package data (pyproject.toml) copies its content into
+#: every wheel, so a non-editable install serves it too
+SPEC_RESOURCE = ("service", "openapi.yaml")
+
+
+def spec_file() -> Traversable:
+    """The OpenAPI document as package data (``importlib.resources``)."""
+    package, name = SPEC_RESOURCE
+    return resources.files(package).joinpath(name)
 
 
 def _json(doc: Any, status: int = 200) -> Response:
@@ -51,7 +61,7 @@ _spec_cache: dict[str, str] = {}
 @blueprint.get("/openapi.json")
 def openapi() -> Response:
     if "doc" not in _spec_cache:
-        _spec_cache["doc"] = json.dumps(yaml.safe_load(SPEC_PATH.read_text(encoding="utf-8")))
+        _spec_cache["doc"] = json.dumps(yaml.safe_load(spec_file().read_text(encoding="utf-8")))
     return Response(_spec_cache["doc"], 200, mimetype="application/json")
 
 

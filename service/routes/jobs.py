@@ -31,6 +31,7 @@ from ..problems import (
     UnsupportedMediaType,
     problem_dict,
 )
+from ..queue import simulation_allowance
 from ..settings import Settings
 from ..store import FINISHED, STATUSES, Record, new_id
 from . import may_read, services, tenant
@@ -129,8 +130,9 @@ def preferences() -> tuple[float | None, bool]:
     return wait, is_async
 
 
-def status_document(rec: Record, path: str) -> str:
-    """The JSON of ``GET {path}/{id}``; the stored result JSON is spliced in, not re-parsed."""
+def status_document(rec: Record, path: str, more: dict[str, Any] | None = None) -> str:
+    """The JSON of ``GET {path}/{id}``; the stored result JSON is spliced in, not re-parsed.
+    ``more`` adds fields after ``result`` (the ``replan`` block of a re-plan's answer)."""
     f = rec.fields
     doc: dict[str, Any] = {
         "id": rec.id,
@@ -154,7 +156,10 @@ def status_document(rec: Record, path: str) -> str:
             "best_lower_bound": None,
         }
     head = json.dumps(doc, allow_nan=False, separators=(",", ":"))
-    return head[:-1] + ',"result":' + (rec.result_json or "null") + "}"
+    tail = ""
+    if more:
+        tail = "," + json.dumps(more, allow_nan=False, separators=(",", ":"))[1:-1]
+    return head[:-1] + ',"result":' + (rec.result_json or "null") + tail + "}"
 
 
 def etag_of(version: int) -> str:
@@ -162,9 +167,13 @@ def etag_of(version: int) -> str:
 
 
 def _respond(
-    rec: Record, res: Resource, status: int, extra: dict[str, str] | None = None
+    rec: Record,
+    res: Resource,
+    status: int,
+    extra: dict[str, str] | None = None,
+    more: dict[str, Any] | None = None,
 ) -> Response:
-    resp = Response(status_document(rec, res.path), status, mimetype="application/json")
+    resp = Response(status_document(rec, res.path, more), status, mimetype="application/json")
     resp.headers["ETag"] = etag_of(rec.version)
     resp.headers["Location"] = f"{res.path}/{rec.id}"
     if rec.status not in FINISHED:
@@ -194,85 +203,137 @@ def list_tenant(asked: str | None) -> str:
     return asked
 
 
+def _key_reused() -> IdempotencyKeyReused:
+    return IdempotencyKeyReused(
+        "this Idempotency-Key was used with a different body; use a new key",
+        [Issue("", "body differs from the first request with this key")],
+    )
+
+
+def replayed(who: str, kind: str, key: str, fingerprint: str) -> Record | None:
+    """The record ``key`` is already bound to, for a retry of the same request; else None.
+
+    Read-only and before any queue slot is taken: a retry gets its own record back even
+    when the tenant is at its queue-depth limit. The same key with another body is a 422.
+    A key whose record has expired counts as free (``Store.claim_idempotency`` re-binds
+    it). A concurrent first request that binds the key after this look is caught by the
+    claim in :func:`queue_record`, as before.
+    """
+    store = services().store
+    raw = store.conn.get(store.idem_key(who, kind, key))
+    if raw is None:
+        return None
+    bound: dict[str, str] = json.loads(raw)
+    if bound.get("fingerprint") != fingerprint:
+        raise _key_reused()
+    old = store.get(kind, bound.get("id", ""))
+    if old is None or old.tenant != who:
+        return None
+    return old
+
+
+def queue_record(
+    res: Resource,
+    raw: bytes,
+    checked: Validated,
+    meta: dict[str, Any],
+    fingerprint: str,
+    more: dict[str, Any] | None = None,
+    extra_seconds: float = 0.0,
+) -> Response:
+    """Store and queue a validated request of ``res.kind``, the protocol of every
+    ``POST`` that queues work: ``Idempotency-Key`` (a retry returns its record without a
+    queue slot), queue-depth admission (429 before anything is stored), ``Prefer: wait``
+    and ``respond-async``. ``raw`` is what the worker solves, ``fingerprint`` identifies
+    the request for its idempotency key, ``more`` adds fields to the answer."""
+    svc = services()
+    store, settings = svc.store, svc.settings
+    key = idempotency_key()
+    wait, is_async = preferences()
+    who = tenant()
+    extra: dict[str, str] = {}
+    if wait is not None:
+        wait = min(wait, settings.max_wait)
+        extra["Preference-Applied"] = f"wait={wait:g}"
+    elif is_async:
+        extra["Preference-Applied"] = "respond-async"
+
+    def replay(old: Record) -> Response:
+        if wait and old.status not in FINISHED:
+            old = store.wait_for(res.kind, old.id, wait) or old
+        code = 200 if old.status in FINISHED else 202
+        return _respond(old, res, code, {**extra, "Idempotent-Replayed": "true"}, more)
+
+    if key is not None:
+        old = replayed(who, res.kind, key, fingerprint)
+        if old is not None:
+            return replay(old)
+    rid = new_id()
+    budget = float(checked.data["time_budget"])
+    limits.admit(who, res.kind, rid)  # 429 before anything is stored
+    if key is None:  # record and queue entry in one transaction, one round trip
+
+        def enqueue(pipe: Any) -> None:
+            svc.queue.enqueue(res.kind, rid, budget, pipeline=pipe, extra_seconds=extra_seconds)
+
+        store.create(res.kind, who, raw, meta, rid=rid, work=checked.work, enqueue=enqueue)
+    else:
+        store.create(res.kind, who, raw, meta, rid=rid, work=checked.work)
+        for _ in range(2):
+            bound = store.claim_idempotency(who, res.kind, key, fingerprint, rid)
+            if bound is None:
+                break
+            if bound.get("fingerprint") != fingerprint:
+                store.discard(res.kind, rid, who)
+                limits.release(who, res.kind, rid)
+                raise _key_reused()
+            old = store.get(res.kind, bound.get("id", ""))
+            if old is None or old.tenant != who:
+                store.release_idempotency(who, res.kind, key)  # its record expired
+                continue
+            store.discard(res.kind, rid, who)
+            limits.release(who, res.kind, rid)
+            return replay(old)
+        else:  # pragma: no cover - needs two expiries in a row
+            store.discard(res.kind, rid, who)
+            limits.release(who, res.kind, rid)
+            raise IdempotencyKeyInFlight("the key is being re-bound; retry in a moment")
+        try:
+            svc.queue.enqueue(res.kind, rid, budget, extra_seconds=extra_seconds)
+        except Exception:
+            store.finish(
+                res.kind,
+                rid,
+                "failed",
+                allowed_from="queued",
+                error=problem_dict(StoreUnavailable("the plan could not be queued")),
+            )
+            raise
+    rec = store.wait_for(res.kind, rid, wait) if wait else store.get(res.kind, rid)
+    if rec is None:  # pragma: no cover - expired within the request
+        raise NotFound(f"{res.kind} {rid} vanished")
+    # 201 only answers a wait (the spec's promise); without one a plan that a fast
+    # worker finished before this line still answers 202, its body saying "done"
+    done_in_wait = bool(wait) and rec.status in FINISHED
+    return _respond(rec, res, 201 if done_in_wait else 202, extra, more)
+
+
 def make_blueprint(res: Resource) -> Blueprint:
     bp = Blueprint(f"{res.kind}s", __name__)
 
     @bp.post(res.path)
     def submit() -> Response:
-        svc = services()
-        store, settings = svc.store, svc.settings
         raw, body = read_json_body()
-        checked = res.validate(body, settings)
+        checked = res.validate(body, services().settings)
         data = checked.data
-        key = idempotency_key()
-        wait, is_async = preferences()
-        who = tenant()
         meta = {
             "method": data.get("method"),
             "time_budget": repr(float(data["time_budget"])),
             "name": data.get("name"),
         }
-        extra: dict[str, str] = {}
-        if wait is not None:
-            wait = min(wait, settings.max_wait)
-            extra["Preference-Applied"] = f"wait={wait:g}"
-        elif is_async:
-            extra["Preference-Applied"] = "respond-async"
-        rid = new_id()
-        budget = float(data["time_budget"])
-        limits.admit(who, res.kind, rid)  # 429 before anything is stored
-        if key is None:  # record and queue entry in one transaction, one round trip
-
-            def enqueue(pipe: Any) -> None:
-                svc.queue.enqueue(res.kind, rid, budget, pipeline=pipe)
-
-            store.create(res.kind, who, raw, meta, rid=rid, work=checked.work, enqueue=enqueue)
-        else:
-            store.create(res.kind, who, raw, meta, rid=rid, work=checked.work)
-            fingerprint = hashlib.sha256(raw).hexdigest()
-            for _ in range(2):
-                bound = store.claim_idempotency(who, res.kind, key, fingerprint, rid)
-                if bound is None:
-                    break
-                if bound.get("fingerprint") != fingerprint:
-                    store.discard(res.kind, rid, who)
-                    limits.release(who, res.kind, rid)
-                    raise IdempotencyKeyReused(
-                        "this Idempotency-Key was used with a different body; use a new key",
-                        [Issue("", "body differs from the first request with this key")],
-                    )
-                old = store.get(res.kind, bound.get("id", ""))
-                if old is None or old.tenant != who:
-                    store.release_idempotency(who, res.kind, key)  # its record expired
-                    continue
-                store.discard(res.kind, rid, who)
-                limits.release(who, res.kind, rid)
-                if wait and old.status not in FINISHED:
-                    old = store.wait_for(res.kind, old.id, wait) or old
-                code = 200 if old.status in FINISHED else 202
-                return _respond(old, res, code, {**extra, "Idempotent-Replayed": "true"})
-            else:  # pragma: no cover - needs two expiries in a row
-                store.discard(res.kind, rid, who)
-                limits.release(who, res.kind, rid)
-                raise IdempotencyKeyInFlight("the key is being re-bound; retry in a moment")
-            try:
-                svc.queue.enqueue(res.kind, rid, budget)
-            except Exception:
-                store.finish(
-                    res.kind,
-                    rid,
-                    "failed",
-                    allowed_from="queued",
-                    error=problem_dict(StoreUnavailable("the plan could not be queued")),
-                )
-                raise
-        rec = store.wait_for(res.kind, rid, wait) if wait else store.get(res.kind, rid)
-        if rec is None:  # pragma: no cover - expired within the request
-            raise NotFound(f"{res.kind} {rid} vanished")
-        # 201 only answers a wait (the spec's promise); without one a plan that a fast
-        # worker finished before this line still answers 202, its body saying "done"
-        done_in_wait = bool(wait) and rec.status in FINISHED
-        return _respond(rec, res, 201 if done_in_wait else 202, extra)
+        fingerprint = hashlib.sha256(raw).hexdigest()
+        extra = simulation_allowance(res.kind, body)
+        return queue_record(res, raw, checked, meta, fingerprint, extra_seconds=extra)
 
     @bp.get(res.path + "/<rid>")
     def read(rid: str) -> Response:

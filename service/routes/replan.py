@@ -1,13 +1,18 @@
 """``POST /v1/plans/{id}/replan``: a new plan for what is left of a finished plan.
 
-The events body (elapsed, finished, running, lost and added nodes) and the stored request
-and result go through the core's ``replan.remaining_work``; the remaining work becomes an
-ordinary plan request, validated like any other and queued. Time 0 of the new plan is the
-re-planning moment; running jobs stay on their nodes (busy until they end).
+The events body (elapsed, finished, running, lost and added nodes) is checked for shape
+(``ReplanRequestSchema``: unknown fields refused, JSON Pointers), then it and the stored
+request and result go through the core's ``replan.remaining_work``; the remaining work
+becomes an ordinary plan request, validated like any other and queued through the same
+protocol as ``POST /v1/plans`` (:func:`.jobs.queue_record`: queue-depth admission,
+``Idempotency-Key``, ``Prefer: wait``; the per-tenant request rate is counted for every
+keyed request by ``service/auth.py``). Time 0 of the new plan is the re-planning moment;
+running jobs stay on their nodes (busy until they end).
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 from typing import Any
 
@@ -16,9 +21,9 @@ from flask import Blueprint, Response
 from workers.planning.replan import read_events, remaining_work
 
 from ..problems import NotFinished, NotFound
-from ..store import new_id as new_record_id
+from ..schemas import load_replan_request
 from . import services, tenant
-from .jobs import ID_RE, etag_of, read_json_body, status_document
+from .jobs import ID_RE, queue_record, read_json_body
 from .plans import RESOURCE, read_plan
 
 blueprint = Blueprint("replan", __name__)
@@ -36,8 +41,9 @@ def replan(rid: str) -> Response:
     raw_request = store.load_request("plan", rid)
     if old.status != "done" or old.result_json is None or raw_request is None:
         raise NotFinished(f"plan {rid} is {old.status}; only a finished plan can be re-planned")
-    _, events = read_json_body()
-    work = remaining_work(json.loads(raw_request), json.loads(old.result_json), read_events(events))
+    raw_events, body = read_json_body()
+    events = read_events(load_replan_request(body))
+    work = remaining_work(json.loads(raw_request), json.loads(old.result_json), events)
     checked = read_plan(work.request, svc.settings)
     data = checked.data
     raw = json.dumps(work.request, allow_nan=False).encode()
@@ -46,20 +52,8 @@ def replan(rid: str) -> Response:
         "time_budget": repr(float(data["time_budget"])),
         "name": f"replan of {rid}",
     }
-    budget = float(data["time_budget"])
-    new_id = new_record_id()
-
-    def enqueue(pipe: Any) -> None:
-        svc.queue.enqueue("plan", new_id, budget, pipeline=pipe)
-
-    store.create("plan", who, raw, meta, rid=new_id, work=checked.work, enqueue=enqueue)
-    rec = store.get("plan", new_id)
-    if rec is None:  # pragma: no cover - expired within the request
-        raise NotFound(f"plan {new_id} vanished")
-    doc = json.loads(status_document(rec, RESOURCE.path))
-    doc["replan"] = {"of": rid, **work.info()}
-    resp = Response(json.dumps(doc, allow_nan=False), 202, mimetype="application/json")
-    resp.headers["Location"] = f"{RESOURCE.path}/{new_id}"
-    resp.headers["ETag"] = etag_of(rec.version)
-    resp.headers["Retry-After"] = "1"
-    return resp
+    # the same events for another plan are another request (keys are per tenant and kind)
+    fingerprint = hashlib.sha256(f"replan {rid}\n".encode() + raw_events).hexdigest()
+    return queue_record(
+        RESOURCE, raw, checked, meta, fingerprint, more={"replan": {"of": rid, **work.info()}}
+    )

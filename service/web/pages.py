@@ -22,7 +22,7 @@ BOUND_WORDS = {
     "pigeonhole": "two of the m+1 longest jobs having to share a node",
     "pigeonhole_k": "k+1 of the km+1 longest jobs having to share a node",
     "bin_packing": "a bin-packing argument (Martello-Toth)",
-    "search": "an exhaustive search that ruled out every shorter plan",
+    "search": "a complete search that ruled out every shorter plan",
     "busy_nodes": "the nodes still busy with earlier work",
     "k_longest": "the longest jobs having to fit on the fastest nodes",
     "eligibility_group": "the jobs that only some of the nodes can run",
@@ -64,6 +64,11 @@ def bound_words(result: dict[str, Any]) -> str:
         k, considered = int(evidence["k"]), evidence.get("jobs_considered")
         if considered:
             return f"{k + 1} of the {considered} longest jobs having to share a node"
+    if source == "search" and evidence.get("refuted_by"):
+        return (
+            "the linear-programming bound of bin packing, checked in whole numbers, which "
+            "rules out every shorter plan"
+        )
     return BOUND_WORDS.get(source, source.replace("_", " ") or "a bound")
 
 
@@ -317,7 +322,45 @@ def sizing_context(sizing: dict[str, Any]) -> dict[str, Any]:
             text += f". No plan with fewer than {low} nodes can meet it (proven by {why}); "
             text += f"{maybe} might."
         ctx["sentence"] = text
+    conf_text = sizing_confidence_sentence(result)
+    if conf_text:
+        ctx["confidence_sentence"] = conf_text
     return ctx
+
+
+def sizing_confidence_sentence(result: dict[str, Any]) -> str | None:
+    """One sentence: how likely the sizing's answer makes the deadline, and to a confidence.
+
+    From the result's ``confidence`` block (the answer's plan simulated) and, when the
+    request asked for a confidence q, its ``confidence_sizing``. None without a block.
+    """
+    conf = result.get("confidence")
+    if not conf or conf.get("deadline_probability") is None:
+        return None
+    p = float(conf["deadline_probability"])
+    runs = int(conf["samples"])
+    need = result.get("nodes_needed")
+    plan = f"the {need}-node plan" if need is not None else "the plan"
+    if conf.get("interval_method") == "exact":  # no spread: every run is the plan itself
+        verdict = "meets" if p == 1.0 else "misses"
+        text = f"With no spread in the estimates, {plan} {verdict} the deadline in every run"
+    else:
+        lo, hi = conf["interval"]
+        text = (
+            f"With the estimates' spread, {plan} meets the deadline in {fmt_percent(p)} of {runs} "
+            f"simulated runs (95% interval {fmt_percent(lo)} to {fmt_percent(hi)})"
+        )
+    target = result.get("confidence_sizing")
+    if target:
+        text += (
+            f"; to meet it with probability at least {100 * float(target['confidence']):g}% "
+            "(judged by the lower end of each node count's 95% interval) takes "
+            f"{target['nodes_needed']} nodes"
+        )
+        fewer = target.get("fewer")
+        if fewer:
+            text += f"; with one node fewer it is only {fmt_percent(fewer['interval'][0])}"
+    return text + "."
 
 
 def _when(iso: str) -> str:

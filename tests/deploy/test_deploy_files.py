@@ -2,8 +2,10 @@
 match, probes on routes the app serves, the one Redis configuration everywhere.
 
 Checks against things outside our code: YAML (``yaml.safe_load_all``), argparse of the real
-``spanwright`` parser, prometheus_client's ``mark_process_dead``, Flask's URL map, and
-``kubectl kustomize`` when kubectl is installed.
+``spanwright`` parser, prometheus_client's ``mark_process_dead``, Flask's URL map, the
+Compose specification (secrets mounted at ``/run/secrets/<name>``), the Kubernetes API
+(Secret volumes: each ``items`` key becomes a file under the mount path), and
+``kubectl kustomize`` (required when SPANWRIGHT_REQUIRE_SERVERS=1, as in CI).
 """
 
 from __future__ import annotations
@@ -28,14 +30,16 @@ from spanwright_topology import (
     UNIT_SRC,
     UNIT_VENV_BIN,
     parse_unit,
+    require,
     unit_environment,
     unit_value,
 )
 
 from service.app import create_app
+from service.auth import OPEN_PATHS, KeyRing
 from service.cli import build_parser
 from service.metrics import init_metrics
-from service.settings import Settings
+from service.settings import Settings, SettingsError
 
 K8S = DEPLOY / "k8s"
 
@@ -134,7 +138,9 @@ def test_units_use_the_shipped_config_and_the_layout() -> None:
 
 def test_gunicorn_conf_defaults_and_refusals(tmp_path: Path) -> None:
     """Defaults: loopback 8080, the wsgi module, gthread, timeout above the longest wait.
-    A public bind is refused unless explicitly allowed; child_exit marks a dead process's
+    A non-loopback bind needs a keys file (keyless, the app answers 401 to every caller not
+    on loopback): refused without SPANWRIGHT_KEYS_FILE, with a message naming it, whatever
+    the retired SPANWRIGHT_ALLOW_NON_LOOPBACK says; child_exit marks a dead process's
     live gauges as prometheus_client's multiprocess mode requires."""
     conf = gunicorn_conf({})
     assert conf["bind"] == ["127.0.0.1:8080"]
@@ -146,12 +152,18 @@ def test_gunicorn_conf_defaults_and_refusals(tmp_path: Path) -> None:
     assert conf["worker_class"] == "gthread" and conf["preload_app"] is True
     assert conf["timeout"] > Settings().max_wait
     assert gunicorn_conf({"SPANWRIGHT_BIND": "127.0.0.1:9000"})["bind"] == ["127.0.0.1:9000"]
-    with pytest.raises(SystemExit, match="refusing to bind"):
-        gunicorn_conf({"SPANWRIGHT_BIND": "0.0.0.0:8080"})
+    for env in (
+        {"SPANWRIGHT_BIND": "0.0.0.0:8080"},
+        {"SPANWRIGHT_BIND": "10.1.2.3:8080", "SPANWRIGHT_ALLOW_NON_LOOPBACK": "1"},
+    ):
+        with pytest.raises(SystemExit, match=r"refusing to bind .*SPANWRIGHT_KEYS_FILE"):
+            gunicorn_conf(env)
     allowed = gunicorn_conf(
-        {"SPANWRIGHT_BIND": "0.0.0.0:8080", "SPANWRIGHT_ALLOW_NON_LOOPBACK": "1"}
+        {"SPANWRIGHT_BIND": "0.0.0.0:8080", "SPANWRIGHT_KEYS_FILE": "/etc/spanwright/keys"}
     )
     assert allowed["bind"] == ["0.0.0.0:8080"]
+    with pytest.raises(SystemExit, match="SPANWRIGHT_MAX_WAIT"):
+        gunicorn_conf({"SPANWRIGHT_MAX_WAIT": "soon"})
     live = tmp_path / "gauge_livesum_4242.db"
     live.write_bytes(b"")
     keep = tmp_path / "counter_4242.db"
@@ -267,15 +279,71 @@ def test_kubernetes_manifests() -> None:
 
 
 def test_kustomize_builds_the_manifests() -> None:
-    """``kubectl kustomize deploy/k8s`` renders every manifest (skipped without kubectl)."""
+    """``kubectl kustomize deploy/k8s`` renders every manifest (skipped without kubectl,
+    a failure with SPANWRIGHT_REQUIRE_SERVERS=1: CI installs Debian's kubernetes-client)."""
+    require("kubectl")
     kubectl = shutil.which("kubectl")
-    if kubectl is None:
-        pytest.skip("kubectl not installed")
+    assert kubectl is not None
     out = subprocess.run(
         [kubectl, "kustomize", str(K8S)], capture_output=True, text=True, timeout=60, check=True
     ).stdout
     rendered = {(d["kind"], d["metadata"]["name"]) for d in yaml.safe_load_all(out) if d}
     assert rendered == {(d["kind"], d["metadata"]["name"]) for d in k8s_docs()}
+
+
+def test_deploy_files_mount_a_keys_file() -> None:
+    """Every deploy that binds a non-loopback address gives the API a keys file, as
+    gunicorn.conf.py demands: compose mounts a secret (Compose spec: at
+    ``/run/secrets/<name>``) from a host file outside the build context and points
+    SPANWRIGHT_KEYS_FILE at it; Kubernetes mounts the Secret ``spanwright-keys`` (listed
+    in the kustomization) where SPANWRIGHT_KEYS_FILE points. The shipped Secret is an
+    example: it holds no SHA-256 digest, and its line is refused by the keys-file parser,
+    so the API cannot start on it. The retired SPANWRIGHT_ALLOW_NON_LOOPBACK is gone, and
+    the Containerfile says how to make a keys line."""
+    compose = load_all(DEPLOY / "compose.yaml")[0]
+    api = compose["services"]["api"]
+    (secret,) = api["secrets"]
+    assert api["environment"]["SPANWRIGHT_KEYS_FILE"] == f"/run/secrets/{secret}"
+    host_file = Path(compose["secrets"][secret]["file"])
+    assert host_file.is_absolute() and REPO not in host_file.parents
+    api_k8s = by_kind("Deployment", "spanwright-api")["spec"]["template"]["spec"]
+    (c,) = api_k8s["containers"]
+    keys_path = {e["name"]: e["value"] for e in c["env"]}["SPANWRIGHT_KEYS_FILE"]
+    mounts = {m["name"]: m for m in c["volumeMounts"]}
+    volumes = {v["name"]: v for v in api_k8s["volumes"] if "secret" in v}
+    found = [
+        (name, v["secret"]["secretName"], item["key"])
+        for name, v in volumes.items()
+        for item in v["secret"]["items"]
+        if name in mounts and f"{mounts[name]['mountPath']}/{item['path']}" == keys_path
+    ]
+    assert len(found) == 1, (keys_path, volumes)
+    volume, secret_name, item_key = found[0]
+    assert mounts[volume]["readOnly"] is True
+    example = by_kind("Secret", secret_name)["stringData"][item_key]
+    assert re.search(r"\b[0-9a-fA-F]{64}\b", example) is None
+    with pytest.raises(SettingsError):
+        KeyRing.parse(example)
+    kustomization = yaml.safe_load((K8S / "kustomization.yaml").read_text())
+    assert any(
+        by_kind("Secret", secret_name) in load_all(K8S / r) for r in kustomization["resources"]
+    )
+    for p in [*DEPLOY.rglob("*"), REPO / "README.md"]:
+        if p.is_file() and "__pycache__" not in p.parts:
+            assert "ALLOW_NON_LOOPBACK" not in p.read_text() or p.name == "gunicorn.conf.py", p
+    containerfile = (DEPLOY / "Containerfile").read_text()
+    assert 'printf %s "$KEY" | sha256sum' in containerfile
+    assert "SPANWRIGHT_KEYS_FILE" in containerfile
+
+
+def test_metrics_scrape_matches_the_open_paths() -> None:
+    """The decision on ``/metrics``: an open path (like the probes), so the Prometheus
+    scrape annotations of the API pods, which carry no credentials, reach it."""
+    api = by_kind("Deployment", "spanwright-api")
+    annotations = api["spec"]["template"]["metadata"]["annotations"]
+    assert annotations["prometheus.io/scrape"] == "true"
+    assert annotations["prometheus.io/path"] in OPEN_PATHS
+    assert "/metrics" in OPEN_PATHS
 
 
 def test_readme_names_every_file() -> None:

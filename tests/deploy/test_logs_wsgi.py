@@ -1,4 +1,5 @@
-"""JSON logs with request ids, the production entry point, and Sentinel wiring."""
+"""JSON logs with request ids, the production entry point, its settings (Sentinel, log
+level: fields of the one Settings object), and who may reach ``/metrics``."""
 
 from __future__ import annotations
 
@@ -119,6 +120,80 @@ def test_sentinel_settings_are_checked(root_logging: None) -> None:
         parse_sentinels("a:b")
     with pytest.raises(SettingsError):
         build({"SPANWRIGHT_SENTINELS": "127.0.0.1:26379"})
+
+
+def test_sentinel_and_log_level_are_settings(
+    root_logging: None, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """SPANWRIGHT_SENTINELS / _SENTINEL_MASTER / _SENTINEL_DB / _SENTINEL_PASSWORD and
+    SPANWRIGHT_LOG_LEVEL are typed fields of Settings (read from the environment once);
+    bad values name their variable; the password is in no repr, error or log line (the
+    start-up line of build() included), and redis-py's Sentinel client gets it."""
+    from service.wsgi import build, sentinel_connection
+
+    secret = "lh-sentinel-pw-5e1f"
+    env = {
+        "SPANWRIGHT_SENTINELS": "127.0.0.1:1, [::1]:2",
+        "SPANWRIGHT_SENTINEL_MASTER": "spanwright-main",
+        "SPANWRIGHT_SENTINEL_DB": "3",
+        "SPANWRIGHT_SENTINEL_PASSWORD": secret,
+        "SPANWRIGHT_LOG_LEVEL": "info",
+    }
+    s = Settings.from_env(env)
+    assert s.sentinel_hosts == [("127.0.0.1", 1), ("::1", 2)]
+    assert (s.sentinel_master, s.sentinel_db, s.log_level) == ("spanwright-main", 3, "info")
+    assert s.sentinel_password == secret and secret not in repr(s)
+    client = sentinel_connection(s)
+    assert client is not None
+    kwargs = client.connection_pool.connection_kwargs
+    assert (kwargs["db"], kwargs["password"]) == (3, secret)
+    assert sentinel_connection(Settings()) is None
+    assert Settings.from_env({"SPANWRIGHT_SENTINEL_DB": "0"}).sentinel_db == 0
+    for var, bad in (
+        ("SPANWRIGHT_SENTINEL_DB", "-1"),
+        ("SPANWRIGHT_SENTINEL_DB", "one"),
+        ("SPANWRIGHT_LOG_LEVEL", "LOUD"),
+        ("SPANWRIGHT_SENTINELS", "a:b"),
+    ):
+        with pytest.raises(SettingsError) as err:
+            Settings.from_env({**env, var: bad})
+        assert var in err.value.detail and secret not in err.value.detail
+    build(env)
+    logging.getLogger("spanwright.test").info("after build")
+    out, err_text = capsys.readouterr()
+    assert '"api ready"' in out and "spanwright-main" in out and "after build" in out
+    assert secret not in out + err_text
+
+
+def test_metrics_is_open_and_names_no_tenant(tmp_path: Path, root_logging: None) -> None:
+    """``/metrics`` is an open path like ``/healthz`` (the decision: counts and timings
+    only, kept on the private network; the Kubernetes scrape sends no credentials). The
+    production app with a keys file answers a non-loopback caller without a key with
+    Prometheus text, while an API route still answers 401; no tenant of the keys file is
+    named in the scrape (service/metrics.py labels: method, route, status, kind, queue)."""
+    from service.wsgi import build
+    from tests.trust.conftest import KEYS, write_keys
+
+    keys = write_keys(tmp_path / "keys")
+    app = build(
+        {
+            "REDIS_URL": "redis://127.0.0.1:1/0",
+            "SPANWRIGHT_KEYS_FILE": str(keys),
+            "SPANWRIGHT_LOG_LEVEL": "WARNING",
+        }
+    )
+    c = app.test_client()
+    away = {"REMOTE_ADDR": "10.1.2.3"}
+    r = c.get("/v1/plans", environ_base=away)
+    assert r.status_code == 401 and r.headers["WWW-Authenticate"].startswith("Bearer")
+    r = c.get("/metrics", environ_base=away)
+    assert r.status_code == 200 and r.mimetype == "text/plain"
+    text = r.get_data(as_text=True)
+    assert "# TYPE spanwright_http_requests_total counter" in text
+    assert 'route="/v1/plans",status="401"' in text
+    assert "spanwright_redis_up 0.0" in text  # nothing listens on port 1
+    for tenant in KEYS:
+        assert tenant not in text
 
 
 @pytest.mark.slow

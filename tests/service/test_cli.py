@@ -23,7 +23,8 @@ ROOT = Path(__file__).resolve().parents[2]
 
 
 def test_serve_refuses_a_public_address(capsys: pytest.CaptureFixture[str]) -> None:
-    """No authentication yet, so only loopback addresses are served (the contract)."""
+    """Keyless (no SPANWRIGHT_KEYS_FILE), only loopback addresses are served (the contract,
+    "Tenants and keys")."""
     assert main(["serve", "--host", "0.0.0.0"]) == 2
     assert "loopback" in capsys.readouterr().err
 

@@ -108,3 +108,72 @@ def test_confidence_falls_with_spread(client: Any) -> None:
         client.post("/v1/plans", json=body, headers={"Prefer": "wait=10"}).headers["Location"],
     )["result"]
     assert 0.0 < res["confidence"]["deadline_probability"] < 1.0
+
+
+def finished_plan(client: Any) -> tuple[str, dict[str, Any]]:
+    loc = client.post("/v1/plans", json=batch(), headers={"Prefer": "wait=10"}).headers["Location"]
+    return loc, poll(client, loc)
+
+
+def test_unknown_event_fields_are_refused_with_pointers(client: Any) -> None:
+    """The events body is checked against openapi's ReplanRequest, which allows no other
+    field (``additionalProperties: false``): each unknown field, at the top and inside a
+    running job, and each wrong type is a 422 problem naming it by JSON Pointer (RFC 6901),
+    and no plan is queued."""
+    loc, _ = finished_plan(client)
+    before = client.get("/v1/plans?limit=200").get_json()["items"]
+    events = {
+        "elapsed": 10,
+        "lost_node": ["blade-0"],  # a misspelt lost_nodes must not be silently ignored
+        "running": [{"job": "r01", "node": "blade-1", "started_at": 5, "eta": 9}],
+        "finished": "r00",
+    }
+    resp = client.post(f"{loc}/replan", json=events)
+    assert resp.status_code == 422 and resp.mimetype == "application/problem+json"
+    pointers = {e["pointer"] for e in resp.get_json()["errors"]}
+    assert {"/lost_node", "/running/0/eta", "/finished"} <= pointers
+    assert client.get("/v1/plans?limit=200").get_json()["items"] == before
+
+
+def test_replan_honours_prefer_wait_and_idempotency_key(client: Any) -> None:
+    """Like ``POST /v1/plans`` (RFC 7240 ``Prefer: wait``; the IETF httpapi
+    Idempotency-Key draft): a wait answers 201 with the finished new plan; a retry with
+    the same key and body answers the same plan (200, ``Idempotent-Replayed: true``) with
+    the same ``replan`` block; the same key with other events is a 422."""
+    loc, _ = finished_plan(client)
+    events = {"elapsed": 100.0, "finished": ["r00"]}
+    headers = {"Prefer": "wait=10", "Idempotency-Key": '"lh-replan-0001"'}
+    first = client.post(f"{loc}/replan", json=events, headers=headers)
+    assert first.status_code == 201, first.get_json()
+    assert first.get_json()["status"] == "done"
+    assert first.headers["Preference-Applied"].startswith("wait=")  # capped by max_wait
+    again = client.post(f"{loc}/replan", json=events, headers=headers)
+    assert again.status_code == 200
+    assert again.headers["Idempotent-Replayed"] == "true"
+    assert again.headers["Location"] == first.headers["Location"]
+    assert again.get_json()["replan"] == first.get_json()["replan"]
+    other = client.post(f"{loc}/replan", json={"elapsed": 200.0}, headers=headers)
+    assert other.status_code == 422
+    assert other.get_json()["type"].endswith("idempotency-key-reused")
+
+
+def test_events_schema_matches_the_spec() -> None:
+    """The marshmallow ReplanRequestSchema and openapi's ReplanRequest name the same fields
+    (required ones too, nested running jobs included) and both refuse others."""
+    from pathlib import Path
+
+    import yaml
+
+    from service.schemas import REPLAN_SCHEMA, RunningJobSchema
+
+    spec = yaml.safe_load(
+        (Path(__file__).resolve().parents[2] / "openapi" / "openapi.yaml").read_text()
+    )
+    doc = spec["components"]["schemas"]["ReplanRequest"]
+    assert doc["additionalProperties"] is False
+    assert set(doc["properties"]) == set(REPLAN_SCHEMA.fields)
+    assert set(doc["required"]) == {n for n, f in REPLAN_SCHEMA.fields.items() if f.required}
+    running = doc["properties"]["running"]["items"]
+    assert running["additionalProperties"] is False
+    assert set(running["properties"]) == set(RunningJobSchema().fields)
+    assert set(running["required"]) == set(RunningJobSchema().fields)

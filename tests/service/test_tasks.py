@@ -130,3 +130,21 @@ def test_cancel_stops_a_real_search(client: Any) -> None:
     if doc["status"] == "cancelled":
         assert doc["result"]["stop_reason"] == "cancelled"
         assert doc["result"]["makespan"] >= doc["result"]["lower_bound"]
+
+
+def test_simulation_widens_the_crash_guard_only_when_asked() -> None:
+    """The job timeout is a crash guard (RQ's ``job_timeout``): a request that asks for a
+    confidence simulation gets room for it on top of its budget, in proportion to samples
+    x jobs (static and dynamic policy; a sizing target adds the node counts it may
+    simulate); a request without spread inputs gets none."""
+    from service.queue import CONFIDENCE_COUNTS, SECONDS_PER_DRAW, simulation_allowance
+
+    jobs = [{"id": f"j{i}", "duration": 60} for i in range(500)]
+    assert simulation_allowance("plan", {"jobs": jobs, "node_count": 4}) == 0.0
+    plan = {"jobs": jobs, "node_count": 4, "spread": 0.3, "confidence_samples": 2000}
+    assert simulation_allowance("plan", plan) == pytest.approx(2000 * 500 * 2 * SECONDS_PER_DRAW)
+    p90 = {"jobs": [*jobs[:-1], {"id": "x", "duration": 60, "duration_p90": 90}]}
+    assert simulation_allowance("plan", p90) == pytest.approx(1000 * 500 * 2 * SECONDS_PER_DRAW)
+    sizing = {"jobs": jobs, "deadline": 3600, "spread": 0.3, "confidence": 0.9}
+    want = 1000 * 500 * (2 + CONFIDENCE_COUNTS) * SECONDS_PER_DRAW
+    assert simulation_allowance("sizing", sizing) == pytest.approx(want)

@@ -215,6 +215,25 @@ def test_keyless_serves_loopback_only(fake_server: fakeredis.FakeServer) -> None
     )
 
 
+def test_keyed_app_serves_callers_on_other_addresses(keyed_app: Any) -> None:
+    """With a keys file the caller's address does not matter (this is what a non-loopback
+    bind relies on: deploy/gunicorn.conf.py refuses one without keys): a caller at
+    10.1.2.3 with a valid key is served as its tenant (RFC 6750 section 2.1); the same
+    caller without a key, or with an unknown one, gets 401 with ``WWW-Authenticate``."""
+    c = keyed_app.test_client()
+    away = {"REMOTE_ADDR": "10.1.2.3"}
+    r = c.post("/v1/plans", json=small_batch(), headers=bearer("brightwater"), environ_base=away)
+    assert r.status_code == 202, r.get_data(as_text=True)
+    rid = r.headers["Location"].rsplit("/", 1)[1]
+    assert keyed_app.extensions["spanwright"].store.get("plan", rid).tenant == "brightwater"
+    r = c.get("/v1/plans", headers=bearer("brightwater"), environ_base=away)
+    assert r.status_code == 200 and [it["id"] for it in r.get_json()["items"]] == [rid]
+    for headers in ({}, {"Authorization": "Bearer not-a-key"}):
+        r = c.get("/v1/plans", headers=headers, environ_base=away)
+        assert_problem(r, 401, "unauthorized")
+        assert r.headers["WWW-Authenticate"].startswith("Bearer")
+
+
 def test_serve_says_keyless_and_refuses_other_addresses(tmp_path: Path) -> None:
     """``spanwright serve --host 0.0.0.0`` without a keys file refuses with a message that
     names SPANWRIGHT_KEYS_FILE, and exits 2 (before binding anything)."""

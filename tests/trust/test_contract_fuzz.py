@@ -10,10 +10,23 @@ test_auth.py (schemathesis ``ignored_auth`` sends its probes over the network, s
 left out here). ``positive_data_acceptance`` is left
 out for the reason given in tests/service/test_openapi.py (semantic 422s the schema cannot
 express).
+
+Operations that declare no parameter and no request body (the probes, ``/metrics``, the
+spec and the list page) have nothing to make invalid: the negative run leaves them out by
+name (:data:`NO_INPUT`), so schemathesis skips nothing.
+
+The count of requests is checked by :func:`test_at_least_a_thousand_requests`, which does
+not depend on the order or selection of tests: when this session has not fuzzed every
+operation in both modes (the test run alone, with ``-k``, or first), it runs the fuzz tests
+in a child pytest and reads their count.
 """
 
 from __future__ import annotations
 
+import os
+import re
+import subprocess
+import sys
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
@@ -21,18 +34,42 @@ from typing import Any
 import fakeredis
 import pytest
 import schemathesis
+import yaml
 from hypothesis import HealthCheck, settings
 from schemathesis import checks
 
 from service.app import create_app
 from service.embedded import EmbeddedWorker
+from service.metrics import init_metrics
 from service.settings import Settings
 from tests.trust.conftest import KEYS, write_keys
 
-SPEC = str(Path(__file__).resolve().parents[2] / "openapi" / "openapi.yaml")
-positive = schemathesis.openapi.from_path(SPEC)
+ROOT = Path(__file__).resolve().parents[2]
+SPEC = ROOT / "openapi" / "openapi.yaml"
+RAW: dict[str, Any] = yaml.safe_load(SPEC.read_text(encoding="utf-8"))
+
+
+def _operations() -> tuple[dict[str, str], list[str]]:
+    """Every operation, ``{label: operationId}`` (schemathesis labels: ``GET /v1/plans``),
+    and the operationIds of those with no parameter (their own or their path's) and no
+    request body."""
+    every: dict[str, str] = {}
+    no_input: list[str] = []
+    for path, ops in RAW["paths"].items():
+        for method, op in ops.items():
+            if method == "parameters":
+                continue
+            every[f"{method.upper()} {path}"] = op["operationId"]
+            if not (ops.get("parameters") or op.get("parameters") or op.get("requestBody")):
+                no_input.append(op["operationId"])
+    return every, no_input
+
+
+OPERATIONS, NO_INPUT = _operations()
+
+positive = schemathesis.openapi.from_path(str(SPEC))
 positive.config.generation.update(modes=[schemathesis.GenerationMode.POSITIVE])
-negative = schemathesis.openapi.from_path(SPEC)
+negative = schemathesis.openapi.from_path(str(SPEC)).exclude(operation_id=NO_INPUT)
 negative.config.generation.update(modes=[schemathesis.GenerationMode.NEGATIVE])
 
 
@@ -50,16 +87,21 @@ class TenantKey:
 positive.auth()(TenantKey)
 negative.auth()(TenantKey)
 
-COUNT = {"requests": 0, "errors": 0}
+#: requests sent in this session, by (mode, operation label); problem answers among them
+SENT: dict[tuple[str, str], int] = {}
+ERRORS = {"count": 0}
 # ignored_auth re-sends probes outside the in-process transport (it asks for a base_url);
 # refusal without / with a wrong key is checked on every operation in test_auth.py instead.
 EXCLUDED = [checks.positive_data_acceptance, checks.ignored_auth]
 EXAMPLES = 45
+#: set in the child pytest that the count test may start (it must not start another)
+CHILD = "SPANWRIGHT_FUZZ_CHILD"
 
 
 @pytest.fixture(scope="module")
 def fuzz_app(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Any]:
-    """A keyed app with the embedded worker; limits high enough not to throttle the run."""
+    """A keyed production app (``/metrics`` added as service/wsgi.py does) with the embedded
+    worker; limits high enough not to throttle the run."""
     keys = write_keys(tmp_path_factory.mktemp("keys") / "keys")
     s = Settings(
         keys_file=str(keys),
@@ -73,16 +115,20 @@ def fuzz_app(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Any]:
     )
     server = fakeredis.FakeServer()
     worker = EmbeddedWorker(server, s).start()
-    yield create_app(s, connection=fakeredis.FakeRedis(server=server))
+    conn = fakeredis.FakeRedis(server=server)
+    app = create_app(s, connection=conn)
+    init_metrics(app, s, conn)
+    yield app
     worker.stop(timeout=0)
 
 
-def run_case(case: Any, app: Any) -> None:
-    COUNT["requests"] += 1
+def run_case(mode: str, case: Any, app: Any) -> None:
+    where = (mode, case.operation.label)
+    SENT[where] = SENT.get(where, 0) + 1
     response = case.call_and_validate(app=app, excluded_checks=EXCLUDED)
     assert response.status_code < 500, response.text[:300]
     if response.status_code >= 400:
-        COUNT["errors"] += 1
+        ERRORS["count"] += 1
         media = response.headers.get("content-type", [""])[0]
         assert media.startswith("application/problem+json"), media
         doc = response.json()
@@ -102,17 +148,45 @@ _SETTINGS = settings(
 @_SETTINGS
 def test_positive(case: Any, fuzz_app: Any) -> None:
     """Valid requests (per the schema) on every operation: no 5xx, conforming answers."""
-    run_case(case, fuzz_app)
+    run_case("positive", case, fuzz_app)
 
 
 @negative.parametrize()
 @_SETTINGS
 def test_negative(case: Any, fuzz_app: Any) -> None:
-    """Invalid requests on every operation: rejected with a 4xx problem document."""
-    run_case(case, fuzz_app)
+    """Invalid requests on every operation that takes input: rejected with a 4xx problem
+    document."""
+    run_case("negative", case, fuzz_app)
+
+
+def test_negative_run_leaves_out_exactly_the_operations_without_input() -> None:
+    """The operations schemathesis cannot negate (no parameter, no body) are the ones the
+    negative run excludes, and every other operation is in it."""
+    assert sorted(NO_INPUT) == ["healthz", "metrics", "openapi", "pagePlanList", "readyz"]
+    fuzzed = {op.ok().label for op in negative.get_all_operations()}
+    assert fuzzed == {label for label, oid in OPERATIONS.items() if oid not in NO_INPUT}
 
 
 def test_at_least_a_thousand_requests() -> None:
-    """Runs after the two above (file order): they sent at least 1,000 requests in total."""
-    print(f"\nschemathesis: {COUNT['requests']} requests, {COUNT['errors']} problem answers")
-    assert COUNT["requests"] >= 1000
+    """Both modes over every operation sent at least 1,000 requests in total. Counted in
+    this session when its fuzz tests all ran; otherwise (this test alone, ``-k``, another
+    order) counted by running them in a child pytest, whose result it checks."""
+    wanted = {("positive", label) for label in OPERATIONS} | {
+        ("negative", label) for label, oid in OPERATIONS.items() if oid not in NO_INPUT
+    }
+    if wanted <= set(SENT) or os.environ.get(CHILD) == "1":
+        total = sum(SENT.values())
+        print(f"\nschemathesis: {total} requests, {ERRORS['count']} problem answers")
+        assert total >= 1000
+        return
+    child = subprocess.run(
+        [sys.executable, "-m", "pytest", "-q", "-s", "-p", "no:cacheprovider", __file__],
+        cwd=ROOT,
+        env={**os.environ, CHILD: "1"},
+        capture_output=True,
+        text=True,
+        timeout=280,
+    )
+    assert child.returncode == 0, child.stdout[-3000:] + child.stderr[-2000:]
+    found = re.search(r"schemathesis: (\d+) requests", child.stdout)
+    assert found is not None and int(found.group(1)) >= 1000, child.stdout[-2000:]

@@ -199,6 +199,8 @@ class RedisProc:
     def __init__(self, data: Path) -> None:
         exe = shutil.which("redis-server")
         if exe is None:
+            if os.environ.get("SPANWRIGHT_REQUIRE_SERVERS") == "1":
+                pytest.fail("redis-server is not installed and SPANWRIGHT_REQUIRE_SERVERS=1")
             pytest.skip("redis-server is not installed")
         self.exe, self.data, self.port = exe, data, free_port()
         self.proc: subprocess.Popen[bytes] | None = None

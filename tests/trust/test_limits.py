@@ -145,3 +145,63 @@ def test_request_rate_limit(keyed_app: Any) -> None:
     assert_429(c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")), 60)
     assert c.get("/v1/plans", headers=bearer("brightwater")).status_code == 200
     assert c.get("/healthz").status_code == 200
+
+
+def test_idempotent_retry_at_the_limit_gets_its_own_plan(keyed_app: Any) -> None:
+    """A retry of a submit whose Idempotency-Key is already bound returns that plan (202,
+    ``Idempotent-Replayed: true``, same Location) although the tenant is at its limit: it
+    needs no new slot (IETF httpapi Idempotency-Key draft: a retry returns the first
+    result). A new key is still refused with 429, and the same key with another body is a
+    422; neither stores anything nor takes a slot."""
+    c = keyed_app.test_client()
+    key = {"Idempotency-Key": '"lh-ep01-sh010-0001"', **bearer("lanternhill")}
+    first = c.post("/v1/plans", json=small_batch(), headers=key)
+    assert first.status_code == 202
+    for _ in range(4):
+        assert (
+            c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code
+            == 202
+        )
+    before = ids(c, "lanternhill")
+    conn = keyed_app.extensions["spanwright"].store.conn
+    slots = conn.zrange("swtrust:active:lanternhill", 0, -1)
+    assert len(slots) == 5
+    retry = c.post("/v1/plans", json=small_batch(), headers=key)
+    assert retry.status_code == 202, retry.get_data(as_text=True)
+    assert retry.headers["Idempotent-Replayed"] == "true"
+    assert retry.headers["Location"] == first.headers["Location"]
+    fresh = {"Idempotency-Key": '"lh-ep01-sh010-0002"', **bearer("lanternhill")}
+    assert_429(c.post("/v1/plans", json=small_batch(), headers=fresh), 60)
+    other = c.post("/v1/plans", json=small_batch(n=5), headers=key)
+    assert other.status_code == 422
+    assert other.get_json()["type"] == "/problems/idempotency-key-reused"
+    assert ids(c, "lanternhill") == before
+    assert conn.zrange("swtrust:active:lanternhill", 0, -1) == slots
+
+
+def test_replan_is_admitted_like_a_submit(keyed_app: Any, drain_queue: Any) -> None:
+    """``POST /v1/plans/{id}/replan`` queues a new plan, so it passes the same queue-depth
+    admission as ``POST /v1/plans`` (RFC 6585 section 4: 429 with Retry-After, nothing
+    stored); a retry with its bound Idempotency-Key still gets its plan at the limit; and
+    it counts against the per-tenant request rate like every keyed request."""
+    c = keyed_app.test_client()
+    loc = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).headers["Location"]
+    drain_queue()
+    events = {"elapsed": 10.0, "finished": ["sh010_f000"]}
+    key = {"Idempotency-Key": '"lh-replan-0001"', **bearer("lanternhill")}
+    first = c.post(f"{loc}/replan", json=events, headers=key)
+    assert first.status_code == 202, first.get_data(as_text=True)
+    for _ in range(4):
+        assert (
+            c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code
+            == 202
+        )
+    before = ids(c, "lanternhill")
+    assert_429(c.post(f"{loc}/replan", json=events, headers=bearer("lanternhill")), 60)
+    assert ids(c, "lanternhill") == before
+    retry = c.post(f"{loc}/replan", json=events, headers=key)
+    assert retry.status_code == 202 and retry.headers["Idempotent-Replayed"] == "true"
+    assert retry.headers["Location"] == first.headers["Location"]
+    while c.get("/v1/plans", headers=bearer("lanternhill")).status_code != 429:
+        pass  # spend the rest of the window's 40 requests
+    assert_429(c.post(f"{loc}/replan", json=events, headers=key), 60)

@@ -5,6 +5,11 @@ Each test builds the Redis state that a crash leaves behind, as RQ 3.0 writes it
 registry, the worker's hash with ``hostname``/``pid``, or a job id left in the
 ``:intermediate`` list), runs the reaper, and checks that a worker then completes the
 plan. The real-process version is tests/trust/test_crash.py.
+
+A worker killed on another host is noticed when its job's started-registry entry
+expires; the last tests check that ``spanwright worker`` (LeanWorker) keeps that entry
+short-lived and refreshed while a job runs, as RQ's forking worker does (RQ 3.0
+``BaseWorker.get_heartbeat_ttl`` and ``maintain_heartbeats``).
 """
 
 from __future__ import annotations
@@ -13,11 +18,18 @@ import os
 import socket
 import subprocess
 import sys
+import threading
 import time
 from typing import Any
 
+import fakeredis
+from rq import Queue
 from rq.job import JobStatus
+from rq.registry import StartedJobRegistry
+from rq.serializers import JSONSerializer
 
+from service.embedded import ThreadWorker
+from service.worker import JOB_MONITORING_INTERVAL, LeanWorker
 from tests.trust.conftest import bearer, small_batch
 
 
@@ -90,3 +102,50 @@ def test_job_stranded_between_dequeue_and_start_is_put_back(
     drain_queue()
     doc = keyed_app.test_client().get(loc, headers=bearer("lanternhill")).get_json()
     assert doc["status"] == "done"
+
+
+def entry_expiries(conn: Any, queue: Queue) -> list[float]:
+    """Seconds until each started-registry entry of ``queue`` expires (its score is the
+    expiry time, RQ ``registry.py``)."""
+    now = time.time()
+    key = StartedJobRegistry(queue=queue).key
+    return [score - now for _, score in conn.zrange(key, 0, -1, withscores=True)]
+
+
+def test_started_entry_lives_at_most_interval_plus_60_s() -> None:
+    """Whatever the job timeout (here 65 s: a 60 s budget + 5 s margin), LeanWorker's
+    started-registry entry lives at most ``job_monitoring_interval`` + 60 s (RQ's rule for
+    a worker that beats during the job), not SimpleWorker's timeout + 60 = 125 s; so a
+    worker killed on another host is seen within 70 s by default."""
+    conn = fakeredis.FakeRedis()
+    queue = Queue("ttl", connection=conn, serializer=JSONSerializer)
+    job = queue.enqueue("time.sleep", args=[0], job_timeout=65)
+    worker = LeanWorker([queue], connection=conn, serializer=JSONSerializer)
+    assert worker.job_monitoring_interval == JOB_MONITORING_INTERVAL == 10
+    worker.prepare_execution(job)
+    (left,) = entry_expiries(conn, queue)
+    assert 60 < left <= JOB_MONITORING_INTERVAL + 60
+
+
+def test_running_job_entry_is_refreshed_and_gone_after() -> None:
+    """A job of 2.6 s on a worker beating every 1 s: its entry never lives more than
+    1 + 60 s ahead and is pushed forward while the job runs (so it does not expire under
+    a live worker); once the job is done the entry is gone (no late beat restores it)."""
+    conn = fakeredis.FakeRedis()
+    queue = Queue("beat", connection=conn, serializer=JSONSerializer)
+    queue.enqueue("time.sleep", args=[2.6], job_timeout=65, result_ttl=0)
+    worker = ThreadWorker(
+        [queue], connection=conn, serializer=JSONSerializer, job_monitoring_interval=1
+    )
+    thread = threading.Thread(target=worker.work, kwargs={"burst": True}, daemon=True)
+    thread.start()
+    expiries: list[float] = []  # absolute expiry times seen while the job ran
+    while thread.is_alive():
+        for left in entry_expiries(conn, queue):
+            assert left <= 1 + 60 + 0.5
+            expiries.append(time.time() + left)
+        time.sleep(0.1)
+    thread.join(5)
+    assert expiries, "the job was never seen running"
+    assert max(expiries) - min(expiries) >= 1.5  # refreshed at least twice
+    assert entry_expiries(conn, queue) == []

@@ -20,12 +20,14 @@ import pytest
 from scipy import stats
 
 from service.cli import main as cli_main
+from workers import tasks
 from workers.planning import Instance, Node
 from workers.planning import confidence as cf
 from workers.planning.errors import Infeasible, InvalidInstance
 from workers.planning.greedy import list_schedule, longest_first_schedule
 from workers.planning.kernels import earliest_finish
 from workers.planning.result import Schedule
+from workers.planning.sizing import SizingResult, size_from_request
 
 Z90 = stats.norm.ppf(0.9)
 
@@ -590,3 +592,209 @@ def test_cli_prints_the_block_and_exits_2_on_bad_input(tmp_path, capsys) -> None
     f.write_text(json.dumps(body))
     assert cli_main(["confidence", str(f)]) == 2
     assert "/spread" in capsys.readouterr().err
+
+
+# -- sizings: the answer's confidence, and sizing to a confidence (issue 10) ----------------
+def lpt_makespan(times: np.ndarray, m: int) -> float:
+    """Longest processing time first (Graham 1969) written with heapq: each job, longest
+    first, onto the least-loaded of m nodes; the makespan does not depend on ties."""
+    heap = [0.0] * m
+    for t in sorted(times.tolist(), reverse=True):
+        heapq.heapreplace(heap, heap[0] + t)
+    return max(heap)
+
+
+def sizing_body(d: np.ndarray, deadline: float, **extra: object) -> dict[str, object]:
+    """A POST /v1/sizings body for shot estimates ``d`` of the Lantern Hill episode."""
+    jobs = [{"id": f"lh_sh{j:03d}", "duration": float(x)} for j, x in enumerate(d)]
+    return {"jobs": jobs, "deadline": deadline, **extra}
+
+
+def sized(body: dict[str, object]) -> tuple[SizingResult, dict[str, object]]:
+    """The sizing of ``body`` and the confidence fields the service adds to it."""
+    res = size_from_request(body, time_budget=0.3)
+    asked = cf.SpreadRequest.from_body(body)
+    assert asked is not None
+    return res, cf.sizing_confidence(res.schedule, asked)
+
+
+def wilson_lower(p: float, n: int) -> float:
+    """The 95% Wilson lower limit from scipy (binomtest(...).proportion_ci, 'wilson')."""
+    k = round(p * n)
+    return float(stats.binomtest(k, n).proportion_ci(0.95, method="wilson").low)
+
+
+def test_sizing_zero_spread_confidence_is_the_answer_plan_exactly() -> None:
+    """Zero spread (the contract): the answer's plan meets its deadline in every sample, so
+    P = 1 exactly with the point interval and p50 = p90 = p99 = the plan's makespan bit for
+    bit, on a node kind of speed 1.5; dispatching the same plan order equals the
+    brute-force heapq simulation (reference_dispatch); no target, no confidence_sizing."""
+    d = studio_batch(80, 13)
+    body = sizing_body(d, 1.1 * d.sum() / 9, node={"speed": 1.5}, spread=0.0)
+    body["confidence_samples"] = 50
+    res, extra = sized(body)
+    block = extra["confidence"]
+    assert isinstance(block, dict) and "confidence_sizing" not in extra
+    assert block["deadline_probability"] == 1.0 and block["interval"] == [1.0, 1.0]
+    assert block["makespan_p50"] == block["makespan_p90"] == block["makespan_p99"]
+    assert block["makespan_p99"] == res.makespan and block["makespan_sd"] == 0.0
+    ref = float(reference_dispatch(res.schedule, res.schedule.instance.durations).max())
+    dyn = block["dynamic"]
+    assert dyn["makespan_p50"] == dyn["makespan_p99"] == ref
+    assert dyn["deadline_probability"] == (1.0 if ref <= res.deadline else 0.0)
+
+
+def test_sizing_on_one_node_simulates_the_lognormal_sum() -> None:
+    """7,200 s of work, a 4,000 s deadline, nodes of speed 2: one node does it (7200 / 2 <=
+    4000, by hand), so the makespan is sum(D_j) / 2 with p90 jobs (median = estimate) and
+    spread jobs (mean = estimate) mixed; its mean and variance are the lognormal sums
+    (Johnson-Kotz-Balakrishnan ch. 14), checked within 5 standard errors, both policies."""
+    d = np.array([600.0, 1200.0, 1800.0, 300.0, 2400.0, 900.0])
+    p90 = [720.0, 1800.0, None, None, 7200.0, None]
+    c, n = 0.3, 20_000
+    body = sizing_body(d, 4000.0, node={"speed": 2.0}, spread=c)
+    body.update(confidence_samples=n, confidence_seed=5)
+    for job, q in zip(body["jobs"], p90, strict=True):  # type: ignore[call-overload]
+        if q is not None:
+            job["duration_p90"] = q
+    res, extra = sized(body)
+    assert res.nodes_needed == 1
+    s_spread = math.sqrt(math.log(1 + c * c))
+    s = np.array([math.log(q / x) / Z90 if q else s_spread for x, q in zip(d, p90, strict=True)])
+    mu = np.log(d) - np.where([q is None for q in p90], s * s / 2, 0.0)
+    mean, var, k4 = lognormal_cumulants(mu, s)
+    mean, var, k4 = mean / 2, var / 4, k4 / 16  # the node's speed divides every duration
+    block = extra["confidence"]
+    assert isinstance(block, dict)
+    for part in (block, block["dynamic"]):
+        assert abs(part["makespan_mean"] - mean) < 5 * math.sqrt(var / n)
+        assert abs(part["makespan_sd"] ** 2 - var) < 5 * math.sqrt((k4 + 2 * var * var) / n)
+
+
+def test_sizing_to_a_confidence_passes_its_rule_and_the_count_below_fails() -> None:
+    """With a target q the answer's Wilson lower limit (recomputed with scipy from its P
+    and sample count) is >= q and one node fewer's is < q; both counts' plans are LPT on
+    nodes of the sized speed (makespans against a heapq LPT of duration / speed)."""
+    d = studio_batch(300, 14)
+    speed, q, n = 1.5, 0.9, 2000
+    body = sizing_body(d, 1.1 * d.sum() / (speed * 15), node={"speed": speed}, spread=0.3)
+    body.update(confidence=q, confidence_samples=n, confidence_seed=3)
+    _, extra = sized(body)
+    ans = extra["confidence_sizing"]
+    assert isinstance(ans, dict)
+    chosen, fewer = ans["chosen"], ans["fewer"]
+    assert chosen["nodes"] == ans["nodes_needed"] == fewer["nodes"] + 1
+    assert wilson_lower(chosen["deadline_probability"], n) >= q
+    assert wilson_lower(fewer["deadline_probability"], n) < q
+    assert chosen["interval"][0] == pytest.approx(wilson_lower(chosen["deadline_probability"], n))
+    for row in (chosen, fewer):
+        assert row["planned_makespan"] == pytest.approx(lpt_makespan(d / speed, row["nodes"]))
+    assert ans["samples"] == n and ans["seed"] == 3 and ans["confidence"] == q
+
+
+def test_sizing_to_a_confidence_without_spread_is_the_brute_force_lpt_count() -> None:
+    """Zero spread, jobs needing a tag the node kind provides, speed 2: the answer is the
+    fewest nodes whose LPT makespan (heapq, duration / 2) meets the deadline, found by
+    scanning every count from 1; the plan's own P is exactly 1."""
+    d = studio_batch(120, 15)
+    deadline = 1.03 * d.sum() / (2 * 10)
+    body = sizing_body(d, deadline, node={"speed": 2.0, "provides": ["gpu"]}, confidence=0.95)
+    body["confidence_samples"] = 100
+    body["jobs"][0]["requires"] = ["gpu"]  # type: ignore[index]
+    res, extra = sized(body)
+    brute = next(c for c in range(1, 200) if lpt_makespan(d / 2, c) <= deadline)
+    ans = extra["confidence_sizing"]
+    assert isinstance(ans, dict) and ans["nodes_needed"] == brute
+    assert extra["confidence"]["deadline_probability"] == 1.0  # type: ignore[index]
+    assert res.schedule.instance.nodes[0].provides == frozenset({"gpu"})
+
+
+def test_sizing_confidence_repeats_exactly_with_its_seed() -> None:
+    """The worker task (tasks.size_farm) twice with one seed: identical confidence and
+    confidence_sizing, bit for bit; another seed draws other samples."""
+    d = studio_batch(200, 16)
+    body = sizing_body(d, 1.1 * d.sum() / 12, spread=0.25, confidence=0.8)
+    body.update(confidence_samples=500, confidence_seed=11)
+
+    def run(b: dict[str, object]) -> dict[str, object]:
+        out = tasks.size_farm(
+            b, method="", time_budget=0.2, progress=lambda p: None, should_stop=lambda: False
+        )
+        return out.result
+
+    a, b = run(body), run(body)
+    assert a["confidence"] == b["confidence"] and a["confidence_sizing"] == b["confidence_sizing"]
+    other = run({**body, "confidence_seed": 12})
+    assert other["confidence"]["makespan_mean"] != a["confidence"]["makespan_mean"]  # type: ignore[index]
+
+
+def test_sizing_to_a_confidence_beyond_max_nodes_names_max_nodes() -> None:
+    """When the deterministic answer fits max_nodes but the confidence needs more nodes,
+    the sizing to a confidence is Infeasible with a pointer at /max_nodes."""
+    d = studio_batch(200, 17)
+    body = sizing_body(d, d.sum() / 10, spread=0.4, confidence=0.95)
+    body["confidence_samples"] = 300
+    res, extra = sized(body)
+    ans = extra["confidence_sizing"]
+    assert isinstance(ans, dict) and ans["nodes_needed"] > res.nodes_needed
+    with pytest.raises(Infeasible) as exc:
+        sized({**body, "max_nodes": res.nodes_needed})
+    assert [i.pointer for i in exc.value.issues] == ["/max_nodes"]
+
+
+@pytest.mark.parametrize(
+    ("extra", "pointer"),
+    [
+        ({"confidence": 1.0}, "/confidence"),
+        ({"confidence": True}, "/confidence"),
+        ({"spread": 0.2, "confidence_seed": -1}, "/confidence_seed"),
+        ({"confidence_samples": 2.5}, "/confidence_samples"),
+        ({"spread": "0.2"}, "/spread"),
+        ({"spread": 0.2, "max_nodes": 0}, "/max_nodes"),
+    ],
+)
+def test_spread_request_names_a_bad_input(extra: dict[str, object], pointer: str) -> None:
+    """A body that skipped the API's schema (the command line) gets the same pointers."""
+    with pytest.raises(InvalidInstance) as exc:
+        cf.SpreadRequest.from_body(sizing_body(np.array([60.0]), 100.0, **extra))
+    assert [i.pointer for i in exc.value.issues] == [pointer]
+
+
+def test_spread_request_only_when_asked() -> None:
+    """No p90, spread, confidence_samples or confidence: no simulation (None); a job's
+    p90 alone asks for one, with the defaults 1000 samples and seed 0."""
+    body = sizing_body(np.array([60.0, 90.0]), 100.0)
+    assert cf.SpreadRequest.from_body(body) is None
+    body["jobs"][1]["duration_p90"] = 120.0  # type: ignore[index]
+    assert cf.SpreadRequest.from_body(body) == cf.SpreadRequest(None, 1000, 0)
+
+
+def test_cli_size_prints_the_confidence_lines(tmp_path, capsys) -> None:  # type: ignore[no-untyped-def]
+    """`spanwright size FILE` prints the block's lines and the answer to the confidence;
+    --json carries both objects; zero spread: P = 1 and, by hand, 2 nodes for q = 0.9
+    (3600 + 1800 + 1800 s, 3600 s deadline: one node takes 7200 s; LPT on two is 3600 s)."""
+    body = {
+        "jobs": [
+            {"id": "lh_sq010_beauty", "duration": 3600},
+            {"id": "lh_sq010_fx", "duration": 1800},
+            {"id": "lh_sq020_fx", "duration": 1800},
+        ],
+        "deadline": 3600,
+        "spread": 0.0,
+        "confidence": 0.9,
+        "confidence_samples": 50,
+    }
+    f = tmp_path / "sizing.json"
+    f.write_text(json.dumps(body))
+    assert cli_main(["size", str(f), "--time-budget", "0.1"]) == 0
+    out = capsys.readouterr().out
+    assert "P(meet deadline) 1.0000 (95% interval 1.0000 - 1.0000)" in out
+    assert "to confidence   0.9: 2 node(s)" in out
+    assert cli_main(["size", str(f), "--time-budget", "0.1", "--json", "--no-plan"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["confidence"]["deadline_probability"] == 1.0
+    assert doc["confidence_sizing"]["nodes_needed"] == 2
+    assert doc["confidence_sizing"]["fewer"]["deadline_probability"] == 0.0
+    f.write_text(json.dumps({**body, "confidence": 2}))
+    assert cli_main(["size", str(f)]) == 2
+    assert "/confidence" in capsys.readouterr().err

@@ -185,7 +185,6 @@ def test_identical_nodes_reduce_exactly(method: str) -> None:
 def test_identical_nodes_reduce_exactly_exact_method() -> None:
     """``exact`` on plain nodes with all-provided tags equals the identical-node exact
     solver's result on the node_count instance (same makespan and bound)."""
-    pytest.importorskip("workers.planning.exact")
     rng = np.random.default_rng(5)
     d = rng.integers(1, 100, 10)
     nodes = [Node(f"rack-{k}", provides=frozenset({"gpu"})) for k in range(3)]

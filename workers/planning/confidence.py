@@ -68,7 +68,7 @@ from __future__ import annotations
 
 import math
 import os
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from functools import cache
@@ -631,6 +631,13 @@ class ConfidenceResult:
             return p, p
         return wilson_interval(self.successes, self.samples)
 
+    @property
+    def makespan_sd(self) -> float:
+        """Sample standard deviation of the makespan (n - 1 divisor; 0 for one sample)."""
+        if self.samples < 2 or self.deterministic:
+            return 0.0
+        return float(self.makespans.std(ddof=1))
+
     def quantile(self, q: float) -> float:
         """Sample quantile of the makespan (numpy's default, Hyndman-Fan type 7)."""
         return float(np.quantile(self.makespans, q))
@@ -679,6 +686,7 @@ class ConfidenceResult:
             "deadline": self.deadline,
             "planned_makespan": self.planned_makespan,
             "makespan_mean": float(self.makespans.mean()),
+            "makespan_sd": self.makespan_sd,
             "standard_error": self.standard_error,
             "interval": None if iv is None else list(iv),
             "interval_method": "wilson_95" if not self.deterministic else "exact",
@@ -852,6 +860,7 @@ _DYNAMIC_KEYS = (
     "makespan_p90",
     "makespan_p99",
     "makespan_mean",
+    "makespan_sd",
     "standard_error",
     "interval",
     "quantile_intervals",
@@ -876,13 +885,18 @@ class ConfidenceSizing:
     curve: list[dict[str, Any]]
     nodes_lower_bound: int
     schedule: Schedule
+    seed: int = 0
+    policy: str = "static"
 
     def to_dict(self) -> dict[str, Any]:
+        """The ``confidence_sizing`` object of a sizing result (``POST /v1/sizings``)."""
         return {
             "nodes_needed": self.nodes,
             "confidence": self.confidence,
             "deadline": self.deadline,
             "samples": self.samples,
+            "seed": self.seed,
+            "policy": self.policy,
             "interval_level": self.level,
             "rule": self.rule,
             "chosen": self.chosen,
@@ -899,6 +913,69 @@ def lpt_plan(inst: Instance) -> Schedule:
     return Schedule(inst, node_of, start)
 
 
+def confidence_target(
+    durations: Sequence[float] | FloatArray,
+    deadline: float,
+    q: float,
+    *,
+    speed: float = 1.0,
+    duration_p90: Sequence[float | None] | None = None,
+    spread: float | None = None,
+    samples: int = 1000,
+    policy: Policy = "static",
+    job_ids: Sequence[str] | None = None,
+) -> tuple[Instance, SpreadModel]:
+    """The checks of a sizing to confidence ``q`` that need no sampling; (jobs, model).
+
+    Raises :class:`InvalidInstance` for bad arguments and when ``samples`` cannot show
+    ``q`` at all (with N samples the Wilson lower limit is at most N / (N + z^2), reached
+    when every sample meets the deadline), and :class:`Infeasible` when no node count can
+    reach ``q``: with every job alone on a node the makespan is the longest job, so the
+    product of the jobs' own chances (:func:`job_probabilities`, a closed form) bounds
+    P(meet) from above for any plan. Returns the jobs on one node (the node count is
+    what the caller varies) and their spread model.
+    """
+    d = np.asarray(durations, dtype=np.float64)
+    issues: list[Issue] = []
+    if not (isinstance(q, int | float) and not isinstance(q, bool) and 0 < q < 1):
+        issues.append(Issue("/confidence", "must be a number strictly between 0 and 1"))
+    if not (isinstance(speed, int | float) and math.isfinite(speed) and speed > 0):
+        issues.append(Issue("/node/speed", "must be a finite number > 0"))
+    if not (isinstance(deadline, int | float) and math.isfinite(deadline) and deadline > 0):
+        issues.append(Issue("/deadline", "must be a finite number > 0"))
+    if issues:
+        raise InvalidInstance(f"{len(issues)} problem(s) in the sizing request", issues)
+    _check_args(samples, policy, float(deadline))
+    one = Instance.build(d, 1, deadline=deadline, job_ids=job_ids)
+    if duration_p90 is not None:
+        one = _with_p90(one, duration_p90)
+    model = SpreadModel.from_instance(one, spread)
+    best_limit = 1.0 if model.deterministic else wilson_interval(samples, samples)[0]
+    if best_limit < q:
+        need = math.ceil(Z95 * Z95 * q / (1 - q))
+        raise InvalidInstance(
+            f"with {samples} samples the 95% lower limit cannot reach {q}",
+            [Issue("/confidence_samples", f"need at least about {need} samples for q = {q}")],
+        )
+    reach = job_probabilities(model, one.durations / speed, float(deadline))
+    alone = float(np.prod(reach))
+    if alone < q:
+        worst = np.argsort(reach, kind="stable")[: max(1, int(np.sum(reach < q)))][:20]
+        raise Infeasible(
+            f"no node count can meet the deadline with confidence {q}: even alone on a node, "
+            f"the jobs together make it with probability {alone:.4g}",
+            jobs=[one.job_ids[j] for j in worst],
+            issues=[Issue("/confidence", f"at most {alone:.4g} can be reached")]
+            + [
+                Issue(
+                    f"/jobs/{j}", f"alone on a node it meets the deadline with P = {reach[j]:.4g}"
+                )
+                for j in worst
+            ],
+        )
+    return one, model
+
+
 def nodes_for_confidence(
     durations: Sequence[float] | FloatArray,
     deadline: float,
@@ -912,6 +989,7 @@ def nodes_for_confidence(
     policy: Policy = "static",
     max_nodes: int | None = None,
     threads: int | None = None,
+    job_ids: Sequence[str] | None = None,
 ) -> ConfidenceSizing:
     """Fewest identical nodes (of ``speed``) whose LPT plan meets ``deadline`` with P >= q.
 
@@ -923,38 +1001,20 @@ def nodes_for_confidence(
     count, then steps down while the count below also passes; the answer passes and the
     count below it was simulated and failed. LPT plans are not monotone in the node count
     (Graham 1969's anomalies), so "fewest" is this search's answer, verified at the
-    answer and one below. Every count uses the same seed: paired comparisons.
+    answer and one below. Every count uses the same seed: paired comparisons. The checks
+    that need no sampling come first (:func:`confidence_target`).
     """
-    d = np.asarray(durations, dtype=np.float64)
-    issues: list[Issue] = []
-    if not (isinstance(q, int | float) and 0 < q < 1):
-        issues.append(Issue("/confidence", "must be a number strictly between 0 and 1"))
-    if not (isinstance(speed, int | float) and math.isfinite(speed) and speed > 0):
-        issues.append(Issue("/node/speed", "must be a finite number > 0"))
-    if not (isinstance(deadline, int | float) and math.isfinite(deadline) and deadline > 0):
-        issues.append(Issue("/deadline", "must be a finite number > 0"))
-    if issues:
-        raise InvalidInstance(f"{len(issues)} problem(s) in the sizing request", issues)
-    _check_args(samples, policy, float(deadline))
-    one = Instance.build(d, 1, deadline=deadline)
-    if duration_p90 is not None:
-        one = _with_p90(one, duration_p90)
-    model = SpreadModel.from_instance(one, spread)
-    best_limit = 1.0 if model.deterministic else wilson_interval(samples, samples)[0]
-    if best_limit < q:
-        need = math.ceil(Z95 * Z95 * q / (1 - q))
-        raise InvalidInstance(
-            f"with {samples} samples the 95% lower limit cannot reach {q}",
-            [Issue("/confidence_samples", f"need at least about {need} samples for q = {q}")],
-        )
-    reach = job_probabilities(model, one.durations / speed, float(deadline))
-    if float(np.prod(reach)) < q:
-        worst = np.argsort(reach, kind="stable")[: max(1, int(np.sum(reach < q)))][:20]
-        raise Infeasible(
-            f"no node count can meet the deadline with confidence {q}: even alone on a node, "
-            f"the jobs together make it with probability {float(np.prod(reach)):.4g}",
-            jobs=[one.job_ids[j] for j in worst],
-        )
+    one, model = confidence_target(
+        durations,
+        deadline,
+        q,
+        speed=speed,
+        duration_p90=duration_p90,
+        spread=spread,
+        samples=samples,
+        policy=policy,
+        job_ids=job_ids,
+    )
     n = one.n
     upper = n if max_nodes is None else min(int(max_nodes), max(n, 1))
     lower = max(1, math.ceil(one.total / (speed * deadline) - 1e-12))
@@ -997,10 +1057,16 @@ def nodes_for_confidence(
     while not evaluate(c):
         last_fail = c
         if c >= upper:
+            best = max(r["interval"][0] for r in rows.values())
             raise Infeasible(
                 f"no count up to {upper} node(s) meets the deadline with confidence {q} "
-                f"(best lower limit {max(r['interval'][0] for r in rows.values()):.4f})",
+                f"(best lower limit {best:.4f})",
                 jobs=[],
+                issues=[
+                    Issue("/max_nodes", f"no count up to {upper} passes")
+                    if max_nodes is not None and upper == int(max_nodes)
+                    else Issue("/confidence", f"the best 95% lower limit is {best:.4f}")
+                ],
             )
         c = min(upper, c + step)
         step *= 2
@@ -1028,6 +1094,8 @@ def nodes_for_confidence(
         curve=[rows[key] for key in sorted(rows)],
         nodes_lower_bound=lower,
         schedule=plans[c],
+        seed=seed,
+        policy=policy,
     )
 
 
@@ -1063,3 +1131,159 @@ def _with_p90(inst: Instance, p90: Sequence[float | None]) -> Instance:
         deadline=inst.deadline,
         duration_p90=tuple(None if v is None else float(v) for v in p90),
     )
+
+
+# -- the confidence fields of a sizing ----------------------------------------------------
+#: request keys that ask for a simulation (as does any job's ``duration_p90``)
+SIMULATION_KEYS = ("spread", "confidence_samples", "confidence")
+DEFAULT_SAMPLES = 1000
+MAX_SEED = 2**32 - 1
+
+
+def _finite_number(x: object) -> bool:
+    return isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x)
+
+
+def _whole_number(x: object) -> bool:
+    return _finite_number(x) and float(x).is_integer()  # type: ignore[arg-type]
+
+
+@dataclass(frozen=True, slots=True)
+class SpreadRequest:
+    """What a request asks the simulation for: spread, samples, seed, maybe a target q."""
+
+    spread: float | None
+    samples: int
+    seed: int
+    #: the confidence q of "the fewest nodes with P(meet deadline) >= q", if asked
+    target: float | None = None
+    #: most nodes the sizing to ``target`` may answer (None: the sizing's default)
+    max_nodes: int | None = None
+
+    @classmethod
+    def from_body(cls, body: Mapping[str, Any]) -> SpreadRequest | None:
+        """Read ``spread``, ``confidence_samples``, ``confidence_seed`` and ``confidence``.
+
+        None when the body asks for no simulation: no job has ``duration_p90`` and none of
+        ``spread``, ``confidence_samples`` or ``confidence`` is given (as for plans, plus
+        the target). Types and ranges are checked here, so that a body that skipped the
+        API's schema (the command line) gets the same pointers.
+        """
+        jobs = body.get("jobs")
+        with_p90 = isinstance(jobs, list) and any(
+            isinstance(job, Mapping) and job.get("duration_p90") is not None for job in jobs
+        )
+        if not with_p90 and not any(key in body for key in SIMULATION_KEYS):
+            return None
+        issues: list[Issue] = []
+        spread = body.get("spread")
+        if spread is not None and not (_finite_number(spread) and spread >= 0):
+            issues.append(Issue("/spread", "must be a finite number >= 0"))
+        samples = body.get("confidence_samples", DEFAULT_SAMPLES)
+        if not (_whole_number(samples) and samples >= 1):
+            issues.append(Issue("/confidence_samples", "must be a whole number >= 1"))
+        seed = body.get("confidence_seed", 0)
+        if not (_whole_number(seed) and 0 <= seed <= MAX_SEED):
+            issues.append(Issue("/confidence_seed", f"must be a whole number in 0..{MAX_SEED}"))
+        target = body.get("confidence")
+        if target is not None and not (_finite_number(target) and 0 < target < 1):
+            issues.append(Issue("/confidence", "must be a number strictly between 0 and 1"))
+        max_nodes = body.get("max_nodes")
+        if max_nodes is not None and not (_whole_number(max_nodes) and max_nodes >= 1):
+            issues.append(Issue("/max_nodes", "must be a whole number >= 1"))
+        if issues:
+            raise InvalidInstance(f"{len(issues)} problem(s) with the spread inputs", issues)
+        return cls(
+            spread=None if spread is None else float(spread),
+            samples=int(samples),
+            seed=int(seed),
+            target=None if target is None else float(target),
+            max_nodes=None if max_nodes is None else int(max_nodes),
+        )
+
+    def check(self, inst: Instance, speed: float) -> None:
+        """The checks that need no sampling, for the jobs and deadline of ``inst``.
+
+        The spread model (a p90 on a zero estimate, a spread too wide to simulate) and,
+        with a target, :func:`confidence_target` on nodes of ``speed`` (q out of reach of
+        the sample count, or of any node count). Cheap: closed forms, no sampling.
+        """
+        if self.target is None:
+            SpreadModel.from_instance(inst, self.spread)
+            return
+        if inst.deadline is None:
+            raise InvalidInstance(
+                "sizing to a confidence needs a deadline", [Issue("/deadline", "required")]
+            )
+        confidence_target(
+            inst.durations,
+            inst.deadline,
+            self.target,
+            speed=speed,
+            duration_p90=inst.duration_p90,
+            spread=self.spread,
+            samples=self.samples,
+            job_ids=inst.job_ids,
+        )
+
+    def check_body(self, body: Mapping[str, Any]) -> None:
+        """:meth:`check` on a ``POST /v1/sizings`` body whose shape was already checked."""
+        jobs = body["jobs"]
+        node = body.get("node") or {}
+        one = Instance.build(
+            [float(job["duration"]) for job in jobs],
+            1,
+            job_ids=[str(job["id"]) for job in jobs],
+            deadline=float(body["deadline"]),
+            duration_p90=[job.get("duration_p90") for job in jobs],
+        )
+        self.check(one, float(node.get("speed", 1.0)))
+
+
+def sizing_confidence(
+    schedule: Schedule, asked: SpreadRequest, *, threads: int | None = None
+) -> dict[str, Any]:
+    """The ``confidence`` and ``confidence_sizing`` fields of a sizing result.
+
+    ``schedule`` is the sizing's answer: its plan on ``nodes_needed`` nodes of the sized
+    kind, with the sizing's deadline. ``confidence`` is :func:`confidence_block` of that
+    plan (static, with dynamic inside), exactly as for a plan. With a target q,
+    ``confidence_sizing`` is :func:`nodes_for_confidence` for nodes of the same speed, at
+    most ``asked.max_nodes`` (the sizing's own default when absent). The kind's
+    ``provides`` need not be passed on: the sizing has already refused any job whose
+    ``requires`` the kind lacks, so every node of the kind may run every job, which is
+    what the identical nodes of that search assume. The checks that need no sampling run
+    first, so a q out of reach fails before anything is simulated.
+    """
+    inst = schedule.instance
+    speed = inst.nodes[0].speed
+    asked.check(inst, speed)
+    out: dict[str, Any] = {
+        "confidence": confidence_block(
+            schedule,
+            spread=asked.spread,
+            samples=asked.samples,
+            seed=asked.seed,
+            deadline=inst.deadline,
+            threads=threads,
+        )
+    }
+    if asked.target is not None:
+        from .sizing import DEFAULT_MAX_NODES  # the sizing's own cap on the answer
+
+        assert inst.deadline is not None  # check() refused a target without a deadline
+        answer = nodes_for_confidence(
+            inst.durations,
+            inst.deadline,
+            asked.target,
+            speed=speed,
+            duration_p90=inst.duration_p90,
+            spread=asked.spread,
+            samples=asked.samples,
+            seed=asked.seed,
+            max_nodes=DEFAULT_MAX_NODES if asked.max_nodes is None else asked.max_nodes,
+            threads=threads,
+            job_ids=inst.job_ids,
+        )
+        out["confidence_sizing"] = answer.to_dict()
+    return out

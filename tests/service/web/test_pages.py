@@ -6,7 +6,10 @@ from __future__ import annotations
 import re
 import time
 import xml.etree.ElementTree as ET
+from html import unescape
 from typing import Any
+
+from scipy import stats
 
 NS = {"s": "http://www.w3.org/2000/svg"}
 
@@ -137,3 +140,67 @@ def test_sizing_page_has_every_curve_row_the_answer_and_the_cost(
         assert "answer: 2 nodes" in labels
     assert "estimated cost of 3.60" in html
     assert "<script" not in html
+
+
+def confidence_card(html: str) -> str | None:
+    """The text of the sizing page's confidence sentence, unescaped (None without one)."""
+    m = re.search(r'<div class="card confidence">(.*?)</div>', html, re.S)
+    return None if m is None else unescape(m.group(1))
+
+
+def test_sizing_page_states_an_exact_confidence_and_the_nodes_for_q(
+    client: Any, priced_sizing: dict[str, Any]
+) -> None:
+    """Zero spread on the hand-checked sizing: P(meet) is exactly 1 (the contract), and
+    for q = 0.9 two nodes are needed, one node (7200 s > 3600 s) never making it; the
+    page says so in one sentence. Without spread inputs there is no such sentence."""
+    body = {**priced_sizing, "spread": 0.0, "confidence": 0.9, "confidence_samples": 20}
+    doc = client.post("/v1/sizings", json=body, headers={"Prefer": "wait=5"}).get_json()
+    html = client.get(f"/sizings/{doc['id']}").get_data(as_text=True)
+    assert confidence_card(html) == (
+        "With no spread in the estimates, the 2-node plan meets the deadline in every run; "
+        "to meet it with probability at least 90% (judged by the lower end of each node "
+        "count's 95% interval) takes 2 nodes; with one node fewer it is only 0.00%."
+    )
+    assert "<script" not in html
+    plain = client.post("/v1/sizings", json=priced_sizing, headers={"Prefer": "wait=5"})
+    assert (
+        confidence_card(client.get(f"/sizings/{plain.get_json()['id']}").get_data(as_text=True))
+        is None
+    )
+
+
+def test_sizing_page_states_the_simulated_probability_with_its_interval(
+    client: Any, priced_sizing: dict[str, Any]
+) -> None:
+    """With spread, the sentence gives the JSON result's P(meet deadline) and its 95%
+    Wilson interval (recomputed here with scipy's binomtest) as percentages."""
+    body = {**priced_sizing, "deadline": 4200, "spread": 0.3, "confidence_samples": 400}
+    doc = client.post("/v1/sizings", json=body, headers={"Prefer": "wait=5"}).get_json()
+    p = doc["result"]["confidence"]["deadline_probability"]
+    ci = stats.binomtest(round(400 * p), 400).proportion_ci(0.95, method="wilson")
+    text = confidence_card(client.get(f"/sizings/{doc['id']}").get_data(as_text=True))
+    assert text == (
+        f"With the estimates' spread, the {doc['result']['nodes_needed']}-node plan meets the "
+        f"deadline in {100 * p:.2f}% of 400 simulated runs (95% interval "
+        f"{100 * ci.low:.2f}% to {100 * ci.high:.2f}%)."
+    )
+
+
+def test_certificate_sentence_names_an_lp_refutation() -> None:
+    """Nearly equal lengths, five per node (the Frangioni NU family): the optimum is proved
+    by the LP bound of bin packing (Gilmore-Gomory 1961, made rigorous by Farley 1990), and
+    the sentence says so instead of claiming a complete search."""
+    import numpy as np
+
+    from service.web.pages import certificate_sentence
+    from workers.planning import Instance, solve
+
+    rng = np.random.default_rng(33)
+    p = [int(x) for x in rng.integers(90, 101, size=49)] + [10]
+    result = solve(Instance.build(p, 10), "exact", time_budget=5).to_dict()
+    assert result["proven_optimal"] and result["bound_source"] == "search"
+    assert result["certificate"]["search"]["refuted_by"]["rule"] == "lp_farley"
+    text = certificate_sentence(result)
+    assert "linear-programming bound" in text and "complete search" not in text
+    assert text.endswith("it is optimal.")
