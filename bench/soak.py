@@ -8,10 +8,12 @@ back once (200). Afterwards every accepted plan is polled until it finishes.
 
 Prints: requests, errors (anything but 200/201/202, or a transport error; target 0),
 lost plans (accepted, then 404; target 0), unfinished plans, p50/p99 latency, and the
-resident memory (VmRSS from /proc) of every process after a 10 s warm-up and at the end
-(target growth < 10%).
+resident memory (VmRSS from /proc) of every process after a warm-up (``--warm``, 10 s)
+and at the end, and Redis's own ``used_memory`` (target growth < 10%). Redis keeps every
+plan for the retention, so with the default (24 h) its memory grows with the plans it holds;
+``--retention 15 --warm 30`` measures it in the steady state where expiry balances new plans.
 
-Usage: python bench/soak.py [--seconds 60] [--clients 16]
+Usage: python bench/soak.py [--seconds 60] [--clients 16] [--retention S] [--warm S]
 """
 
 from __future__ import annotations
@@ -71,6 +73,27 @@ def redis_keys(port: int) -> int:
     return int(redis.Redis(port=port).dbsize())
 
 
+def key_census(port: int, top: int = 8) -> list[tuple[str, int]]:
+    """Keys by shape (ids and numbers replaced by ``*``), most common first."""
+    import re
+
+    import redis
+
+    shapes: dict[str, int] = {}
+    for k in redis.Redis(port=port).scan_iter(count=1000):
+        shape = re.sub(r"[0-9a-f]{16,}|\d+", "*", k.decode(errors="replace"))
+        shapes[shape] = shapes.get(shape, 0) + 1
+    return sorted(shapes.items(), key=lambda kv: -kv[1])[:top]
+
+
+def redis_used_kb(port: int) -> float:
+    """Redis's own count of the memory its data uses (``INFO memory`` used_memory), which
+    unlike the RSS falls again when keys expire."""
+    import redis
+
+    return float(redis.Redis(port=port).info("memory")["used_memory"]) / 1024
+
+
 def wait_http(port: int, timeout: float = 60.0) -> None:
     end = time.monotonic() + timeout
     while time.monotonic() < end:
@@ -94,6 +117,18 @@ def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--seconds", type=float, default=60.0)
     ap.add_argument("--clients", type=int, default=16)
+    ap.add_argument(
+        "--retention",
+        type=int,
+        help="SPANWRIGHT_RETENTION for the stack (default: the service's, 24 h); a short "
+        "one lets Redis reach the steady state in which expiry balances new plans",
+    )
+    ap.add_argument(
+        "--warm",
+        type=float,
+        default=10.0,
+        help="seconds of load before the first memory reading (default 10)",
+    )
     args = ap.parse_args()
     exe = shutil.which("redis-server")
     if exe is None:
@@ -117,6 +152,8 @@ def main() -> int:
         PROMETHEUS_MULTIPROC_DIR=str(tmp / "prom"),
         PYTHONPATH=str(ROOT),
     )
+    if args.retention is not None:
+        env["SPANWRIGHT_RETENTION"] = str(args.retention)
     procs: dict[str, subprocess.Popen[bytes]] = {}
     logs = open(tmp / "procs.log", "wb")  # noqa: SIM115 - closed in finally
     try:
@@ -196,20 +233,26 @@ def main() -> int:
         t_start = time.monotonic()
         for t in threads:
             t.start()
-        time.sleep(min(10.0, args.seconds / 2))
+        time.sleep(min(args.warm, args.seconds / 2))
         mem0 = {name: rss_kb(pid) for name, pid in pids.items()}
+        mem0["redis used_memory"] = redis_used_kb(rport)
         time.sleep(max(0.0, args.seconds - (time.monotonic() - t_start)))
         stop.set()
         for t in threads:
             t.join()
         elapsed = time.monotonic() - t_start
         mem1 = {name: rss_kb(pid) for name, pid in pids.items()}
+        mem1["redis used_memory"] = redis_used_kb(rport)
 
         # every accepted plan must exist and finish
         lost = unfinished = 0
         end = time.monotonic() + 120
+        if args.retention is not None and args.retention < elapsed + 120:
+            accepted_to_check: list[tuple[str, str]] = []  # they may have expired by now
+        else:
+            accepted_to_check = accepted
         conns = {t: http.client.HTTPConnection("127.0.0.1", hport, timeout=30) for t in TENANTS}
-        for tenant, loc in accepted:
+        for tenant, loc in accepted_to_check:
             h = {"Authorization": f"Bearer {keys[tenant]}"}
             while True:
                 conns[tenant].request("GET", loc, headers=h)
@@ -230,15 +273,23 @@ def main() -> int:
             f"soak: {elapsed:.1f} s, {args.clients} clients, {len(TENANTS)} tenants, "
             f"gunicorn {len(pids) - 4} web workers x 8 threads, 2 rq workers"
         )
+        checked = (
+            f"lost: {lost}, unfinished: {unfinished}"
+            if accepted_to_check
+            else "lost and unfinished: not checked (plans expire within the run)"
+        )
         print(
             f"requests: {n} ({n / elapsed:.0f}/s), errors: {len(errors)}, "
-            f"plans accepted: {len(accepted)}, lost: {lost}, unfinished: {unfinished}"
+            f"plans accepted: {len(accepted)}, {checked}"
         )
         print(f"latency: p50 {qs[49] * 1000:.1f} ms, p99 {qs[98] * 1000:.1f} ms")
         print(f"redis keys of the service at the end: {redis_keys(rport)}")
-        print("| process | RSS after 10 s (MiB) | RSS at end (MiB) | growth |")
+        print("  by shape: " + ", ".join(f"{k} {v}" for k, v in key_census(rport)))
+        kept = args.retention if args.retention is not None else "the default"
+        print(f"retention: {kept} s; first memory reading after {args.warm:g} s of load")
+        print("| process | RSS after warm-up (MiB) | RSS at end (MiB) | growth |")
         print("|---|---|---|---|")
-        for name in pids:
+        for name in [*pids, "redis used_memory"]:
             a, b = mem0[name], mem1[name]
             g = (b - a) / a * 100 if a else float("nan")
             print(f"| {name} | {a / 1024:.1f} | {b / 1024:.1f} | {g:+.1f}% |")

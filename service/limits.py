@@ -12,9 +12,11 @@ nothing already accepted is ever removed to make room.
 * **Queue depth**: each accepted record is a member of ``{prefix}:active:{tenant}`` and of
   ``{prefix}:active`` (sorted sets scored by submission time). Admission is one Lua script:
   add to both unless either is at its limit (``SPANWRIGHT_MAX_QUEUED_PER_TENANT``,
-  ``SPANWRIGHT_MAX_QUEUED_TOTAL``), so concurrent submits cannot overshoot. Members whose
-  record has finished (or expired) are pruned lazily, only when a set looks full, with one
-  pipelined ``HGET status`` per member: the common path costs one script call.
+  ``SPANWRIGHT_MAX_QUEUED_TOTAL``), so concurrent submits cannot overshoot. A record that
+  finishes through ``Store.finish`` leaves both sets in the same script. What that misses
+  (a record cancelled while queued, one whose worker died, one that expired) is pruned
+  lazily, only when a set looks full, with one pipelined ``HGET status`` per member: the
+  common path costs one script call.
 """
 
 from __future__ import annotations

@@ -78,12 +78,14 @@ local f = redis.call('HMGET', KEYS[1], 'time_budget', 'method')
 return {old, f[1], f[2], body, copy}
 """
 
-# KEYS[1] record, [2] request, [3] result, [4] work copy, [5] done list, [6] metrics hash.
-# ARGV[1] allowed old statuses (comma separated), [2] new status, [3] retention seconds,
-# [4] '1' to store ARGV[5] as the result, [6] n field pairs from ARGV[7], then metric
-# increments as (op 'i' or 'f', field, amount) triples. If the move is allowed: store the
-# result, set the fields, bump the version, give every key of the record (and its
-# idempotency record) the retention, push the done token, count; returns the old status.
+# KEYS[1] record, [2] request, [3] result, [4] work copy, [5] done list, [6] metrics hash,
+# [7] the global queue-depth set. ARGV[1] allowed old statuses (comma separated), [2] new
+# status, [3] retention seconds, [4] '1' to store ARGV[5] as the result, [6] n field pairs
+# from ARGV[9], [7] the prefix of the tenants' queue-depth sets, [8] the record's member
+# in them, then metric increments as (op 'i' or 'f', field, amount) triples. If the move
+# is allowed: store the result, set the fields, free the queue slot, bump the version,
+# give every key of the record (and its idempotency record) the retention, push the done
+# token, count; returns the old status.
 _FINISH = """
 local old = redis.call('HGET', KEYS[1], 'status')
 if not old then return false end
@@ -91,7 +93,12 @@ if not string.find(',' .. ARGV[1] .. ',', ',' .. old .. ',', 1, true) then retur
 local ttl = tonumber(ARGV[3])
 if ARGV[4] == '1' then redis.call('SET', KEYS[3], ARGV[5], 'EX', ttl) end
 redis.call('HSET', KEYS[1], 'status', ARGV[2])
-local i = 7
+-- the record no longer holds a queue slot (service/limits.py); the tenant's set is named
+-- from the record's own tenant field (one Redis, not a cluster: no slot to declare)
+local tenant = redis.call('HGET', KEYS[1], 'tenant')
+if tenant then redis.call('ZREM', ARGV[7] .. tenant, ARGV[8]) end
+redis.call('ZREM', KEYS[7], ARGV[8])
+local i = 9
 for k = 1, tonumber(ARGV[6]) do
   redis.call('HSET', KEYS[1], ARGV[i], ARGV[i + 1])
   i = i + 2
@@ -398,6 +405,8 @@ class Store:
             "0" if result_json is None else "1",
             result_json or "",
             len(pairs) // 2,
+            f"{self.prefix}:active:",  # the queue-depth sets of service/limits.py
+            f"{kind}:{rid}",
             *pairs,
         ]
         metrics_key = self.key(kind, rid)  # an unused slot when there is nothing to count
@@ -405,8 +414,9 @@ class Store:
             metrics_key = counters[0]
             for op, name, amount in counters[1]:
                 args += [op, name, repr(float(amount)) if op == "f" else int(amount)]
-        # [record, request, result, work, done, metrics], as the script reads them
+        # [record, request, result, work, done, metrics, global queue-depth set]
         keys = [*self._all_keys(kind, rid), self.key(kind, rid, "done"), metrics_key]
+        keys.append(f"{self.prefix}:active")
         return self._finish(keys=keys, args=args) is not None
 
     def _refresh_and_notify(self, kind: str, rid: str) -> None:

@@ -205,3 +205,19 @@ def test_replan_is_admitted_like_a_submit(keyed_app: Any, drain_queue: Any) -> N
     while c.get("/v1/plans", headers=bearer("lanternhill")).status_code != 429:
         pass  # spend the rest of the window's 40 requests
     assert_429(c.post(f"{loc}/replan", json=events, headers=key), 60)
+
+
+def test_finished_records_leave_the_depth_sets_at_once(keyed_app: Any, drain_queue: Any) -> None:
+    """A plan that finishes gives its queue slot back in the same script that stores its
+    result, so the depth sets hold only queued and solving work (they do not wait for a
+    prune, and do not grow with finished plans while no limit is near)."""
+    c = keyed_app.test_client()
+    for _ in range(3):
+        assert (
+            c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code
+            == 202
+        )
+    conn = keyed_app.extensions["spanwright"].store.conn
+    assert conn.zcard("swtrust:active:lanternhill") == 3 and conn.zcard("swtrust:active") == 3
+    drain_queue()
+    assert conn.zcard("swtrust:active:lanternhill") == 0 and conn.zcard("swtrust:active") == 0

@@ -499,22 +499,12 @@ def _delegate(
     return dataclasses.replace(res, schedule=sched, extras=extras)
 
 
-def _have_identical_exact() -> bool:
-    try:
-        from . import exact  # noqa: F401
-    except ImportError:
-        return False
-    return True
-
-
 def solve_farm(
     inst: Instance, method: str, budget: Budget, progress: ProgressHook | None
 ) -> PlanResult:
     """Plan a farm with speeds, tags and busy nodes; see the module doc for the methods."""
     elig = eligibility(inst)  # raises Infeasible naming the jobs no node may run
-    if _identical_in_effect(inst, elig) and (
-        method in ("list", "longest_first") or _have_identical_exact()
-    ):
+    if _identical_in_effect(inst, elig):
         return _delegate(inst, method, budget, progress)
     if method in ("list", "longest_first"):
         sched = greedy_schedule(inst, elig, method)
