@@ -8,7 +8,10 @@ processes of 8 threads; ``--web-workers``/``--web-threads`` change them), or wit
 Then measures:
 
 1. latency: a 1,000-job longest_first plan with ``Prefer: wait`` from 8 concurrent
-   clients, one worker: median and p99 end to end (targets 30 ms / 100 ms);
+   clients, one worker: median and p99 end to end (targets 30 ms / 100 ms). Each client
+   sends its next request when the last one is answered (a closed loop, no pause), so
+   this is latency at saturation; the same run with 1, 2 and 4 clients shows how it grows
+   with concurrency, and the floor that the measured CPU per plan sets is printed;
 2. throughput: 100-job plans submitted without waiting by 8 clients, two workers:
    plans finished per second from the first submit to the last finish (target >= 100/s);
 3. a 100,000-job plan end to end against the solver's own time (target within 3x). The
@@ -17,17 +20,15 @@ Then measures:
    ``solve``, result to JSON text), measured here in this process; the core's own
    ``solve_seconds`` (``solve()`` alone) is printed too, with its ratio.
 
-Workers: ``--worker-class simple`` (the default) and ``fork`` run ``spanwright worker``
-with that option. ``lean`` runs the same command with RQ's ``SimpleWorker`` replaced by
-``service.worker.LeanWorker`` before the command imports it (what the command does once its
-"simple" class is ours), for comparing the two before that one-line change lands.
+Workers: ``spanwright worker`` (its default class, ``service.worker.LeanWorker``: RQ's
+``SimpleWorker`` with batched writes), or ``--worker-class fork`` for RQ's forking worker.
 
 CPU per plan is read from /proc (user + system time of redis-server, of the API processes
 with their children, and of the workers), which other load on the machine disturbs far
 less than wall-clock figures.
 
 Usage: python bench/service_latency.py [--server gunicorn|werkzeug]
-       [--worker-class simple|fork|lean] [--requests 200] [--plans 600] [--skip-big]
+       [--worker-class simple|fork] [--requests 200] [--plans 600] [--skip-big]
 """
 
 from __future__ import annotations
@@ -79,13 +80,6 @@ def tree_cpu_seconds(pid: int) -> float:
             except OSError:
                 continue
     return total
-
-
-#: run ``spanwright worker`` with RQ's SimpleWorker swapped for ours (``--worker-class lean``)
-LEAN_SHIM = (
-    "import sys, rq, service.worker; rq.SimpleWorker = service.worker.LeanWorker; "
-    "from service.cli import main; sys.exit(main())"
-)
 
 
 def batch(n: int, m: int, seed: int) -> dict[str, Any]:
@@ -171,12 +165,8 @@ class Stack:
             w.terminate()
             w.wait(10)
         while len(self.workers) < n:
-            if self.worker_class == "lean":
-                head = [sys.executable, "-c", LEAN_SHIM, "worker"]
-                cmd = [*head, "--log-level", "WARNING", "--worker-class", "simple"]
-            else:
-                head = [sys.executable, "-m", "service.cli", "worker"]
-                cmd = [*head, "--log-level", "WARNING", "--worker-class", self.worker_class]
+            head = [sys.executable, "-m", "service.cli", "worker"]
+            cmd = [*head, "--log-level", "WARNING", "--worker-class", self.worker_class]
             self.workers.append(self._spawn(cmd, self.env))
         end = time.monotonic() + 180  # a worker loads its compiled kernels first
         while self.get("/readyz")[1].get("checks", {}).get("workers") != n:
@@ -337,8 +327,10 @@ def big(stack: Stack, runs: int = 3) -> dict[str, float]:
     }
 
 
-def core_costs() -> None:
-    """Where a plan's time goes inside the core (in this process, no Redis, no HTTP)."""
+def core_costs() -> float:
+    """Where a plan's time goes inside the core (in this process, no Redis, no HTTP).
+
+    Returns the milliseconds of the whole in-process pipeline for the 1,000-job plan."""
     from workers.planning import Instance, bounds, solve
 
     for n, m in ((100, 10), (1000, 50)):
@@ -365,6 +357,8 @@ def core_costs() -> None:
             f"solve {(t2 - t1) * ms:.1f} ms (of which bounds.lower_bounds "
             f"{(t3 - t2) * ms:.1f} ms); result to JSON {(t4 - t3) * ms:.1f} ms"
         )
+        pipeline_ms = ((t2 - t0) + (t4 - t3)) * ms
+    return pipeline_ms
 
 
 def main() -> int:
@@ -372,13 +366,13 @@ def main() -> int:
     ap.add_argument("--server", choices=("gunicorn", "werkzeug"), default="gunicorn")
     ap.add_argument("--web-workers", type=int, default=2, help="gunicorn processes (default 2)")
     ap.add_argument("--web-threads", type=int, default=8, help="threads each (default 8)")
-    ap.add_argument("--worker-class", choices=("simple", "fork", "lean"), default="simple")
+    ap.add_argument("--worker-class", choices=("simple", "fork"), default="simple")
     ap.add_argument("--requests", type=int, default=200)
     ap.add_argument("--plans", type=int, default=600)
     ap.add_argument("--skip-big", action="store_true")
     args = ap.parse_args()
     print(f"load average before start: {os.getloadavg()[0]:.2f} on {os.cpu_count()} CPUs")
-    core_costs()
+    pipeline_ms = core_costs()
     stack = Stack(args.worker_class, args.server, args.web_workers, args.web_threads)
     try:
         server = (
@@ -387,23 +381,34 @@ def main() -> int:
             else "werkzeug threaded dev server (spanwright serve)"
         )
         workers = {
-            "simple": "spanwright worker (RQ SimpleWorker)",
+            "simple": "spanwright worker (service.worker.LeanWorker)",
             "fork": "spanwright worker --worker-class fork",
-            "lean": "spanwright worker with service.worker.LeanWorker as its simple class",
         }[args.worker_class]
         print(f"server: {server}; workers: {workers}")
         stack.set_workers(1)
+        for k in (1, 2, 4):  # how latency grows with concurrency (no target)
+            few = latency(stack, max(40, args.requests // 4), clients=k)
+            print(
+                f"   {k} client{'s' if k > 1 else ''}, 1 worker: median {few['median_ms']:.1f} ms, "
+                f"p99 {few['p99_ms']:.1f} ms, {few['requests']:.0f} requests"
+            )
         lat = latency(stack, args.requests)
         print(
             f"1. 1,000-job longest_first, Prefer: wait, 8 clients, 1 worker: "
             f"median {lat['median_ms']:.1f} ms (target <= 30), p99 {lat['p99_ms']:.1f} ms "
             f"(target <= 100), {lat['requests']:.0f} requests"
         )
+        total = lat["cpu_ms_api"] + lat["cpu_ms_workers"] + lat["cpu_ms_redis"]
+        cores = os.cpu_count() or 1
+        floor = 8 * max(lat["cpu_ms_workers"], total / cores)
         print(
             f"   CPU per plan: API {lat['cpu_ms_api']:.1f} ms, "
             f"worker {lat['cpu_ms_workers']:.1f} ms, "
-            f"redis {lat['cpu_ms_redis']:.1f} ms (8 clients queue on one worker: median is about "
-            f"8 x the worker's time per plan)"
+            f"redis {lat['cpu_ms_redis']:.1f} ms, {total:.1f} ms in all (the clients' own "
+            f"CPU not counted). With 8 clients in a closed loop on {cores} cores the median "
+            f"cannot be below 8 x max(worker CPU, all CPU / {cores}) = {floor:.0f} ms; "
+            f"one worker doing nothing but the in-process pipeline would still give "
+            f"8 x {pipeline_ms:.1f} = {8 * pipeline_ms:.0f} ms"
         )
         stack.set_workers(2)
         thr = throughput(stack, args.plans)
