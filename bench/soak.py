@@ -12,8 +12,13 @@ resident memory (VmRSS from /proc) of every process after a warm-up (``--warm``,
 and at the end, and Redis's own ``used_memory`` (target growth < 10%). Redis keeps every
 plan for the retention, so with the default (24 h) its memory grows with the plans it holds;
 ``--retention 15 --warm 30`` measures it in the steady state where expiry balances new plans.
+Without ``--wait`` the clients submit faster than two workers on the same cores drain, so
+the queue (and with it Redis) grows for the whole run; ``--wait S`` sends ``Prefer: wait=S``
+with each submit, as a pipeline that waits for its plan does, so each client has at most
+one plan in the system and Redis can reach a steady state.
 
 Usage: python bench/soak.py [--seconds 60] [--clients 16] [--retention S] [--warm S]
+       [--wait S]
 """
 
 from __future__ import annotations
@@ -129,6 +134,11 @@ def main() -> int:
         default=10.0,
         help="seconds of load before the first memory reading (default 10)",
     )
+    ap.add_argument(
+        "--wait",
+        type=float,
+        help="send Prefer: wait=S with each submit (default: submit and go on)",
+    )
     args = ap.parse_args()
     exe = shutil.which("redis-server")
     if exe is None:
@@ -190,19 +200,21 @@ def main() -> int:
         lat: list[float] = []
         errors: list[str] = []
         accepted: list[tuple[str, str]] = []
+        finished_in_request: list[bool] = []
         lock = threading.Lock()
         stop = threading.Event()
 
         def client(k: int) -> None:
             tenant = TENANTS[k % len(TENANTS)]
             h = {"Authorization": f"Bearer {keys[tenant]}", "Content-Type": "application/json"}
+            post_h = dict(h, Prefer=f"wait={args.wait:g}") if args.wait else h
             conn = http.client.HTTPConnection("127.0.0.1", hport, timeout=30)
             i = 0
             while not stop.is_set():
                 i += 1
                 try:
                     t0 = time.perf_counter()
-                    conn.request("POST", "/v1/plans", body=plan_body(k * 10**6 + i), headers=h)
+                    conn.request("POST", "/v1/plans", body=plan_body(k * 10**6 + i), headers=post_h)
                     r = conn.getresponse()
                     data = r.read()
                     t1 = time.perf_counter()
@@ -220,6 +232,7 @@ def main() -> int:
                             errors.append(f"POST {r.status} {data[:120]!r}")
                             continue
                         accepted.append((tenant, loc))
+                        finished_in_request.append(r.status == 201)
                         lat.append(t2 - t1)
                         if not ok2:
                             errors.append(f"GET {r2.status}")
@@ -283,6 +296,11 @@ def main() -> int:
             f"plans accepted: {len(accepted)}, {checked}"
         )
         print(f"latency: p50 {qs[49] * 1000:.1f} ms, p99 {qs[98] * 1000:.1f} ms")
+        if args.wait:
+            print(
+                f"Prefer: wait={args.wait:g}: {sum(finished_in_request)} of {len(accepted)} "
+                "plans came back finished (201) in their submit"
+            )
         print(f"redis keys of the service at the end: {redis_keys(rport)}")
         print("  by shape: " + ", ".join(f"{k} {v}" for k, v in key_census(rport)))
         kept = args.retention if args.retention is not None else "the default"
