@@ -11,7 +11,9 @@ Then measures:
    clients, one worker: median and p99 end to end (targets 30 ms / 100 ms). Each client
    sends its next request when the last one is answered (a closed loop, no pause), so
    this is latency at saturation; the same run with 1, 2 and 4 clients shows how it grows
-   with concurrency, and the floor that the measured CPU per plan sets is printed;
+   with concurrency, and the floor that the measured CPU per plan sets is printed. Then
+   (no target) an open loop: the same plans arriving at a set rate (``--rates``, Poisson),
+   latency counted from each request's scheduled arrival;
 2. throughput: 100-job plans submitted without waiting by 8 clients, two workers:
    plans finished per second from the first submit to the last finish (target >= 100/s);
 3. a 100,000-job plan end to end against the solver's own time (target within 3x). The
@@ -112,7 +114,10 @@ class Stack:
         )
         base = {k: v for k, v in os.environ.items() if not k.startswith("SPANWRIGHT_")}
         base.pop("PROMETHEUS_MULTIPROC_DIR", None)
-        self.env = dict(base, REDIS_URL=self.url, PYTHONPATH=str(ROOT))
+        # no request-rate limit: the benchmark measures the service, not its 429s
+        self.env = dict(
+            base, REDIS_URL=self.url, PYTHONPATH=str(ROOT), SPANWRIGHT_RATE_LIMIT="10000000"
+        )
         self._wait_port(self.redis_port)
         if server == "gunicorn":
             metrics_dir = Path(self.tmp) / "metrics"
@@ -196,6 +201,25 @@ class Stack:
         shutil.rmtree(self.tmp, ignore_errors=True)
 
 
+def run_threads(target: Any, args: list[tuple[Any, ...]]) -> None:
+    """Run ``target(*a)`` for each ``a`` in threads; re-raise the first failure, if any."""
+    failures: list[BaseException] = []
+
+    def guarded(*a: Any) -> None:
+        try:
+            target(*a)
+        except BaseException as exc:  # handed to the caller below
+            failures.append(exc)
+
+    threads = [threading.Thread(target=guarded, args=a) for a in args]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    if failures:
+        raise failures[0]
+
+
 def post(c: http.client.HTTPConnection, body: bytes, wait: float | None) -> tuple[int, bytes]:
     headers = {"Content-Type": "application/json"}
     if wait is not None:
@@ -223,17 +247,55 @@ def latency(stack: Stack, requests: int, clients: int = 8) -> dict[str, float]:
             with lock:
                 times.append(dt)
 
-    threads = [threading.Thread(target=client, args=(k,)) for k in range(clients)]
     before = stack.cpu()
-    for t in threads:
-        t.start()
-    for t in threads:
-        t.join()
+    run_threads(client, [(k,) for k in range(clients)])
     after = stack.cpu()
     times.sort()
     total = len(times) + 3 * clients
     return {
         **{f"cpu_ms_{k}": 1000 * (after[k] - before[k]) / total for k in after},
+        "requests": len(times),
+        "median_ms": 1000 * statistics.median(times),
+        "p99_ms": 1000 * times[min(len(times) - 1, int(0.99 * len(times)))],
+    }
+
+
+def paced(stack: Stack, rate: float, seconds: float, clients: int = 8) -> dict[str, float]:
+    """Open loop: 1,000-job plans with ``Prefer: wait`` arriving at ``rate`` per second
+    (Poisson, seeded), sent by ``clients`` threads. Latency counts from each request's
+    scheduled arrival, so a request that waits for a free client is charged for it (no
+    coordinated omission)."""
+    body = json.dumps(batch(1000, 50, 1)).encode()
+    rnd = random.Random(7)
+    arrivals, t = [], 0.0
+    while True:
+        t += rnd.expovariate(rate)
+        if t > seconds:
+            break
+        arrivals.append(t)
+    times: list[float] = []
+    lock = threading.Lock()
+    nxt = iter(arrivals)
+    t_zero = time.perf_counter() + 0.2
+
+    def client() -> None:
+        c = stack.conn()
+        while True:
+            with lock:
+                at = next(nxt, None)
+            if at is None:
+                return
+            due = t_zero + at
+            time.sleep(max(0.0, due - time.perf_counter()))
+            status, data = post(c, body, 10)
+            dt = time.perf_counter() - due
+            assert status == 201, (status, data[:200])
+            with lock:
+                times.append(dt)
+
+    run_threads(client, [()] * clients)
+    times.sort()
+    return {
         "requests": len(times),
         "median_ms": 1000 * statistics.median(times),
         "p99_ms": 1000 * times[min(len(times) - 1, int(0.99 * len(times)))],
@@ -259,11 +321,7 @@ def throughput(stack: Stack, plans: int, clients: int = 8) -> dict[str, float]:
     r = redis.Redis.from_url(stack.url)
     before = stack.cpu()
     t0 = time.perf_counter()
-    threads = [threading.Thread(target=client) for _ in range(clients)]
-    for t in threads:
-        t.start()
-    for t in threads:
-        t.join()
+    run_threads(client, [()] * clients)
     t_submitted = time.perf_counter()
     pending = set(ids)
     while pending:
@@ -370,6 +428,14 @@ def main() -> int:
     ap.add_argument("--requests", type=int, default=200)
     ap.add_argument("--plans", type=int, default=600)
     ap.add_argument("--skip-big", action="store_true")
+    ap.add_argument(
+        "--rates",
+        type=float,
+        nargs="*",
+        default=[10.0, 25.0, 50.0],
+        help="offered rates (plans/s) of the open-loop latency runs (default 10 25 50)",
+    )
+    ap.add_argument("--paced-seconds", type=float, default=10.0)
     args = ap.parse_args()
     print(f"load average before start: {os.getloadavg()[0]:.2f} on {os.cpu_count()} CPUs")
     pipeline_ms = core_costs()
@@ -410,6 +476,13 @@ def main() -> int:
             f"one worker doing nothing but the in-process pipeline would still give "
             f"8 x {pipeline_ms:.1f} = {8 * pipeline_ms:.0f} ms"
         )
+        for rate in args.rates:
+            op = paced(stack, rate, args.paced_seconds)
+            print(
+                f"   open loop, {rate:g} plans/s offered (Poisson, 8 clients, 1 worker): "
+                f"median {op['median_ms']:.1f} ms, p99 {op['p99_ms']:.1f} ms, "
+                f"{op['requests']:.0f} requests"
+            )
         stack.set_workers(2)
         thr = throughput(stack, args.plans)
         print(
