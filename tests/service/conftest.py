@@ -20,6 +20,7 @@ import time
 from collections.abc import Iterator
 from dataclasses import replace
 from pathlib import Path
+from typing import Any
 
 import fakeredis
 import pytest
@@ -30,6 +31,20 @@ from service.embedded import EmbeddedWorker
 from service.settings import Settings
 
 ROOT = Path(__file__).resolve().parents[2]
+
+#: A sizing checked by hand: jobs of 3600, 1800 and 1800 s with a 3600 s deadline need 2
+#: nodes (7200 s of work over 3600 s per node is 2, the total-work bound; {3600} and
+#: {1800, 1800} is a plan with 2 nodes); at 1.80 per node-hour billed per second the
+#: 2-node plan (makespan 3600 s) costs 2 * 3600 / 3600 * 1.80 = 3.60.
+PRICED_SIZING: dict[str, Any] = {
+    "jobs": [
+        {"id": "lh_sq010_beauty", "duration": 3600},
+        {"id": "lh_sq010_fx", "duration": 1800},
+        {"id": "lh_sq020_fx", "duration": 1800},
+    ],
+    "deadline": 3600,
+    "node_hour_cost": 1.8,
+}
 
 
 @pytest.fixture

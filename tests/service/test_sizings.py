@@ -12,15 +12,9 @@ from typing import Any
 
 from scipy import stats
 
-EXAMPLE: dict[str, Any] = {
-    "jobs": [
-        {"id": "lh_sq010_beauty", "duration": 3600},
-        {"id": "lh_sq010_fx", "duration": 1800},
-        {"id": "lh_sq020_fx", "duration": 1800},
-    ],
-    "deadline": 3600,
-    "node_hour_cost": 1.8,
-}
+from tests.service.conftest import PRICED_SIZING
+
+EXAMPLE = PRICED_SIZING  # the hand-checked case (tests/service/conftest.py)
 
 
 def test_sizing_answers_the_fewest_nodes(client: Any) -> None:

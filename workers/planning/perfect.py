@@ -56,6 +56,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from .binpacking import _alive_from as _alive
 from .binpacking import first_fit_decreasing
 from .kernels import jit
 
@@ -186,19 +187,6 @@ def _find(vals: I64, tab: I32, x: int) -> int:
     if i < vals.shape[0] and vals[i] == x:
         return i
     return -1
-
-
-@jit
-def _alive(parent: I64, i: int) -> int:
-    """The first index >= i not yet used up (union-find with path compression)."""
-    root = i
-    while parent[root] != root:
-        root = parent[root]
-    while parent[i] != root:
-        nxt = parent[i]
-        parent[i] = root
-        i = nxt
-    return root
 
 
 @jit
@@ -372,6 +360,48 @@ def _to_pool(
     ppos[i] = npool
     pool[npool] = i
     return npool + 1
+
+
+@jit
+def _release(
+    b: int,
+    moves: int,
+    q: I64,
+    vid: I64,
+    first: I64,
+    perm: I32,
+    slot: I32,
+    pc: I32,
+    bin_of: I32,
+    load: I64,
+    head: I32,
+    nxt: I32,
+    prv: I32,
+    pool: I32,
+    ppos: I32,
+    npool: int,
+    entered: I64,
+    live: I32,
+    lpos: I32,
+    nlive: int,
+    free: I32,
+    nfree: int,
+) -> tuple[int, int, int]:
+    """Empty bin ``b`` into the pool (each item stamped as entering at ``moves``), take it
+    off the live list and put it on the free list. Returns (npool, nlive, nfree)."""
+    while head[b] >= 0:
+        i = head[b]
+        npool = _to_pool(
+            i, q, vid, first, perm, slot, pc, bin_of, load, head, nxt, prv, pool, ppos, npool
+        )
+        entered[i] = moves
+    p = lpos[b]
+    nlive -= 1
+    live[p] = live[nlive]
+    lpos[live[p]] = p
+    lpos[b] = -1
+    free[nfree] = b
+    return npool, nlive, nfree + 1
 
 
 @jit
@@ -959,33 +989,10 @@ def eject_walk(
                 state = _next(state)
                 b = live[_below(state, nlive)]
                 waste -= cap - load[b]
-                while head[b] >= 0:
-                    i = head[b]
-                    npool = _to_pool(
-                        i,
-                        q,
-                        vid,
-                        first,
-                        perm,
-                        slot,
-                        pc,
-                        bin_of,
-                        load,
-                        head,
-                        nxt,
-                        prv,
-                        pool,
-                        ppos,
-                        npool,
-                    )
-                    entered[i] = moves
-                p = lpos[b]
-                nlive -= 1
-                live[p] = live[nlive]
-                lpos[live[p]] = p
-                lpos[b] = -1
-                free[nfree] = b
-                nfree += 1
+                npool, nlive, nfree = _release(
+                    b, moves, q, vid, first, perm, slot, pc, bin_of, load, head, nxt, prv,
+                    pool, ppos, npool, entered, live, lpos, nlive, free, nfree,
+                )  # fmt: skip
             best_pool = npool
             since = moves
             check_ffd = True
@@ -995,33 +1002,10 @@ def eject_walk(
             if vb < 0:
                 continue
             waste -= cap - load[vb]
-            while head[vb] >= 0:
-                i = head[vb]
-                npool = _to_pool(
-                    i,
-                    q,
-                    vid,
-                    first,
-                    perm,
-                    slot,
-                    pc,
-                    bin_of,
-                    load,
-                    head,
-                    nxt,
-                    prv,
-                    pool,
-                    ppos,
-                    npool,
-                )
-                entered[i] = moves
-            p = lpos[vb]
-            nlive -= 1
-            live[p] = live[nlive]
-            lpos[live[p]] = p
-            lpos[vb] = -1
-            free[nfree] = vb
-            nfree += 1
+            npool, nlive, nfree = _release(
+                int(vb), moves, q, vid, first, perm, slot, pc, bin_of, load, head, nxt, prv,
+                pool, ppos, npool, entered, live, lpos, nlive, free, nfree,
+            )  # fmt: skip
         nfree -= 1
         nb = free[nfree]
         for c in (np.int64(a), np.int64(n1), np.int64(n2), np.int64(steal), np.int64(steal2)):
