@@ -8,11 +8,12 @@ into RFC 9457 problem+json (``service/problems.py``).
 from __future__ import annotations
 
 import redis
-from flask import Flask
+from flask import Flask, g
 
-from . import auth, problems
+from . import auth, limits, problems
 from .queue import JobQueue
-from .routes import Services, health, plans, replan, sizings
+from .routes import health, plans, replan, sizings
+from .services import Services
 from .settings import Settings, SettingsError
 from .store import Store
 from .web import routes as web_routes
@@ -41,5 +42,17 @@ def create_app(settings: Settings, *, connection: redis.Redis | None = None) -> 
     app.register_blueprint(health.blueprint)
     app.register_blueprint(web_routes.blueprint)
     app.register_error_handler(Exception, problems.handle)
-    auth.install(app, settings)  # Bearer keys -> tenant, per-tenant rate limit
+    auth.install(app, settings)  # Bearer keys -> tenant
+
+    @app.before_request
+    def _admit() -> None:
+        """After authentication: the per-tenant rate limit, then hand plans of killed
+        workers back to the queue when a sweep is due (``service/queue.py``)."""
+        who = g.get("principal")
+        if who is None:  # an open path (health, spec, problems, metrics)
+            return
+        limits.check_rate(who.tenant)
+        svc: Services = app.extensions["spanwright"]
+        svc.queue.reap_if_due()
+
     return app

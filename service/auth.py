@@ -174,11 +174,6 @@ def install(app: Flask, settings: Settings) -> KeyRing | None:
             if who is None:
                 raise Unauthorized("the API key is not known to this service")
             g.principal = who
-        from .limits import check_rate  # after auth: the rate is per tenant
-        from .routes import services
-
-        check_rate(g.principal.tenant)
-        services().queue.reap_if_due()  # hand plans of killed workers back (service/queue.py)
 
     app.extensions["spanwright.keys"] = ring
     return ring

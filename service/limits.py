@@ -27,7 +27,7 @@ import weakref
 from typing import Any
 
 from .problems import TooManyRequests
-from .routes import services
+from .services import services
 from .store import FINISHED
 
 # KEYS[1] tenant set, KEYS[2] global set; ARGV: member, score, tenant limit, global limit, ttl.

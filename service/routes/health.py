@@ -12,7 +12,7 @@ import yaml
 from flask import Blueprint, Response
 
 from ..problems import NotFound, describe
-from . import services
+from ..services import services
 
 blueprint = Blueprint("health", __name__)
 

@@ -32,9 +32,9 @@ from ..problems import (
     problem_dict,
 )
 from ..queue import simulation_allowance
+from ..services import may_read, services, tenant
 from ..settings import Settings
 from ..store import FINISHED, STATUSES, Record, new_id
-from . import may_read, services, tenant
 
 ID_RE = re.compile(r"[0-9a-f]{21}")
 _KEY_RE = re.compile(r"[\x20-\x21\x23-\x5b\x5d-\x7e]{1,255}")  # printable ASCII but " and \

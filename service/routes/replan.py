@@ -22,7 +22,7 @@ from workers.planning.replan import read_events, remaining_work
 
 from ..problems import NotFinished, NotFound
 from ..schemas import load_replan_request
-from . import services, tenant
+from ..services import services, tenant
 from .jobs import ID_RE, queue_record, read_json_body
 from .plans import RESOURCE, read_plan
 

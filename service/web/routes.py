@@ -8,8 +8,8 @@ from typing import Any
 from flask import Blueprint, Response, render_template, request
 
 from ..problems import NotFound
-from ..routes import may_read, services, tenant
 from ..routes.jobs import ID_RE, status_document
+from ..services import may_read, services, tenant
 from . import pages
 
 blueprint = Blueprint("pages", __name__, template_folder="templates")
