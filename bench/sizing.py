@@ -36,8 +36,8 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from workers.planning.binpacking import warm_up
 from workers.planning.sizing import size
+from workers.planning.warmup import warm_up_sizing as warm_up
 
 MIXES = ("frames", "bimodal", "lognormal", "triplets")
 RATIOS = (2, 3, 10, 30)  # jobs per node the deadline aims at

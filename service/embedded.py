@@ -81,12 +81,6 @@ def embedded_store(settings: Settings) -> tuple[fakeredis.FakeRedis, EmbeddedWor
 
 def warm_up() -> None:
     """Load the core's compiled kernels now, so the first plan is not the slow one."""
-    from workers.planning import Instance, solve
+    from workers.planning.warmup import warm_up_all
 
-    solve(Instance.build([3.0, 2.0, 2.0, 1.0], 2), "longest_first")
-    solve(Instance.build([3.0, 2.0, 2.0, 1.0], 2), "list")
-    from workers.planning.binpacking import warm_up as warm_up_packing
-    from workers.planning.exact import warm_up as warm_up_exact
-
-    warm_up_packing()
-    warm_up_exact()  # every kernel of the exact search, LP bound included
+    warm_up_all()

@@ -27,9 +27,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from workers.planning.binpacking import warm_up
     from workers.planning.confidence import SpreadRequest, sizing_confidence
     from workers.planning.sizing import size_from_request
+    from workers.planning.warmup import warm_up_sizing as warm_up
 
     body = read_json(args.file)
     if not isinstance(body, dict):

@@ -44,7 +44,7 @@ def run(args: argparse.Namespace) -> int:
         )
     inst = Instance.from_request(body)
     if method in ("exact", "auto"):
-        from workers.planning.exact import warm_up
+        from workers.planning.warmup import warm_up_exact as warm_up
 
         warm_up()  # load the compiled search before its clock starts, not out of the budget
     result = solve(inst, method, time_budget=float(budget))

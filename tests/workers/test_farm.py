@@ -14,13 +14,11 @@ import pytest
 from scipy.optimize import Bounds, LinearConstraint, milp
 
 from workers.planning import Infeasible, Instance, Node, solve
-from workers.planning.budget import Budget
 from workers.planning.farm import (
     KOVACS_2010,
     earliest_finish_classes,
     improve,
     node_classes,
-    solve_farm,
 )
 from workers.planning.farm_bounds import eligibility, farm_lower_bounds
 from workers.planning.kernels import earliest_finish
@@ -178,8 +176,6 @@ def test_identical_nodes_reduce_exactly(method: str) -> None:
         assert farm.makespan == plain.makespan
         assert farm.certificate.bounds == plain.certificate.bounds
         assert farm.worst_case_ratio == plain.worst_case_ratio
-        direct = solve_farm(Instance.build(d, m), method, Budget(1.0), None)
-        assert direct.certificate.bounds == plain.certificate.bounds
 
 
 def test_identical_nodes_reduce_exactly_exact_method() -> None:

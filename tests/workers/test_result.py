@@ -68,7 +68,9 @@ def test_json_text_is_the_dict_written_by_json_dumps(
     batches, whole and fractional times, times past 1e16 (where float repr turns to exponent
     notation), and ids with quotes, backslashes and non-ASCII characters."""
     ids = [f'j{i}"\\\u00e9{suffix}' for i in range(len(durations))]
-    res = solve(Instance.build(durations, m, job_ids=ids, deadline=5000), method)
+    # a resolution of 1e4 s keeps times up to 3e17 s within the 2**53 ticks a batch may span
+    inst = Instance.build(durations, m, job_ids=ids, deadline=5000, resolution=1e4)
+    res = solve(inst, method)
     reference = json.dumps(res.to_dict(), allow_nan=False, separators=(",", ":"))
     assert res.to_json() == reference
     extra = {"confidence": {"samples": 10}}

@@ -14,7 +14,6 @@ from hypothesis import strategies as st
 from scipy.optimize import Bounds, LinearConstraint, milp
 
 from service.cli import main as cli_main
-from workers.planning.binpacking import warm_up
 from workers.planning.errors import Infeasible, InvalidInstance
 from workers.planning.model import Node
 from workers.planning.sizing import (
@@ -26,6 +25,7 @@ from workers.planning.sizing import (
     size_from_request,
     work_ticks,
 )
+from workers.planning.warmup import warm_up_sizing as warm_up
 
 
 @pytest.fixture(autouse=True, scope="module")

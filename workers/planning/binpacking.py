@@ -29,7 +29,7 @@ from __future__ import annotations
 import numpy as np
 import numpy.typing as npt
 
-from .kernels import jit
+from .kernels import chain_starts, jit
 
 F64 = npt.NDArray[np.float64]
 I64 = npt.NDArray[np.int64]
@@ -241,17 +241,11 @@ def pack_search(q: I64, cap: int, k: int, node_limit: int) -> tuple[int, I32, in
 def bin_starts(order: I64, bin_of: I32, sizes: F64, m: int) -> F64:
     """Start of each item when every bin runs its items in ``order``, back to back.
 
-    The running sum per bin, in the order given: the same floating-point additions a
-    schedule makes, so a bin whose last item ends by the capacity here does there too.
+    The running sum per bin, in the order given (:func:`kernels.chain_starts` from time
+    0): the same floating-point additions a schedule makes, so a bin whose last item ends
+    by the capacity here does there too.
     """
-    start = np.empty(sizes.shape[0], dtype=np.float64)
-    loads = np.zeros(m, dtype=np.float64)
-    for t in range(order.shape[0]):
-        j = order[t]
-        b = bin_of[j]
-        start[j] = loads[b]
-        loads[b] = loads[b] + sizes[j]
-    return start
+    return chain_starts(order, bin_of, sizes, np.zeros(m, dtype=np.float64))
 
 
 @jit
@@ -577,6 +571,3 @@ def warm_up() -> None:
     pack_search(q, 7, 2, 100)
     reduce_bins(q, 7, np.array([0, 1, 2, 3], dtype=np.int32), 4, 2, 100, 0)
     bin_starts(np.arange(4), np.array([0, 1, 0, 1], dtype=np.int32), sizes, 2)
-    from .perfect import warm_up as warm_up_perfect  # it imports this module
-
-    warm_up_perfect()

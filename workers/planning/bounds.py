@@ -17,17 +17,31 @@ Durations are real seconds. The bin-packing bound works on whole ticks of ``reso
 seconds with every duration *rounded down*, so any real plan is also a plan of the
 rounded batch no longer than itself: a bound on the rounded batch, times the resolution,
 is a bound for the true durations.
+
+Every bound holds in exact arithmetic for the given floats (see :mod:`.rational`): sums
+are taken exactly (whole numbers in integers, other floats by error-free extraction),
+ticks by exact floor, and each bound is then rounded *down* to the float we report.
+Ticks are used only while the whole batch stays within ``rational.MAX_TICKS`` ticks.
 """
 
 from __future__ import annotations
 
 import math
+from fractions import Fraction
 from typing import Any
 
 import numpy as np
 import numpy.typing as npt
 
 from .model import Instance
+from .rational import (
+    MAX_TICKS,
+    array_sum,
+    ceil_div,
+    down,
+    floor_ticks,
+    ticks_to_seconds_down,
+)
 from .result import Certificate
 
 #: order used to pick the reported source among equal bounds (simplest first)
@@ -37,6 +51,8 @@ BOUND_ORDER = ("mean_load", "longest_job", "pigeonhole", "pigeonhole_k", "bin_pa
 MAX_ALPHAS = 2048
 #: the cardinality bound costs O(n) per alpha: it is tried for at most this many alphas
 MAX_CARD_ALPHAS = 48
+#: pigeonhole_k: at most this many k whose float sums tie with the best are summed exactly
+MAX_WINDOW_CANDIDATES = 8
 
 I64 = npt.NDArray[np.int64]
 
@@ -52,32 +68,65 @@ def pick(bounds: dict[str, float]) -> tuple[str, float]:
 
 
 def to_ticks(durations: npt.NDArray[np.float64], resolution: float) -> I64:
-    """Durations as whole ticks of ``resolution``, rounded down (never up)."""
-    return np.floor(durations / resolution).astype(np.int64)
+    """Durations as whole ticks of ``resolution``, rounded down exactly (never up).
+
+    The caller keeps every quotient within ``rational.MAX_TICKS``.
+    """
+    return floor_ticks(durations, resolution)
 
 
-def simple_bounds(sorted_desc: npt.NDArray[np.float64], m: int) -> dict[str, Any]:
+def pigeonhole_window(p_desc: npt.NDArray[np.float64], m: int) -> tuple[Fraction, int]:
+    """The best ``k`` of ``pigeonhole_k`` and its exact sum: jobs km+1-k .. km+1 (1-based)
+    of the durations sorted longest first, best over ``1 <= k <= (n - 1) // m``; needs n > m.
+
+    The sums are compared in floating point (prefix-sum differences, which can cancel);
+    every k within the round-off of the best is then summed exactly, and the largest
+    exact sum wins (any k gives a valid bound).
+    """
+    p = p_desc
+    n = int(p.size)
+    kmax = (n - 1) // m
+    ks = np.arange(1, kmax + 1)
+    cs = np.concatenate(([0.0], np.cumsum(p)))
+    # jobs km+1-k .. km+1 (1-based) are indices km-k .. km (0-based)
+    sums = cs[ks * m + 1] - cs[ks * m - ks]
+    # a running sum of i non-negative terms is within i units of round-off of its exact
+    # value, so every difference is within about 2 n u cs[-1] of the window's exact sum
+    slack = 4.0 * (n + 2) * 2.0**-53 * float(cs[-1])
+    near = np.flatnonzero(sums >= float(sums.max()) - 2.0 * slack)
+    if near.size > MAX_WINDOW_CANDIDATES:
+        near = np.sort(near[np.argsort(-sums[near], kind="stable")[:MAX_WINDOW_CANDIDATES]])
+    best, best_k = Fraction(-1), 0
+    for i in near.tolist():
+        k = i + 1
+        exact = array_sum(p[k * m - k : k * m + 1])
+        if exact > best:
+            best, best_k = exact, k
+    return best, best_k
+
+
+def simple_bounds(
+    sorted_desc: npt.NDArray[np.float64], m: int, total: Fraction | None = None
+) -> dict[str, Any]:
     """mean_load, longest_job, pigeonhole and pigeonhole_k on real durations.
 
-    Returns the bounds plus ``k`` (the pigeonhole generalisation's best k) under
-    the key ``"_k"``.
+    Each is computed exactly and rounded down. ``total`` is the exact sum of the
+    durations when the caller has it. Returns the bounds plus ``k`` (the pigeonhole
+    generalisation's best k) under the key ``"_k"``.
     """
     p = sorted_desc
     n = p.size
+    if total is None:
+        total = array_sum(p)
     out: dict[str, Any] = {
-        "mean_load": float(p.sum()) / m,
+        "mean_load": down(total / m),
         "longest_job": float(p[0]) if n else 0.0,
     }
     if n > m:
-        out["pigeonhole"] = float(p[m - 1] + p[m])
-        kmax = (n - 1) // m
-        ks = np.arange(1, kmax + 1)
-        cs = np.concatenate(([0.0], np.cumsum(p)))
-        # jobs km+1-k .. km+1 (1-based) are indices km-k .. km (0-based)
-        sums = cs[ks * m + 1] - cs[ks * m - ks]
-        best = int(np.argmax(sums))
-        out["pigeonhole_k"] = float(sums[best])
-        out["_k"] = int(ks[best])
+        out["pigeonhole"] = down(Fraction(float(p[m - 1])) + Fraction(float(p[m])))
+        window, k = pigeonhole_window(p, m)
+        out["pigeonhole_k"] = down(window)
+        out["_k"] = k
     return out
 
 
@@ -190,24 +239,30 @@ def lower_bounds(inst: Instance, upper: float | None = None) -> Certificate:
     """
     m = inst.m
     p = inst.sorted_desc
-    simple = simple_bounds(p, m)
+    total = array_sum(p)
+    simple = simple_bounds(p, m, total)
     k = simple.pop("_k", None)
     bounds: dict[str, float] = dict(simple)
     evidence: dict[str, Any] = {}
     if k is not None:
         evidence["pigeonhole_k"] = {"k": k, "jobs_considered": k * m + 1}
     res = inst.resolution
-    q = to_ticks(p, res)
-    low = tick_bounds(q, m)
-    bounds["mean_load"] = max(bounds["mean_load"], res * -(-int(q.sum()) // m))
-    if upper is not None and inst.n > m:
-        high = math.floor(upper / res + 1e-9)
-        if high > low:
-            lb, ev = lifted_bin_packing(q, m, low, high)
-            if ev:
-                bounds["bin_packing"] = lb * res
-                ev["refuted_capacity"] = ev["refuted_capacity_ticks"] * res
-                evidence["bin_packing"] = ev
+    tick = Fraction(res)
+    if total <= MAX_TICKS * tick:  # every tick count below, and their sum, stays exact
+        q = to_ticks(p, res)
+        low = tick_bounds(q, m)
+        tick_mean = ticks_to_seconds_down(ceil_div(int(q.sum()), m), res)
+        bounds["mean_load"] = max(bounds["mean_load"], tick_mean)
+        if upper is not None and math.isfinite(upper) and inst.n > m:
+            high = min(math.floor(Fraction(upper) / tick), MAX_TICKS)
+            if high > low:
+                lb, ev = lifted_bin_packing(q, m, low, high)
+                if ev:
+                    bounds["bin_packing"] = ticks_to_seconds_down(lb, res)
+                    ev["refuted_capacity"] = ticks_to_seconds_down(
+                        ev["refuted_capacity_ticks"], res
+                    )
+                    evidence["bin_packing"] = ev
     source, value = pick(bounds)
     evidence["resolution"] = res
     return Certificate(value=value, source=source, bounds=bounds, evidence=evidence)

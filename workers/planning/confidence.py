@@ -71,6 +71,7 @@ import os
 from collections.abc import Mapping, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
+from fractions import Fraction
 from functools import cache
 from typing import Any, Literal
 
@@ -80,6 +81,7 @@ import numpy.typing as npt
 from .errors import Infeasible, InvalidInstance, Issue
 from .kernels import jit, least_loaded
 from .model import FloatArray, Instance, Node, identical_nodes
+from .rational import ceil_div, exact_sum
 from .result import Schedule
 
 Policy = Literal["static", "dynamic"]
@@ -1017,7 +1019,8 @@ def nodes_for_confidence(
     )
     n = one.n
     upper = n if max_nodes is None else min(int(max_nodes), max(n, 1))
-    lower = max(1, math.ceil(one.total / (speed * deadline) - 1e-12))
+    # the work needs this many nodes by the deadline, in exact arithmetic
+    lower = max(1, ceil_div(exact_sum(one.durations), Fraction(speed) * Fraction(deadline)))
     if lower > upper:
         raise InvalidInstance(
             f"max_nodes {upper} is below the {lower} node(s) the work needs by the deadline",

@@ -1,22 +1,25 @@
 """Plans for real farms: node speeds, requires/provides tags, and nodes still busy (free_at).
 
-``solve_farm`` is what ``solve.solve`` calls for every instance that is not plain identical
-nodes. Methods:
+``solve_farm`` is what ``solve.solve`` calls for every instance that is not identical nodes
+in effect (``solve`` alone decides that, with :func:`identical_in_effect`). Methods:
 
 ``list``           jobs in batch order, each onto the eligible node where it would finish
                    first.
 ``longest_first``  the LPT rule for uniform machines: jobs longest first, each onto the
                    eligible node where it would finish first (Gonzalez, Ibarra and Sahni
                    1977 studied it for speeds; Lee 1991 for nodes free at different times).
-``exact``          a MILP through HiGHS (``farm_milp``) when the instance is small enough,
-                   else LPT plus a local search (moves and swaps off the node that finishes
-                   last, respecting eligibility), then random restarts from the local
-                   optimum (iterated local search) until the budget is spent;
-                   certificate either way.
+``exact``          LPT plus a local search (moves and swaps off the node that finishes
+                   last, respecting eligibility); when the instance is small enough, a MILP
+                   through HiGHS (``farm_milp``) as a hint for a better plan, then an
+                   exhaustive branch and bound in exact arithmetic (``farm_exact``) that
+                   finds the optimum or proves the best plan optimal; larger instances get
+                   random restarts from the local optimum (iterated local search) until
+                   the budget is spent; certificate either way.
 ``auto``           the same choice as ``exact``; ``extras["auto"]`` says what was chosen.
 
 An instance that is identical nodes in effect (every node speed 1 and free at 0, every job
-allowed everywhere) is handed to the identical-node code, so it gets exactly those results.
+allowed everywhere) is planned by the identical-node code (``solve`` hands it there), so
+it gets exactly those results.
 
 A-priori guarantees (``worst_case_ratio``), only where a published one applies:
 
@@ -43,19 +46,21 @@ from __future__ import annotations
 import dataclasses
 import math
 import time
+from fractions import Fraction
 from typing import Any
 
 import numpy as np
 import numpy.typing as npt
 
-from . import farm_milp
+from . import farm_exact, farm_milp
 from .budget import Budget
 from .farm_bounds import Eligibility, eligibility, farm_lower_bounds
 from .greedy import lpt_ratio
 from .kernels import earliest_finish, jit
 from .model import FloatArray, Instance
+from .progress import Progress, ProgressHook
+from .rational import down
 from .result import Certificate, PlanResult, Schedule
-from .solve import Progress, ProgressHook
 
 KOVACS_2010 = 1.0 + math.sqrt(3.0) / 3.0
 
@@ -108,17 +113,7 @@ def arrays(inst: Instance) -> tuple[FloatArray, FloatArray]:
 
 def schedule_from_nodes(inst: Instance, node_of: npt.NDArray[np.int32]) -> Schedule:
     """Back-to-back from each node's free_at, longest job first on every node."""
-    s, f = arrays(inst)
-    d = inst.durations
-    order = np.lexsort((np.arange(inst.n), -d, node_of))
-    nd = node_of[order]
-    t = d[order] / s[nd]
-    cs = np.cumsum(t)
-    first = np.searchsorted(nd, nd, "left")  # index in ``order`` where the node's run starts
-    before = np.where(first > 0, cs[first - 1], 0.0)
-    start = np.empty(inst.n)
-    start[order] = f[nd] + (cs - t - before)
-    return Schedule(inst, node_of.astype(np.int32), start)
+    return Schedule.sequenced(inst, node_of)
 
 
 def _tiny(inst: Instance) -> bool:
@@ -422,7 +417,7 @@ def local_search(
         if progress is not None and ms < best:
             progress(Progress(budget.elapsed(), ms, lower))
         best = min(best, ms)
-        if done or ms <= target * (1 + 1e-12):
+        if done or ms <= target:
             break
     if done and kick and inst.n <= MAX_KICK_JOBS:
         kicks = _kicks(inst, elig, node_of, budget, reserve, target, progress, lower)
@@ -455,7 +450,7 @@ def _kicks(
     best = float((f + np.bincount(node_of, d, inst.m) / s).max())
     tries = 0
     size = max(2, inst.n // 100)
-    while not budget.expired() and budget.remaining() > reserve and best > target * (1 + 1e-12):
+    while not budget.expired() and budget.remaining() > reserve and best > target:
         trial = node_of.copy()
         for j in rng.choice(inst.n, size=min(size, inst.n), replace=False).tolist():
             opt = options[elig.job_type[j]]
@@ -475,24 +470,14 @@ def _kicks(
     return tries
 
 
-def _identical_in_effect(inst: Instance, elig: Eligibility) -> bool:
+def identical_in_effect(inst: Instance, elig: Eligibility) -> bool:
+    """Every node speed 1 and free at 0, and every job allowed everywhere."""
     return elig.all_eligible and all(nd.is_plain for nd in inst.nodes)
 
 
-def _delegate(
-    inst: Instance, method: str, budget: Budget, progress: ProgressHook | None
-) -> PlanResult:
-    """Solve as identical nodes (tags that every node provides are dropped)."""
-    from .solve import solve
-
-    plain = dataclasses.replace(inst, requires=None)
-    res = solve(
-        plain,
-        method,
-        time_budget=budget.remaining(),
-        progress=progress,
-        should_stop=budget.should_stop,
-    )
+def as_farm_result(inst: Instance, res: PlanResult) -> PlanResult:
+    """A result planned as identical nodes (tags every node provides dropped), given back
+    on ``inst`` and saying so."""
     sched = Schedule(inst, res.schedule.node_of, res.schedule.start)
     extras = dict(res.extras)
     extras["farm"] = {"reduced_to": "identical nodes (every node speed 1, free at 0, all tags)"}
@@ -500,12 +485,13 @@ def _delegate(
 
 
 def solve_farm(
-    inst: Instance, method: str, budget: Budget, progress: ProgressHook | None
+    inst: Instance,
+    elig: Eligibility,
+    method: str,
+    budget: Budget,
+    progress: ProgressHook | None,
 ) -> PlanResult:
     """Plan a farm with speeds, tags and busy nodes; see the module doc for the methods."""
-    elig = eligibility(inst)  # raises Infeasible naming the jobs no node may run
-    if _identical_in_effect(inst, elig):
-        return _delegate(inst, method, budget, progress)
     if method in ("list", "longest_first"):
         sched = greedy_schedule(inst, elig, method)
         cert = farm_lower_bounds(inst, elig, sched.makespan)
@@ -515,15 +501,16 @@ def solve_farm(
             method=method,
             certificate=cert,
             worst_case_ratio=ratio,
-            stop_reason="proved_optimal" if _closed(sched.makespan, cert.value) else "heuristic",
+            stop_reason="proved_optimal" if _closed(sched, cert.exact_value) else "heuristic",
             solve_seconds=budget.elapsed(),
             extras={"worst_case_ratio_source": why},
         )
     return _search(inst, elig, method, budget, progress)
 
 
-def _closed(ms: float, lb: float) -> bool:
-    return ms - lb <= 1e-9 * max(1.0, ms)
+def _closed(sched: Schedule, lb: float | Fraction) -> bool:
+    """The bound meets the plan exactly (no tolerance)."""
+    return Fraction(lb) >= sched.makespan_exact
 
 
 def _search(
@@ -536,7 +523,7 @@ def _search(
     extras: dict[str, Any] = {
         "worst_case_ratio_source": why + " (the plan is never worse than LPT)"
     }
-    best, lower = lpt, cert.value
+    best, lower, exact = lpt, cert.value, cert.exact_value
     if progress is not None:
         progress(Progress(budget.elapsed(), best.makespan, lower))
     small = farm_milp.small_enough(inst, elig)
@@ -549,8 +536,10 @@ def _search(
             else f"too large for the MILP (more than {farm_milp.MAX_JOBS} jobs or "
             f"{farm_milp.MAX_PAIRS} job-node pairs): LPT then moves and swaps"
         )
-    milp_bound: float | None = None
-    if not _closed(best.makespan, lower) and not budget.expired():
+    bounds = dict(cert.bounds)
+    evidence = dict(cert.evidence)
+    source, value = cert.source, cert.value
+    if not _closed(best, exact) and not budget.expired():
         # moves and swaps first: cheap, and they hand the MILP a better upper bound
         best, steps, local_opt = local_search(
             inst,
@@ -563,28 +552,40 @@ def _search(
             kick=not small,
         )
         info["local_search"] = {"steps": steps, "local_optimum": local_opt}
-    if small and not _closed(best.makespan, lower) and not budget.expired():
-        # HiGHS overshoots its limit a little (model set-up, presolve): keep a margin
-        limit = max(0.01, 0.95 * budget.remaining() - 0.03)
+    if small and not _closed(best, exact) and not budget.expired():
+        # HiGHS is a hint: its plan is kept when it checks (it is measured again here, in
+        # exact arithmetic), its bound is never reported as proven (its tolerances make
+        # it false at large durations). Half the time goes to it, the rest to the exact
+        # search that proves (or finds) the optimum.
+        limit = max(0.01, 0.5 * budget.remaining() - 0.03)
         out = farm_milp.solve_milp(inst, elig, lower, best.makespan, limit)
         info["milp_status"] = out.message
         if out.node_of is not None and (out.node_of >= 0).all():
             cand = schedule_from_nodes(inst, out.node_of)
-            if cand.makespan < best.makespan:
+            if cand.makespan_exact < best.makespan_exact:
                 best = cand
-        milp_bound = out.dual_bound
-        if out.optimal:
-            # HiGHS closed the tree: its bound equals its plan up to float round-off
-            milp_bound = max(milp_bound, min(best.makespan, out.dual_bound * (1 + 1e-9)))
-    bounds = dict(cert.bounds)
-    if milp_bound is not None and milp_bound > 0:
-        bounds["milp"] = min(milp_bound, best.makespan)
-    source, value = max(bounds.items(), key=lambda kv: kv[1])
-    if value == cert.value:
-        source = cert.source
-    cert = Certificate(value=value, source=source, bounds=bounds, evidence=dict(cert.evidence))
+        evidence["milp_hint"] = {
+            "dual_bound": out.dual_bound,
+            "claimed_optimal": out.optimal,
+            "proof": False,
+        }
+    if small and not _closed(best, exact) and not budget.expired():
+        proof = farm_exact.prove(inst, elig, best.node_of, lower, budget)
+        if proof.makespan < best.makespan_exact:
+            best = schedule_from_nodes(inst, proof.node_of)
+        proved = down(proof.lower_bound)
+        info["exact_search"] = {"nodes": proof.nodes, "finished": proof.finished}
+        if proof.lower_bound > exact:
+            bounds["search"] = proved
+            source, value, exact = "search", proved, proof.lower_bound
+            evidence["search"] = {
+                "rule": "exhaustive branch and bound in exact arithmetic",
+                "nodes": proof.nodes,
+                "finished": proof.finished,
+            }
+    cert = Certificate(value=value, source=source, bounds=bounds, evidence=evidence, exact=exact)
     extras["auto" if method == "auto" else "exact"] = info
-    closed = _closed(best.makespan, value)
+    closed = _closed(best, exact)
     if closed:
         stop = "proved_optimal"
     elif budget.cancelled:

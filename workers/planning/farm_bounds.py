@@ -30,11 +30,20 @@ capacity fact: by time ``C >= f_k`` node ``k`` can do at most ``s_k (C - f_k)`` 
                       bin-packing bound of ``bounds.py`` for the speed-1 durations. Applied
                       to the whole farm with tags ignored (a relaxation), and to each
                       eligible set whose nodes are identical.
+
+Every bound holds in exact arithmetic for the given floats (see :mod:`.rational`): sums
+and products are taken exactly, division by a speed (3, 0.3, ...) in fractions, and the
+result is rounded *down* to the float we report. Floating point only picks which node or
+which k to evaluate exactly: every candidate within its round-off of the best is
+evaluated in fractions. The bisection of ``k_longest`` refutes a capacity only with room
+for round-off, and its final refutation is checked again in fractions.
 """
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
+from fractions import Fraction
 from typing import Any
 
 import numpy as np
@@ -43,6 +52,7 @@ import numpy.typing as npt
 from . import bounds as ident_bounds
 from .errors import Infeasible, Issue
 from .model import FloatArray, Instance
+from .rational import array_sum, down, exact_dot
 from .result import Certificate
 
 #: order used to pick the reported source among equal bounds (simplest first)
@@ -63,6 +73,12 @@ MAX_TYPES_FOR_UNIONS = 10
 BISECT_STEPS = 60
 #: the bin-packing bound is tried on groups with at most this many jobs
 MAX_BIN_PACKING_JOBS = 200_000
+#: relative round-off allowed for a float ``f + w / s`` or a float capacity (many units
+#: in the last place: only decides which candidates are evaluated exactly, or refutes
+#: with room to spare)
+ROUND_OFF = 2.0**-44
+#: below this, float values are not trusted to relative accuracy (gradual underflow)
+TINY = 2.0**-960
 
 
 @dataclass(frozen=True, eq=False)
@@ -114,7 +130,7 @@ def eligibility(inst: Instance) -> Eligibility:
     return Eligibility(job_type, eligible, tags)
 
 
-def pick(bounds: dict[str, float]) -> tuple[str, float]:
+def pick(bounds: Mapping[str, Fraction]) -> tuple[str, Fraction]:
     """The largest bound and its name (the simplest rule wins ties)."""
     best = max(bounds.values())
     for name in FARM_BOUND_ORDER:
@@ -124,9 +140,46 @@ def pick(bounds: dict[str, float]) -> tuple[str, float]:
     return name, bounds[name]
 
 
-def work_bound(total: float, s: FloatArray, f: FloatArray) -> float:
-    """``(total + sum s f) / sum s``: all work fits on these nodes (see module doc)."""
-    return float((total + float(s @ f)) / float(s.sum()))
+def work_bound(total: Fraction | float, s: FloatArray, f: FloatArray) -> Fraction:
+    """``(total + sum s f) / sum s`` exactly: all work fits on these nodes (see the module
+    doc); ``total`` is the exact work."""
+    return (Fraction(total) + exact_dot(s, f)) / array_sum(s)
+
+
+def earliest_finish(work: Fraction, s: FloatArray, f: FloatArray) -> Fraction:
+    """``min_k f_k + work / s_k`` exactly: when ``work`` seconds of speed-1 work can be
+    done at the earliest on one of these nodes.
+
+    Floats pick the nodes within round-off of the least; those (one per distinct speed
+    and ``free_at``) are evaluated in fractions.
+    """
+    approx = f + float(work) / s
+    least = float(approx.min())
+    near = np.flatnonzero(approx <= least * (1.0 + ROUND_OFF) + TINY)
+    pairs = np.unique(np.stack((s[near], f[near]), axis=1), axis=0)
+    return min(Fraction(fk) + work / Fraction(sk) for sk, fk in pairs.tolist())
+
+
+def _failing(c: float, s: FloatArray, f: FloatArray, need: FloatArray, margin: FloatArray) -> int:
+    """The first k whose k longest jobs cannot fit on the k best nodes by ``c``, with room
+    for round-off (0 when none is refuted). ``need`` is the float running sum of the jobs
+    longest first and ``margin[k-1]`` the relative round-off allowed at k."""
+    cap = np.sort(s * (c - f))[::-1][: need.size]
+    have = np.cumsum(cap)
+    bad = np.flatnonzero(have * (1.0 + margin) < need * (1.0 - margin))
+    return int(bad[0]) + 1 if bad.size else 0
+
+
+def _refuted_exactly(c: float, k: int, p_desc: FloatArray, s: FloatArray, f: FloatArray) -> bool:
+    """Whether in exact arithmetic the k largest ``s_i (c - f_i)`` sum to less than the k
+    longest jobs (so no plan ends by ``c``)."""
+    cap = s * (c - f)
+    kth = float(np.sort(cap)[::-1][k - 1])
+    near = np.flatnonzero(cap >= kth * (1.0 - ROUND_OFF) - TINY)  # all that can be top k
+    exact_c = Fraction(c)
+    pairs = zip(s[near].tolist(), f[near].tolist(), strict=True)
+    caps = sorted((Fraction(si) * (exact_c - Fraction(fi)) for si, fi in pairs), reverse=True)
+    return sum(caps[:k], Fraction(0)) < array_sum(p_desc[:k])
 
 
 def k_longest_bound(
@@ -137,16 +190,19 @@ def k_longest_bound(
 
     ``floor`` must be at least ``max f`` (so ``C - f >= 0``) and ``upper`` the makespan of a
     plan (where every condition holds, since it holds at the optimum and grows with ``C``).
+    The bound returned is ``floor`` or a ``C`` refuted in exact arithmetic: the optimum
+    lies above it.
     """
     kmax = min(p_desc.size, s.size)
     if kmax == 0:
         return floor, 0
     need = np.cumsum(p_desc[:kmax])
+    # a capacity and a running sum of k non-negative terms each carry at most about
+    # (k + 3) units of round-off; refute only beyond eight times that
+    margin = (np.arange(1, kmax + 1, dtype=np.float64) + 8.0) * 2.0**-50
 
     def failing(c: float) -> int:
-        cap = np.sort(s * (c - f))[::-1][:kmax]
-        bad = np.flatnonzero(np.cumsum(cap) < need)
-        return int(bad[0]) + 1 if bad.size else 0
+        return _failing(c, s, f, need, margin)
 
     if not np.isfinite(upper) or upper < floor:
         upper = floor + float(p_desc.sum() / s.min()) + 1.0
@@ -164,32 +220,46 @@ def k_longest_bound(
             lo, k_lo = mid, k
         else:
             hi = mid
+    if lo > floor and not _refuted_exactly(lo, k_lo, p_desc, s, f):
+        return floor, 0  # pragma: no cover - the margin above makes this unreachable
     return lo, k_lo
 
 
-def pigeonhole_bound(p_desc: FloatArray, s: FloatArray, f: FloatArray) -> tuple[float, int]:
+def pigeonhole_bound(p_desc: FloatArray, s: FloatArray, f: FloatArray) -> tuple[Fraction, int]:
     """Among the km+1 longest jobs one node runs k+1 of them (at least the k+1 shortest of
     those): ``min_k f_k + sum / s_k``, best over k. Returns (bound, k), (0, 0) if n <= m."""
     n, m = p_desc.size, s.size
     if n <= m:
-        return 0.0, 0
-    kmax = (n - 1) // m
-    ks = np.arange(1, kmax + 1)
-    cs = np.concatenate(([0.0], np.cumsum(p_desc)))
-    sums = cs[ks * m + 1] - cs[ks * m - ks]
-    best = int(np.argmax(sums))
-    return float((f + sums[best] / s).min()), int(ks[best])
+        return Fraction(0), 0
+    window, k = ident_bounds.pigeonhole_window(p_desc, m)
+    return earliest_finish(window, s, f), k
 
 
 def _bin_packing(
     p: FloatArray, count: int, speed: float, free: float, resolution: float, upper: float
-) -> float | None:
+) -> Fraction | None:
     """``free + L / speed`` with L the identical-node bound of ``count`` speed-1 nodes."""
     if p.size == 0 or p.size > MAX_BIN_PACKING_JOBS:
         return None
     sub = Instance.build(p, count, resolution=resolution)
     cert = ident_bounds.lower_bounds(sub, upper=max(0.0, (upper - free) * speed))
-    return free + cert.value / speed
+    return Fraction(free) + Fraction(cert.value) / Fraction(speed)
+
+
+def _longest_job(elig: Eligibility, p: FloatArray, s: FloatArray, f: FloatArray) -> Fraction:
+    """``max_t min_{k eligible} f_k + p_t / s_k`` over job types t with longest job p_t,
+    exactly (floats pick the types within round-off of the best)."""
+    longest = np.zeros(len(elig.type_tags))
+    np.maximum.at(longest, elig.job_type, p)
+    approx = np.where(elig.eligible, f[None, :] + longest[:, None] / s[None, :], np.inf)
+    per_type = approx.min(1)
+    top = float(per_type.max())
+    near = np.flatnonzero(per_type >= top * (1.0 - ROUND_OFF) - TINY)
+    best = max(
+        earliest_finish(Fraction(float(longest[t])), s[elig.eligible[t]], f[elig.eligible[t]])
+        for t in near.tolist()
+    )
+    return best
 
 
 def _uniform(s: FloatArray, f: FloatArray) -> bool:
@@ -205,21 +275,17 @@ def farm_lower_bounds(inst: Instance, elig: Eligibility, upper: float) -> Certif
     s = np.array([nd.speed for nd in inst.nodes], dtype=np.float64)
     f = np.array([nd.free_at for nd in inst.nodes], dtype=np.float64)
     fmax = float(f.max())
-    out: dict[str, float] = {}
+    out: dict[str, Fraction] = {}  # exact; reported rounded down
     evidence: dict[str, Any] = {}
     if fmax > 0:
-        out["busy_nodes"] = fmax
-    out["mean_load"] = work_bound(inst.total, s, f)
+        out["busy_nodes"] = Fraction(fmax)
+    out["mean_load"] = work_bound(array_sum(p), s, f)
     # longest job per type, placed where it would finish first
-    t_of = elig.job_type
-    longest = np.zeros(len(elig.type_tags))
-    np.maximum.at(longest, t_of, p)
-    per_type = np.where(elig.eligible, f[None, :] + longest[:, None] / s[None, :], np.inf).min(1)
-    out["longest_job"] = float(per_type.max())
+    out["longest_job"] = _longest_job(elig, p, s, f)
     p_desc = inst.sorted_desc
     order_s = np.argsort(-s, kind="stable")
     kl, kk = k_longest_bound(p_desc, s[order_s], f[order_s], fmax, upper)
-    out["k_longest"] = kl
+    out["k_longest"] = Fraction(kl)
     evidence["k_longest"] = {"k": kk}
     ph, pk = pigeonhole_bound(p_desc, s, f)
     if pk:
@@ -234,12 +300,15 @@ def farm_lower_bounds(inst: Instance, elig: Eligibility, upper: float) -> Certif
     if group is not None:
         out["eligibility_group"] = group[0]
         evidence["eligibility_group"] = group[1]
-    if bp_group is not None and bp_group[0] > out.get("bin_packing", -np.inf):
+    if bp_group is not None and ("bin_packing" not in out or bp_group[0] > out["bin_packing"]):
         out["bin_packing"] = bp_group[0]
         evidence["bin_packing"] = bp_group[1]
-    source, value = pick(out)
+    source, exact = pick(out)
     evidence["resolution"] = inst.resolution
-    return Certificate(value=value, source=source, bounds=out, evidence=evidence)
+    reported = {name: down(x) for name, x in out.items()}
+    return Certificate(
+        value=down(exact), source=source, bounds=reported, evidence=evidence, exact=exact
+    )
 
 
 def _candidate_sets(elig: Eligibility) -> list[tuple[npt.NDArray[np.bool_], bool]]:
@@ -267,6 +336,14 @@ def _candidate_sets(elig: Eligibility) -> list[tuple[npt.NDArray[np.bool_], bool
     return out
 
 
+def _type_work(elig: Eligibility, p: FloatArray) -> list[Fraction]:
+    """The exact work of each job type."""
+    t = len(elig.type_tags)
+    order = np.argsort(elig.job_type, kind="stable")
+    cuts = np.searchsorted(elig.job_type[order], np.arange(t + 1)).tolist()
+    return [array_sum(p[order[cuts[i] : cuts[i + 1]]]) for i in range(t)]
+
+
 def _group_bounds(
     inst: Instance,
     elig: Eligibility,
@@ -275,14 +352,14 @@ def _group_bounds(
     f: FloatArray,
     fmax: float,
     upper: float,
-) -> tuple[tuple[float, dict[str, Any]] | None, tuple[float, dict[str, Any]] | None]:
+) -> tuple[tuple[Fraction, dict[str, Any]] | None, tuple[Fraction, dict[str, Any]] | None]:
     sets = _candidate_sets(elig)
     if not sets:
         return None, None
     e = elig.eligible
-    type_work = np.bincount(elig.job_type, weights=p, minlength=e.shape[0])
-    best: tuple[float, dict[str, Any]] | None = None
-    best_bp: tuple[float, dict[str, Any]] | None = None
+    type_work = _type_work(elig, p)
+    best: tuple[Fraction, dict[str, Any]] | None = None
+    best_bp: tuple[Fraction, dict[str, Any]] | None = None
 
     def describe(inside: npt.NDArray[np.bool_], nodes: npt.NDArray[np.bool_], rule: str) -> Any:
         tags = [sorted(elig.type_tags[r]) for r in np.flatnonzero(inside).tolist()]
@@ -294,12 +371,13 @@ def _group_bounds(
         if not inside.any():
             continue
         sn, fn = s[nodes], f[nodes]
-        cands = {"mean_load": work_bound(float(type_work[inside].sum()), sn, fn)}
+        work = sum((type_work[t] for t in np.flatnonzero(inside).tolist()), Fraction(0))
+        cands = {"mean_load": work_bound(work, sn, fn)}
         if full:
             jobs = np.flatnonzero(inside[elig.job_type])
             pg = np.sort(p[jobs])[::-1]
             o = np.argsort(-sn, kind="stable")
-            cands["k_longest"] = k_longest_bound(pg, sn[o], fn[o], fmax, upper)[0]
+            cands["k_longest"] = Fraction(k_longest_bound(pg, sn[o], fn[o], fmax, upper)[0])
             ph, pk = pigeonhole_bound(pg, sn, fn)
             if pk:
                 cands["pigeonhole"] = ph

@@ -4,8 +4,12 @@ Variables: ``x[j, k]`` in {0, 1} for every job ``j`` and node ``k`` that may run
 makespan ``C``. Minimise ``C`` subject to every job on exactly one node and, for every node,
 ``f_k + sum_j x[j, k] p_j / s_k <= C``. ``C`` is boxed between a proven lower bound and the
 makespan of a known plan (both valid: the optimum lies between them). HiGHS stops at
-``time_limit``; its best plan and its dual bound (a proven lower bound, up to HiGHS'
-tolerances) are returned either way.
+``time_limit``; its best plan and its dual bound are returned either way.
+
+Both are **hints**. HiGHS works in floating point with tolerances (integrality, primal and
+dual feasibility, presolve reductions); at durations of 1e8 s and more its "optimal" dual
+bound was found up to 50 % above the true optimum. The caller measures the plan again in
+exact arithmetic and never reports the dual bound as proven (``farm_exact`` proves).
 """
 
 from __future__ import annotations

@@ -11,7 +11,7 @@ import numpy as np
 import numpy.typing as npt
 
 from .kernels import assign_in_order
-from .model import Instance
+from .model import Instance, longest_first_order
 from .result import Schedule
 
 
@@ -30,29 +30,6 @@ def coffman_sethi_ratio(k: int, m: int) -> float:
     (k+1)/k - 1/(km) of the optimum (formula from memory; property-tested against brute
     force in tests/workers/test_greedy.py)."""
     return (k + 1) / k - 1.0 / (k * m)
-
-
-def longest_first_order(durations: npt.NDArray[np.float64]) -> npt.NDArray[np.intp]:
-    """Job indices longest first, equal durations in batch order.
-
-    numpy's default (introsort) argsort is the floor on cost; it is not stable, so runs
-    of equal durations are put back in batch order afterwards, at a cost proportional to
-    the number of tied jobs (one sort of composite integer keys).
-    """
-    n = durations.size
-    order = np.argsort(durations)[::-1].copy()
-    sd = durations[order]
-    eq = sd[1:] == sd[:-1]
-    if n > 1 and eq.any():
-        in_run = np.zeros(n, dtype=bool)
-        in_run[1:] |= eq
-        in_run[:-1] |= eq
-        pos = np.flatnonzero(in_run)
-        run_id = np.concatenate(([0], np.cumsum(~eq)))
-        key = run_id[pos].astype(np.int64) * n + order[pos]
-        key.sort()
-        order[pos] = key % n
-    return order
 
 
 def longest_first_assign(

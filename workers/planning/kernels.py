@@ -148,3 +148,29 @@ def least_loaded(
     node_of[order] = node_in_order
     start[order] = start_in_order
     return node_of, start
+
+
+@jit
+def chain_starts(
+    order: npt.NDArray[np.intp],
+    node_of: npt.NDArray[np.int32],
+    run: npt.NDArray[np.float64],
+    free_at: npt.NDArray[np.float64],
+) -> npt.NDArray[np.float64]:
+    """Start of every job when each node runs its jobs back to back, in ``order``, from
+    its ``free_at``; ``run[j]`` is job j's running time on its node.
+
+    Each node's clock is its own running sum (``start + run`` is the next start, the
+    same floating-point addition that gives a job's end), so the first job of a node
+    starts exactly at ``free_at`` and a job never starts before the previous one ends,
+    at any scale. (One running sum across all nodes, minus offsets, does not have that
+    property.)
+    """
+    clock = free_at.copy()
+    start = np.zeros(run.shape[0], dtype=np.float64)
+    for t in range(order.shape[0]):
+        j = order[t]
+        k = node_of[j]
+        start[j] = clock[k]
+        clock[k] = clock[k] + run[j]
+    return start

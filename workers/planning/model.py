@@ -11,6 +11,7 @@ import math
 import re
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
+from fractions import Fraction
 from functools import cached_property, lru_cache
 from typing import Any
 
@@ -18,6 +19,7 @@ import numpy as np
 import numpy.typing as npt
 
 from .errors import InvalidInstance, Issue
+from .rational import MAX_TICKS, decimal_up
 
 #: longest id we accept for a job or node (characters)
 MAX_ID_LENGTH = 200
@@ -177,8 +179,6 @@ class Instance:
     @cached_property
     def order_longest_first(self) -> npt.NDArray[np.intp]:
         """Job indices by duration, longest first; ties by position in the batch."""
-        from .greedy import longest_first_order
-
         return longest_first_order(self.durations)
 
     @cached_property
@@ -213,8 +213,59 @@ class Instance:
             issues.append(Issue("/deadline", "must be a finite number > 0"))
         if not (math.isfinite(self.resolution) and self.resolution > 0):
             issues.append(Issue("/resolution", "must be a finite number > 0"))
+        if not issues:
+            issues.extend(_tick_range(self))
         if issues:
             raise InvalidInstance(f"{len(issues)} problem(s) in the batch", issues)
+
+
+def longest_first_order(durations: npt.NDArray[np.float64]) -> npt.NDArray[np.intp]:
+    """Job indices longest first, equal durations in batch order.
+
+    numpy's default (introsort) argsort is the floor on cost; it is not stable, so runs
+    of equal durations are put back in batch order afterwards, at a cost proportional to
+    the number of tied jobs (one sort of composite integer keys).
+    """
+    n = durations.size
+    order = np.argsort(durations)[::-1].copy()
+    sd = durations[order]
+    eq = sd[1:] == sd[:-1]
+    if n > 1 and eq.any():
+        in_run = np.zeros(n, dtype=bool)
+        in_run[1:] |= eq
+        in_run[:-1] |= eq
+        pos = np.flatnonzero(in_run)
+        run_id = np.concatenate(([0], np.cumsum(~eq)))
+        key = run_id[pos].astype(np.int64) * n + order[pos]
+        key.sort()
+        order[pos] = key % n
+    return order
+
+
+def _tick_range(inst: Instance) -> list[Issue]:
+    """Refuse an instance whose times, counted in ticks of ``resolution``, could exceed
+    :data:`rational.MAX_TICKS` (2**53): past it ticks are no longer exact, and the
+    searches' int64 arithmetic could overflow.
+
+    The horizon is the latest any sensible plan ends: the last ``free_at`` plus all the
+    work on the slowest node; a capacity on the fastest node is that times its speed.
+    """
+    speeds = [nd.speed for nd in inst.nodes]
+    horizon = max(nd.free_at for nd in inst.nodes) + inst.total / min(speeds)
+    if inst.deadline is not None:
+        horizon = max(horizon, inst.deadline)
+    reach = horizon * max(1.0, max(speeds))
+    if reach / inst.resolution <= MAX_TICKS:
+        return []
+    finest = decimal_up(Fraction(reach) * (1 + Fraction(1, 10**9)) / MAX_TICKS)
+    return [
+        Issue(
+            "/resolution",
+            f"too fine for these times: the plan may span {reach / inst.resolution:.3g} ticks "
+            f"of {inst.resolution:g} s, above the limit of 2**53; use a resolution of at "
+            f"least {finest} s",
+        )
+    ]
 
 
 @lru_cache(maxsize=8)

@@ -42,8 +42,9 @@ from typing import Any, TypeGuard
 from .errors import Infeasible, InvalidInstance, Issue
 from .farm_bounds import eligibility
 from .model import Instance, Node
+from .progress import ProgressHook
 from .result import PlanResult
-from .solve import ProgressHook, solve
+from .solve import solve
 
 
 @dataclass(frozen=True, slots=True)

@@ -9,8 +9,10 @@ computed, the method's a-priori guarantee and why the solver stopped. ``to_dict(
 from __future__ import annotations
 
 import json
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from fractions import Fraction
 from functools import cached_property
 from json.encoder import encode_basestring_ascii
 from typing import Any
@@ -18,7 +20,9 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from .kernels import chain_starts, pure
 from .model import FloatArray, Instance
+from .rational import exact_sum
 
 IntArray = npt.NDArray[np.int32]
 
@@ -38,8 +42,16 @@ def _whole(a: FloatArray) -> bool:
     return bool(((a >= 0) & (a < 1e16) & (a == np.floor(a))).all() and not np.signbit(a).any())
 
 
-#: relative tolerance under which makespan and bound count as equal (float round-off)
-EQUAL_RTOL = 1e-9
+def _fraction_bits(x: FloatArray) -> int:
+    """The fewest binary places after the point that write every value of ``x`` exactly."""
+    nz = x[x != 0]
+    if not nz.size:
+        return 0
+    mant, exp = np.frexp(nz)  # nz = mant * 2**exp, 0.5 <= mant < 1
+    whole = (mant * 2.0**53).astype(np.int64)  # a whole number below 2**53
+    low = whole & -whole  # its lowest set bit, a power of two
+    trailing = np.log2(low.astype(np.float64)).astype(np.int64)
+    return max(0, int((53 - exp - trailing).max()))
 
 
 @dataclass(frozen=True, eq=False)
@@ -50,40 +62,110 @@ class Schedule:
     node_of: IntArray
     start: FloatArray
 
+    @classmethod
+    def sequenced(
+        cls,
+        instance: Instance,
+        node_of: npt.NDArray[np.integer[Any]],
+        order: npt.NDArray[np.intp] | None = None,
+    ) -> Schedule:
+        """Every node runs its jobs back to back from its ``free_at``, in ``order``
+        (default: longest first, ties by position in the batch).
+
+        The one way a plan given as "node of each job" becomes times: each node keeps its
+        own clock (:func:`kernels.chain_starts`), so no job starts before its node is free
+        and no two jobs of a node overlap, exactly, at any scale.
+        """
+        nodes = np.ascontiguousarray(node_of, dtype=np.int32)
+        if order is None:
+            order = instance.order_longest_first
+        speeds = np.array([nd.speed for nd in instance.nodes], dtype=np.float64)
+        free = np.array([nd.free_at for nd in instance.nodes], dtype=np.float64)
+        run = instance.durations / speeds[nodes]
+        # small plans: plain Python beats loading the compiled kernel (CLI start-up)
+        rule = chain_starts if instance.n > 2_000 else pure(chain_starts)
+        start = rule(np.ascontiguousarray(order, dtype=np.intp), nodes, run, free)
+        return cls(instance, nodes, start)
+
+    @cached_property
+    def _speeds(self) -> FloatArray:
+        return np.array([nd.speed for nd in self.instance.nodes], dtype=np.float64)
+
+    @cached_property
+    def _free(self) -> FloatArray:
+        return np.array([nd.free_at for nd in self.instance.nodes], dtype=np.float64)
+
+    @cached_property
+    def run(self) -> FloatArray:
+        """Running time of every job on the node it was given (``duration / speed``)."""
+        return self.instance.durations / self._speeds[self.node_of]
+
     @cached_property
     def end(self) -> FloatArray:
         """End time of every job on the node it was given."""
-        speeds = np.array([nd.speed for nd in self.instance.nodes], dtype=np.float64)
-        return self.start + self.instance.durations / speeds[self.node_of]
+        return self.start + self.run
 
     @cached_property
     def loads(self) -> FloatArray:
         """Finish time of every node (its ``free_at`` when it runs nothing)."""
-        out = np.array([nd.free_at for nd in self.instance.nodes], dtype=np.float64)
+        out = self._free.copy()
         np.maximum.at(out, self.node_of, self.end)
         return out
 
     @cached_property
     def makespan(self) -> float:
-        """When the last node finishes (computed once, like :attr:`loads`; the certificate
-        and the result's dict read it many times)."""
+        """When the last node finishes, in the floating-point times of the plan (computed
+        once, like :attr:`loads`; the searches compare it many times)."""
         return float(self.loads.max()) if self.loads.size else 0.0
+
+    def exact_finish(self, k: int) -> Fraction:
+        """Node ``k``'s finish time in exact arithmetic: ``free_at + sum(p) / speed``."""
+        nd = self.instance.nodes[k]
+        mine = self.instance.durations[self.node_of == k]
+        return Fraction(nd.free_at) + exact_sum(mine) / Fraction(nd.speed)
+
+    @cached_property
+    def makespan_exact(self) -> Fraction:
+        """The makespan of this assignment in exact arithmetic on the stated numbers.
+
+        Every certificate compares against this value. When every running time and
+        ``free_at`` is a multiple of one power of two and every clock stays below 2**53
+        of them (whole seconds, halves, speeds 1, 2, 0.5 ...), the floating-point clocks
+        are exact and this is :attr:`makespan`. Otherwise each clock is within
+        ``(jobs + 2) * 2**-52`` of its value relative to it, and only the nodes that may
+        be last by that margin are summed again exactly.
+        """
+        loads = self.loads
+        if not loads.size:
+            return Fraction(0)
+        s = self._speeds[self.node_of]
+        powers = bool((np.frexp(self._speeds)[0] == 0.5).all())
+        if powers and np.array_equal(self.run * s, self.instance.durations):
+            bits = max(_fraction_bits(self.run), _fraction_bits(self._free))
+            if bits < 1000 and math.ldexp(float(loads.max()), bits) < 2.0**53:
+                return Fraction(float(loads.max()))
+        counts = np.bincount(self.node_of, minlength=self.instance.m)
+        err = (counts + 2) * 2.0**-52 * loads
+        floor = float((loads - err).max())
+        candidates = np.flatnonzero(loads + err >= floor).tolist()
+        return max(self.exact_finish(k) for k in candidates)
 
     def jobs_per_node(self) -> npt.NDArray[np.int64]:
         """How many jobs each node runs."""
         return np.bincount(self.node_of, minlength=self.instance.m)
 
     def check(self) -> None:
-        """Raise AssertionError unless every job runs once, without overlap, after free_at."""
+        """Raise AssertionError unless every job runs once, on a node, no earlier than the
+        node's ``free_at`` and never while another job of that node runs (the stated
+        floating-point times, compared exactly)."""
         inst = self.instance
         assert self.node_of.shape == (inst.n,) and self.start.shape == (inst.n,)
         assert ((self.node_of >= 0) & (self.node_of < inst.m)).all()
-        free = np.array([nd.free_at for nd in inst.nodes])
-        assert (self.start >= free[self.node_of] - 1e-9).all()
+        assert (self.start >= self._free[self.node_of]).all(), "a job starts before free_at"
         order = np.lexsort((self.start, self.node_of))
         same = self.node_of[order][1:] == self.node_of[order][:-1]
         gaps = self.start[order][1:] - self.end[order][:-1]
-        assert (gaps[same] >= -1e-6 * max(1.0, self.makespan)).all(), "jobs overlap on a node"
+        assert (gaps[same] >= 0).all(), "jobs overlap on a node"
 
     def to_assignment(self) -> list[dict[str, Any]]:
         """Per node, in node order: ``{node, load, jobs: [{id, start, end}, ...]}``."""
@@ -149,6 +231,14 @@ class Certificate:
     source: str
     bounds: dict[str, float]
     evidence: dict[str, Any] = field(default_factory=dict)
+    #: the proven bound in exact arithmetic when it is not a float itself (a speed of 3 or
+    #: 1.5 divides work into thirds); ``value`` is it rounded down
+    exact: Fraction | None = None
+
+    @property
+    def exact_value(self) -> Fraction:
+        """The proven bound, exactly: every flag is decided on this."""
+        return self.exact if self.exact is not None else Fraction(self.value)
 
 
 @dataclass(frozen=True, eq=False)
@@ -168,38 +258,46 @@ class PlanResult:
             raise ValueError(f"stop_reason {self.stop_reason!r} not understood")
         if self.solve_seconds < 0:
             raise ValueError("negative solve time not understood")
-        if self.certificate.value > self.makespan * (1 + EQUAL_RTOL) + 1e-9:
+        if self.certificate.exact_value > self.schedule.makespan_exact:
             raise ValueError("lower bound above the makespan: a bound is wrong")
 
-    @property
+    @cached_property
     def makespan(self) -> float:
-        return self.schedule.makespan
+        """The plan's makespan: its exact value, rounded to the nearest float."""
+        return float(self.schedule.makespan_exact)
 
     @property
     def lower_bound(self) -> float:
-        return min(self.certificate.value, self.makespan)
+        """The best proven bound: never above the optimum, in exact arithmetic."""
+        return self.certificate.value
 
     @property
     def gap(self) -> float:
-        """(makespan - lower_bound) / lower_bound; 0 when they are equal."""
-        lb, ms = self.lower_bound, self.makespan
+        """(makespan - lower_bound) / lower_bound in exact arithmetic, then rounded; 0
+        exactly when the plan is proven optimal, and never 0 otherwise."""
         if self.proven_optimal:
             return 0.0
-        return (ms - lb) / lb if lb > 0 else float("inf")
+        lb = self.certificate.exact_value
+        if lb <= 0:
+            return float("inf")
+        g = (self.schedule.makespan_exact - lb) / lb
+        return max(float(g), math.ulp(0.0))
 
     @property
     def proven_optimal(self) -> bool:
-        return self.makespan - self.certificate.value <= EQUAL_RTOL * max(1.0, self.makespan)
+        """The proven bound equals the plan's makespan exactly (no tolerance)."""
+        return self.certificate.exact_value >= self.schedule.makespan_exact
 
     def deadline_dict(self) -> dict[str, Any] | None:
         d = self.schedule.instance.deadline
         if d is None:
             return None
+        ms = self.schedule.makespan_exact
         return {
             "deadline": d,
-            "met": self.makespan <= d,
-            "slack": d - self.makespan,
-            "provably_unreachable": self.lower_bound > d,
+            "met": ms <= Fraction(d),
+            "slack": float(Fraction(d) - ms),
+            "provably_unreachable": self.certificate.exact_value > Fraction(d),
         }
 
     def to_dict(self, *, with_assignment: bool = True) -> dict[str, Any]:

@@ -22,13 +22,20 @@ measured in ticks of ``resolution`` seconds of a speed-1 node; a node can do
 * packings found by the perfect packing, local and exact searches use every job
   *rounded up*: their real work is at most their tick sum, at most C, so they fit in
   real seconds too;
-* every plan returned is checked again on the real durations with the arithmetic of
-  :class:`workers.planning.result.Schedule` (``start + duration / speed``), so its
-  makespan is at most the deadline as the plan itself reports it.
+* every plan returned is checked again on the real durations in exact arithmetic: each
+  node's work ``sum(duration) / speed`` is at most the deadline as exact rationals, and
+  its floating-point times (``start + duration / speed``, back to back, as
+  :class:`workers.planning.result.Schedule` states them) end by the deadline too. A plan
+  built in floating point that meets the deadline only up to round-off is repaired
+  (a few jobs moved, a node added if need be) before its node count is claimed.
+
+Ticks are int64 and exact as floats only up to ``rational.MAX_TICKS``: a capacity or a
+total work past it is refused (``/resolution``), naming the finest resolution that works.
 
 Cost model (stated in every result as ``cost_model``): every node of the farm is rented
 from 0 until the makespan, billed per started unit of the granularity (second, minute or
-hour): ``nodes * ceil(makespan / unit) * unit / 3600 * node_hour_cost``.
+hour): ``nodes * ceil(makespan / unit) * unit / 3600 * node_hour_cost`` (the ceiling
+taken exactly).
 """
 
 from __future__ import annotations
@@ -59,6 +66,7 @@ from .errors import Infeasible, InvalidInstance, Issue
 from .kernels import least_loaded
 from .model import Instance, Node
 from .perfect import perfect_fill
+from .rational import MAX_TICKS, array_sum, ceil_div, decimal_up, down, ticks, up
 from .result import Schedule
 
 #: billing granularities and their unit in seconds
@@ -253,38 +261,53 @@ def cost_of(
     if node_hour_cost is None:
         return None
     unit = BILLING[billing]
-    billed = math.ceil(makespan / unit - 1e-9) * unit
+    billed = ceil_div(Fraction(makespan), Fraction(unit)) * unit
     return nodes * billed / 3600.0 * node_hour_cost
 
 
 # -- ticks -----------------------------------------------------------------------------
-def _is_power_of_two(x: float) -> bool:
-    m, _ = math.frexp(x)
-    return m == 0.5
-
-
-def work_ticks(durations: F64, resolution: float) -> tuple[I64, I64]:
-    """Each duration in whole ticks of ``resolution``: (rounded down, rounded up), exactly.
-
-    Division by a power of two is exact in floating point; otherwise a quotient within a
-    few units in the last place of a whole number is settled with exact fractions.
-    """
-    x = durations / resolution
-    lo = np.floor(x).astype(np.int64)
-    hi = np.ceil(x).astype(np.int64)
-    if not _is_power_of_two(resolution):
-        near = np.flatnonzero(np.abs(x - np.rint(x)) <= 8 * np.spacing(np.maximum(x, 1.0)))
-        r = Fraction(resolution)
-        for j in near.tolist():
-            exact = Fraction(float(durations[j])) / r
-            lo[j] = math.floor(exact)
-            hi[j] = math.ceil(exact)
-    return lo, hi
+#: each duration in whole ticks: (rounded down, rounded up), exactly (kept under this name
+#: for its importers; the one algorithm is rational.ticks)
+work_ticks = ticks
 
 
 def capacity_ticks(deadline: float, speed: float, resolution: float) -> int:
     """floor(deadline * speed / resolution), exactly."""
     return math.floor(Fraction(deadline) * Fraction(speed) / Fraction(resolution))
+
+
+def _tick_limit(durations: F64, limit: Fraction, resolution: float) -> list[Issue]:
+    """Refuse a capacity or a total work past ``MAX_TICKS`` ticks of ``resolution``.
+
+    Every job is already known to fit the node (at most ``limit`` seconds of speed-1
+    work), so each job's ticks are at most the capacity's plus one. Names the finest
+    resolution that works: with ``W`` the larger of the capacity and the total work in
+    seconds and ``n`` jobs, any ``r >= W / (MAX_TICKS - n)`` keeps both below the limit
+    (ceilings add at most one tick per job), and none below ``W / MAX_TICKS`` does.
+    """
+    tick = Fraction(resolution)
+    cap = math.floor(limit / tick)
+    total = array_sum(durations)
+    n = int(durations.size)
+    if cap <= MAX_TICKS and total / tick + n <= MAX_TICKS:
+        return []
+    if cap <= MAX_TICKS:
+        hi = ticks(durations, resolution)[1]  # each fits int64: at most cap + 1
+        work = sum(hi.tolist())
+        if work <= MAX_TICKS:
+            return []
+    else:
+        work = math.ceil(total / tick)
+    finest = max(limit, total) / max(1, MAX_TICKS - n)
+    shown = decimal_up(finest)
+    return [
+        Issue(
+            "/resolution",
+            f"too fine: at {resolution:g} s a node holds {cap} ticks and the jobs need "
+            f"{work}, above the limit of 2**53 ({MAX_TICKS}) ticks; use a resolution of at "
+            f"least {shown} s",
+        )
+    ]
 
 
 # -- the core ---------------------------------------------------------------------------
@@ -487,7 +510,14 @@ def _check_feasible(base: Instance, node: Node, times: F64, deadline: float) -> 
                 jobs=names,
                 issues=[Issue(f"/jobs/{j}/requires", "not provided by the node") for j in bad[:20]],
             )
-    bad_idx = np.flatnonzero(~(times <= deadline)).tolist()
+    # exactly: duration > deadline * speed; floats settle all but the jobs within a few
+    # units in the last place of the deadline
+    over = times > deadline
+    near = np.flatnonzero(np.abs(times - deadline) <= 4 * np.spacing(deadline))
+    limit = Fraction(deadline) * Fraction(node.speed)
+    for j in near.tolist():
+        over[j] = Fraction(float(base.durations[j])) > limit
+    bad_idx = np.flatnonzero(over).tolist()
     if bad_idx:
         names = [base.job_ids[j] for j in bad_idx]
         raise Infeasible(
@@ -504,15 +534,18 @@ def _check_feasible(base: Instance, node: Node, times: F64, deadline: float) -> 
 
 
 def _lower_bound(
-    q_lo: I64, cap: int, total_seconds: float, speed: float, deadline: float
+    q_lo: I64, cap: int, total: Fraction, limit: Fraction
 ) -> tuple[int, str, dict[str, int], dict[str, Any]]:
-    """Every node-count lower bound, the best one and its name."""
+    """Every node-count lower bound, the best one and its name.
+
+    ``total`` is the exact work (speed-1 seconds) and ``limit`` the exact work a node can
+    do by the deadline (deadline times speed).
+    """
     bounds: dict[str, int] = {}
     ticks_total = int(q_lo.sum())
     work = -(-ticks_total // cap) if cap > 0 else (0 if ticks_total == 0 else q_lo.size)
-    # the same bound on the real work, when float round-off cannot matter
-    ratio = total_seconds / (deadline * speed)
-    work = max(work, math.ceil(ratio - 1e-9 * max(1.0, ratio)))
+    # the same bound on the real work, exactly
+    work = max(work, ceil_div(total, limit))
     bounds["total_work"] = max(1, work) if q_lo.size else 0
     bp = bounds_mod.BinPackingBound(q_lo)
     bins, alpha, which = bp.bins_needed(cap)
@@ -528,8 +561,7 @@ def _search(
     q_lo: I64,
     q_hi: I64,
     cap: int,
-    times: F64,
-    deadline: float,
+    fit: _Fit,
     budget: Budget,
     report: Callable[[], None],
 ) -> dict[str, Any]:
@@ -572,13 +604,13 @@ def _search(
             info["local_search_calls"] += 1
             current = new
             if used < state.upper:
-                start = _starts(new, times, used)
-                if not _loads_ok(new, start, times, deadline, used):  # pragma: no cover
+                plan, used, start = fit.settle(new, int(used))
+                if used >= state.upper:  # pragma: no cover - ticks rounded up fit exactly
                     local_ok = False
                     break
                 info["local_search_saved"] += state.upper - used
-                state.upper, state.method = int(used), "local_search"
-                state.bin_of, state.start = new, start
+                state.upper, state.method = used, "local_search"
+                state.bin_of, state.start = plan, start
                 report()
         if not exact_ok or state.lower >= state.upper or budget.expired():
             continue
@@ -588,12 +620,12 @@ def _search(
         info["nodes"] += used
         info["calls"] += 1
         if status == FOUND:
-            bin_of = np.zeros(times.size, dtype=np.int32)  # zero-length jobs go to node 0
+            bin_of = np.zeros(q_hi.size, dtype=np.int32)  # zero-length jobs go to node 0
             bin_of[hi_order] = assign
-            start = _starts(bin_of, times, k)
-            if _loads_ok(bin_of, start, times, deadline, k):
-                state.upper, state.method = k, "search"
-                state.bin_of, state.start = bin_of, start
+            plan, used, start = fit.settle(bin_of, k)
+            if used < state.upper:
+                state.upper, state.method = used, "search"
+                state.bin_of, state.start = plan, start
                 report()
             exact_ok = False
             continue
@@ -634,11 +666,123 @@ def _starts(
     return bin_starts(order.astype(np.int64), bin_of.astype(np.int32), times, m)
 
 
-def _loads_ok(
-    bin_of: npt.NDArray[np.int32], start: F64, times: F64, deadline: float, m: int
-) -> bool:
-    end = start + times
-    return bool(bin_of.size == 0 or (end.max() <= deadline and bin_of.max() < m))
+class _Fit:
+    """Whether a plan meets the deadline, exactly, and repairs for those that do not.
+
+    A node meets the deadline when its work ``sum(duration)`` is at most
+    ``deadline * speed`` in exact arithmetic and its floating-point times, back to back
+    in the order of ``order``, end by the deadline. The exact test is settled cheaply
+    where it can be: by whole ticks rounded up (at most the capacity), or by the float
+    sum with room for its round-off; only the nodes left in doubt are summed exactly.
+    """
+
+    def __init__(
+        self,
+        durations: F64,
+        times: F64,
+        speed: float,
+        deadline: float,
+        q_hi: I64,
+        cap: int,
+        order: npt.NDArray[np.intp],
+    ) -> None:
+        self.d, self.times, self.deadline = durations, times, deadline
+        self.limit = Fraction(deadline) * Fraction(speed)
+        self.limit_down, self.limit_up = down(self.limit), up(self.limit)
+        self.q_hi = q_hi.astype(np.float64)  # whole numbers below 2**53: sums stay exact
+        self.cap, self.order = cap, order
+        self.rank = np.empty(order.size, dtype=np.int64)
+        self.rank[order] = np.arange(order.size)
+
+    def work_fits(self, bin_of: npt.NDArray[np.int32], m: int) -> npt.NDArray[np.bool_]:
+        """Per node: its exact work is at most deadline * speed."""
+        ok = np.bincount(bin_of, weights=self.q_hi, minlength=m)[:m] <= self.cap
+        if ok.all():
+            return ok
+        load = np.bincount(bin_of, weights=self.d, minlength=m)[:m]
+        count = np.bincount(bin_of, minlength=m)[:m]
+        # a running sum of c non-negative terms is within (c - 1) units in the last
+        # place of its exact value (relative); allow eight times that, and do not trust
+        # sums small enough to have underflowed
+        err = (count + 4) * 2.0**-50
+        trusted = load > 2.0**-960
+        ok |= (count == 0) | (trusted & (load * (1.0 + err) <= self.limit_down))
+        over = trusted & (load * (1.0 - err) > self.limit_up)
+        doubt = np.flatnonzero(~ok & ~over)
+        if doubt.size:
+            idx = np.argsort(bin_of, kind="stable")
+            cuts = np.searchsorted(bin_of[idx], np.arange(m + 1))
+            for k in doubt.tolist():
+                ok[k] = array_sum(self.d[idx[cuts[k] : cuts[k + 1]]]) <= self.limit
+        return ok
+
+    def _node_ok(self, jobs: list[int]) -> bool:
+        """One node running ``jobs`` meets the deadline (exact work and float times)."""
+        if array_sum(self.d[jobs]) > self.limit:
+            return False
+        clock = 0.0
+        for j in sorted(jobs, key=self.rank.__getitem__):
+            clock = clock + float(self.times[j])
+        return clock <= self.deadline
+
+    def settle(self, bin_of: npt.NDArray[np.int32], m: int) -> tuple[Any, int, F64]:
+        """A plan that meets the deadline exactly, from ``bin_of`` on ``m`` nodes: the same
+        plan when it does; else the nodes that miss give up their shortest jobs until they
+        meet it, and those go, longest first, to the first node they fit (a new node when
+        none). Returns (node of each job, nodes used, starts)."""
+        start = _starts(bin_of, self.times, m, self.order)
+        late = np.zeros(m, dtype=np.bool_)
+        late[bin_of[start + self.times > self.deadline]] = True
+        bad = ~self.work_fits(bin_of, m) | late
+        if not bad.any():
+            return bin_of, m, start
+        bin_of = bin_of.copy()
+        idx = np.argsort(bin_of, kind="stable")
+        cuts = np.searchsorted(bin_of[idx], np.arange(m + 1))
+        members: dict[int, list[int]] = {}
+
+        def jobs_of(k: int) -> list[int]:
+            if k not in members:
+                members[k] = idx[cuts[k] : cuts[k + 1]].tolist()
+            return members[k]
+
+        moved: list[int] = []
+        for k in np.flatnonzero(bad).tolist():
+            keep = sorted(jobs_of(k), key=lambda j: (self.d[j], j))  # shortest first
+            while keep and not self._node_ok(keep):
+                gone = next((i for i, j in enumerate(keep) if self.d[j] > 0), 0)
+                moved.append(keep.pop(gone))
+            members[k] = keep
+        load = np.bincount(bin_of, weights=self.times, minlength=m)[:m].tolist()
+        for j in moved:
+            load[bin_of[j]] -= float(self.times[j])
+        for j in sorted(moved, key=lambda j: (-self.d[j], j)):
+            t = float(self.times[j])
+            for k in range(len(load)):
+                if load[k] + t <= self.deadline * (1.0 + 2.0**-40) and self._node_ok(
+                    [*jobs_of(k), j]
+                ):
+                    break
+            else:
+                k = len(load)
+                load.append(0.0)
+                members[k] = []
+            members[k].append(j)
+            load[k] += t
+            bin_of[j] = k
+        m = len(load)
+        start = _starts(bin_of, self.times, m, self.order)
+        if not self.meets(bin_of, m, start):  # pragma: no cover - each node was checked
+            raise AssertionError("a repaired sizing plan misses the deadline")
+        return bin_of, m, start
+
+    def meets(self, bin_of: npt.NDArray[np.int32], m: int, start: F64) -> bool:
+        """Every node of the plan meets the deadline, exactly and in its float times."""
+        if bin_of.size == 0:
+            return True
+        if int(bin_of.max()) >= m or (start + self.times).max() > self.deadline:
+            return False
+        return bool(self.work_fits(bin_of, m).all())
 
 
 def _size(
@@ -658,24 +802,27 @@ def _size(
     speed = node.speed
     times = base.durations / speed  # what Schedule computes for every job on this node
     _check_feasible(base, node, times, deadline)
+    limit = Fraction(deadline) * Fraction(speed)  # a node's work by the deadline, exactly
+    too_fine = _tick_limit(base.durations, limit, base.resolution)
+    if too_fine:
+        raise InvalidInstance("the resolution is too fine for these times", too_fine)
     order = np.argsort(-times, kind="stable")
     sizes = times[order]
-
-    def plan_from(sorted_bins: npt.NDArray[np.int32], sorted_start: F64) -> tuple[Any, F64]:
-        bin_of = np.empty(base.n, dtype=np.int32)
-        start = np.empty(base.n, dtype=np.float64)
-        bin_of[order] = sorted_bins
-        start[order] = sorted_start
-        return bin_of, start
-
-    b_ffd, s_ffd, n_ffd = first_fit_decreasing(sizes, deadline)
-    bin_of, start = plan_from(b_ffd, s_ffd)
-    q_lo, q_hi = work_ticks(base.durations, base.resolution)
+    q_lo, q_hi = ticks(base.durations, base.resolution)
     cap = capacity_ticks(deadline, speed, base.resolution)
-    lower, source, bounds, evidence = _lower_bound(q_lo, cap, base.total, speed, deadline)
-    lower = min(lower, int(n_ffd))  # float round-off on a bin at exactly the deadline
-    state = _State(lower, source, int(n_ffd), "ffd", bin_of, start)
-    upper_bounds = {"ffd": int(n_ffd)}
+    fit = _Fit(base.durations, times, speed, deadline, q_hi, cap, order)
+
+    def plan_from(sorted_bins: npt.NDArray[np.int32], used: int) -> tuple[Any, int, F64]:
+        """A float packing (bins in sorted order) as a plan that meets the deadline."""
+        bin_of = np.empty(base.n, dtype=np.int32)
+        bin_of[order] = sorted_bins
+        return fit.settle(bin_of, used)
+
+    b_ffd, _, n_ffd = first_fit_decreasing(sizes, deadline)
+    bin_of, n_ffd, start = plan_from(b_ffd, int(n_ffd))
+    lower, source, bounds, evidence = _lower_bound(q_lo, cap, array_sum(base.durations), limit)
+    state = _State(lower, source, n_ffd, "ffd", bin_of, start)
+    upper_bounds = {"ffd": n_ffd}
     first_answer = budget.elapsed()
 
     def report() -> None:
@@ -692,11 +839,13 @@ def _size(
         )
     cancelled = ran_out = False
     if state.lower < state.upper and base.n <= BFD_MAX_JOBS:
-        b_bfd, s_bfd, n_bfd = best_fit_decreasing(sizes, deadline)
+        b_bfd, _, n_bfd = best_fit_decreasing(sizes, deadline)
+        if n_bfd < state.upper:
+            bin_of, n_bfd, start = plan_from(b_bfd, int(n_bfd))
         upper_bounds["bfd"] = int(n_bfd)
         if n_bfd < state.upper:
             state.upper, state.method = int(n_bfd), "bfd"
-            state.bin_of, state.start = plan_from(b_bfd, s_bfd)
+            state.bin_of, state.start = bin_of, start
             report()
     if state.lower < state.upper and time_budget > 0 and base.n > FILL_MIN_JOBS:
         # a packing at the lower bound itself, when the bound is tight (issue 5)
@@ -714,10 +863,9 @@ def _size(
             upper_bounds["perfect_fill"] = fill.bins
             evidence["perfect_fill"] = {"attempts": fill.attempts, "moves": fill.moves}
             if fill.bins < state.upper:
-                bin_of = fill.bin_of.astype(np.int32)
-                start = _starts(bin_of, times, fill.bins, order)
-                if _loads_ok(bin_of, start, times, deadline, fill.bins):
-                    state.upper, state.method = fill.bins, "perfect_fill"
+                bin_of, used, start = fit.settle(fill.bin_of.astype(np.int32), fill.bins)
+                if used < state.upper:
+                    state.upper, state.method = used, "perfect_fill"
                     state.bin_of, state.start = bin_of, start
                     report()
     if state.lower < state.upper and time_budget > 0 and not cancelled:
@@ -725,15 +873,17 @@ def _size(
         scale = min(1.0, budget.remaining())  # a second's worth of work at most
         nodes_per_bin = min(MBS_NODES, max(20, int(scale * MBS_WORK) // bins))
         pair_steps = max(200, min(base.n, int(scale * MBS_PAIR_WORK) // bins))
-        b_mbs, s_mbs, n_mbs = min_bin_slack(sizes, deadline, nodes_per_bin, pair_steps)
+        b_mbs, _, n_mbs = min_bin_slack(sizes, deadline, nodes_per_bin, pair_steps)
+        if 0 < n_mbs < state.upper:
+            bin_of, n_mbs, start = plan_from(b_mbs, int(n_mbs))
         upper_bounds["mbs"] = int(n_mbs)
         if 0 < n_mbs < state.upper:
             state.upper, state.method = int(n_mbs), "mbs"
-            state.bin_of, state.start = plan_from(b_mbs, s_mbs)
+            state.bin_of, state.start = bin_of, start
             report()
     if state.lower < state.upper and time_budget > 0 and not cancelled:
         search_budget = budget.child(SEARCH_SHARE)  # the rest is for the curve
-        info = _search(state, q_lo, q_hi, cap, times, deadline, search_budget, report)
+        info = _search(state, q_lo, q_hi, cap, fit, search_budget, report)
         evidence["search"] = info
         if state.source == "search":
             bounds["search"] = state.lower
@@ -759,7 +909,11 @@ def _size(
     # the same node count, balanced: longest first often ends earlier than the packing
     plan_method = state.method
     lpt_bins, lpt_start = least_loaded(order, times, state.upper)
-    if base.n and (lpt_start + times).max() < (state.start + times).max():
+    if (
+        base.n
+        and (lpt_start + times).max() < (state.start + times).max()
+        and fit.meets(lpt_bins, state.upper, lpt_start)
+    ):
         state.bin_of, state.start, plan_method = lpt_bins, lpt_start, "longest_first"
     width = max(3, len(str(state.upper)))  # ids as identical_nodes() names them
     nodes = tuple(Node(f"node-{k + 1:0{width}d}", speed, node.provides) for k in range(state.upper))
@@ -774,16 +928,14 @@ def _size(
         duration_p90=base.duration_p90,
     )
     schedule = Schedule(inst, state.bin_of, state.start)
-    if schedule.makespan > deadline:  # pragma: no cover - the constructions guarantee it
+    if not fit.meets(state.bin_of, state.upper, state.start):  # pragma: no cover
         raise AssertionError("a sizing plan misses the deadline")
     curve = _curve(
-        base.job_ids,
-        times,
-        order,
+        base,
+        fit,
         state,
         schedule.makespan,
-        deadline,
-        base.resolution,
+        speed,
         curve_nodes,
         node_hour_cost,
         billing,
@@ -809,13 +961,11 @@ def _size(
 
 
 def _curve(
-    job_ids: tuple[str, ...],
-    times: F64,
-    order: npt.NDArray[np.intp],
+    base: Instance,
+    fit: _Fit,
     state: _State,
     plan_makespan: float,
-    deadline: float,
-    resolution: float,
+    speed: float,
     curve_nodes: Sequence[int],
     node_hour_cost: float | None,
     billing: str,
@@ -824,38 +974,47 @@ def _curve(
 
     Each row's makespan is the best of longest-first on that many nodes, the sizing plan
     (for ``nodes_needed`` and above) and the row before it: a plan for k nodes is also a
-    plan for k + 1 (one node stays idle).
+    plan for k + 1 (one node stays idle). ``meets_deadline`` says one of those plans
+    meets the deadline exactly. The lower bound is the identical-node bound on the
+    speed-1 durations, divided by the speed exactly and rounded down.
     """
+    times, order = fit.times, fit.order
     n = times.size
     counts = set(range(max(1, state.lower - CURVE_BELOW), state.lower + CURVE_ABOVE + 1))
     counts.update(range(max(1, state.upper - CURVE_BELOW), state.upper + CURVE_ABOVE + 1))
     counts.update(int(k) for k in curve_nodes)
     plain = Node("n")  # lower_bounds only counts the nodes
     rows: list[CurveRow] = []
-    best = math.inf
+    best, best_meets = math.inf, False
     for k in sorted(counts):
         if k >= n:
-            own = float(times.max()) if n else 0.0  # one job per node
+            # one job per node: each fits alone (checked), and its float time too
+            own, own_meets = (float(times.max()) if n else 0.0), True
         else:
-            _, start = least_loaded(order, times, k)
+            bins, start = least_loaded(order, times, k)
             own = float((start + times).max())
+            own_meets = fit.meets(bins, k, start)
         if k >= state.upper:
-            own = min(own, plan_makespan)
-        best = min(best, own)
+            own, own_meets = min(own, plan_makespan), True
+        best, best_meets = min(best, own), best_meets or own_meets
         inst_k = Instance(
-            job_ids=job_ids, durations=times, nodes=(plain,) * k, resolution=resolution
+            job_ids=base.job_ids,
+            durations=base.durations,
+            nodes=(plain,) * k,
+            resolution=base.resolution,
         )
         # the lifted bin-packing bound (given an upper end) costs O(n) per probe: only for
         # batches where it can still add something to the mean load
-        cert = bounds_mod.lower_bounds(inst_k, upper=best if n <= CURVE_LIFT_MAX_JOBS else None)
-        lb = min(cert.value, best)
+        upper = up(Fraction(best) * Fraction(speed)) if n <= CURVE_LIFT_MAX_JOBS else None
+        cert = bounds_mod.lower_bounds(inst_k, upper=upper)
+        lb = min(down(Fraction(cert.value) / Fraction(speed)), best)
         rows.append(
             CurveRow(
                 nodes=k,
                 makespan=best,
                 lower_bound=lb,
                 cost=cost_of(k, best, node_hour_cost, billing),
-                meets_deadline=best <= deadline,
+                meets_deadline=best_meets,
                 provably_misses=k < state.lower,
             )
         )

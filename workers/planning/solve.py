@@ -2,30 +2,20 @@
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from collections.abc import Callable
-from dataclasses import dataclass
 from typing import Any
 
 from . import bounds, greedy
 from .budget import Budget
 from .errors import InvalidInstance, Issue
 from .model import Instance
+from .progress import Progress as Progress
+from .progress import ProgressHook
 from .result import PlanResult, Schedule
 
 METHODS = ("list", "longest_first", "exact", "auto")
-
-
-@dataclass(frozen=True, slots=True)
-class Progress:
-    """What a long solve reports while it runs (the worker publishes it)."""
-
-    elapsed: float
-    best_makespan: float
-    best_lower_bound: float
-
-
-ProgressHook = Callable[[Progress], None]
 
 
 def solve(
@@ -49,10 +39,22 @@ def solve(
     if not (time_budget >= 0):
         raise InvalidInstance("bad time budget", [Issue("/time_budget", "must be >= 0")])
     budget = Budget(time_budget, should_stop)
-    if not inst.identical:
-        from . import farm  # heterogeneous farms: speeds, tags, nodes still busy
+    if inst.identical:
+        return _solve_identical(inst, method, budget, progress)
+    from . import farm  # heterogeneous farms: speeds, tags, nodes still busy
+    from .farm_bounds import eligibility
 
-        return farm.solve_farm(inst, method, budget, progress)
+    elig = eligibility(inst)  # raises Infeasible naming the jobs no node may run
+    if farm.identical_in_effect(inst, elig):
+        plain = dataclasses.replace(inst, requires=None)
+        return farm.as_farm_result(inst, _solve_identical(plain, method, budget, progress))
+    return farm.solve_farm(inst, elig, method, budget, progress)
+
+
+def _solve_identical(
+    inst: Instance, method: str, budget: Budget, progress: ProgressHook | None
+) -> PlanResult:
+    """Identical nodes: the greedy rules, or the exact search of :mod:`.exact`."""
     if method in ("exact", "auto"):
         from .exact import solve_exact
 

@@ -51,6 +51,7 @@ from __future__ import annotations
 
 import math
 import time
+from fractions import Fraction
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -60,12 +61,13 @@ from .. import bounds, greedy
 from ..budget import Budget
 from ..errors import InvalidInstance, Issue
 from ..model import Instance
-from ..result import EQUAL_RTOL, Certificate, PlanResult, Schedule
+from ..rational import ticks_to_seconds_down
+from ..result import Certificate, PlanResult, Schedule
 from . import constructions, decision, lpbound
 from .improve import descend, neighbourhood_search, pair_balance
 
 if TYPE_CHECKING:
-    from ..solve import ProgressHook
+    from ..progress import ProgressHook
 
 I64 = npt.NDArray[np.int64]
 I32 = npt.NDArray[np.int32]
@@ -120,18 +122,7 @@ DESCENT_MAX_JOBS = 3_000
 
 def schedule_from(inst: Instance, node_of: npt.NDArray[np.integer[Any]]) -> Schedule:
     """A schedule of ``inst`` with the given node per job, each node running longest first."""
-    d = inst.durations
-    nodes: I32 = np.asarray(node_of, dtype=np.int32)
-    order = np.lexsort((-d, nodes))
-    ends = np.cumsum(d[order])
-    starts_sorted = ends - d[order]
-    first = np.searchsorted(nodes[order], np.arange(inst.m))
-    offset = np.zeros(inst.m)
-    has = first < inst.n
-    offset[has] = starts_sorted[first[has]]
-    start = np.empty(inst.n)
-    start[order] = starts_sorted - offset[nodes[order]]
-    return Schedule(inst, nodes, np.maximum(start, 0.0))
+    return Schedule.sequenced(inst, node_of)
 
 
 class _Reporter:
@@ -146,7 +137,7 @@ class _Reporter:
     def __call__(self, makespan: float, bound: float) -> None:
         if self.hook is None:
             return
-        from ..solve import Progress
+        from ..progress import Progress
 
         now = self.budget.elapsed()
         improved = self.last is None or makespan < self.last[0] or bound > self.last[1]
@@ -192,7 +183,7 @@ class _Incumbent:
                 node_of[j] = k
                 load[k] += inst.durations[j]
         sched = schedule_from(inst, node_of)
-        if sched.makespan < self.schedule.makespan * (1 - 1e-12):
+        if sched.makespan_exact < self.schedule.makespan_exact:
             self.schedule = sched
             self.source = source
             return True
@@ -222,7 +213,7 @@ def solve_exact(
     cert0 = bounds.lower_bounds(inst, upper=lpt.makespan)
     report = _Reporter(progress, budget)
     extras: dict[str, Any] = {}
-    if lpt.makespan - cert0.value <= EQUAL_RTOL * max(1.0, lpt.makespan):
+    if Fraction(cert0.value) >= lpt.makespan_exact:  # exact: no tolerance
         if auto:
             extras = {
                 "method_requested": "auto",
@@ -272,7 +263,7 @@ def solve_exact(
     }
     if npos > 0 and lb_ticks < inc.ub_ticks and not budget.expired():
         _constructions(inst, q, inc, budget, lb_ticks)
-        report(inc.schedule.makespan, max(cert0.value, lb_ticks * res))
+        report(inc.schedule.makespan, max(cert0.value, ticks_to_seconds_down(lb_ticks, res)))
         if lb_ticks < inc.ub_ticks and q[0] and inc.ub_ticks < decision.MAX_TICKS:
             lb_ticks = _search(q, m, lb_ticks, inc, budget, report, res, cert0.value, stats)
 
@@ -280,21 +271,21 @@ def solve_exact(
     cert_bounds = dict(cert0.bounds)
     evidence = dict(cert0.evidence)
     value, source = cert0.value, cert0.source
-    search_bound = lb_ticks * res
-    if stats["refuted_capacity_ticks"] is not None and search_bound > value * (1 + 1e-12):
+    search_bound = ticks_to_seconds_down(lb_ticks, res)
+    if stats["refuted_capacity_ticks"] is not None and search_bound > value:
         cert_bounds["search"] = search_bound
         value, source = search_bound, "search"
         rc = int(stats["refuted_capacity_ticks"])
         evidence["search"] = {
             "refuted_capacity_ticks": rc,
-            "refuted_capacity": rc * res,
+            "refuted_capacity": ticks_to_seconds_down(rc, res),
             "nodes": int(stats["nodes"]),
         }
         if stats.get("lp"):
             evidence["search"]["refuted_by"] = stats["lp"]
     sched = inc.schedule
     cert = Certificate(value=value, source=source, bounds=cert_bounds, evidence=evidence)
-    proven = sched.makespan - value <= EQUAL_RTOL * max(1.0, sched.makespan)
+    proven = Fraction(value) >= sched.makespan_exact
     if proven:
         stop = "proved_optimal"
     elif budget.cancelled:
@@ -374,7 +365,7 @@ def _search(
             q, best, m, lb_ticks, share * budget.remaining(), rng, should_stop=budget.expired
         ):
             inc.consider(best, "neighbourhood")
-            report(inc.schedule.makespan, max(lb0, lb_ticks * res))
+            report(inc.schedule.makespan, max(lb0, ticks_to_seconds_down(lb_ticks, res)))
             for c in [c for c in open_searches if c >= inc.ub_ticks]:
                 del open_searches[c]
 
@@ -394,7 +385,7 @@ def _search(
             stats["lp"] = lp.evidence
             for c in [c for c in open_searches if c < lb_ticks]:
                 del open_searches[c]
-            report(inc.schedule.makespan, max(lb0, lb_ticks * res))
+            report(inc.schedule.makespan, max(lb0, ticks_to_seconds_down(lb_ticks, res)))
         if lb_ticks >= inc.ub_ticks:
             break
         # the LP dive at the lower bound, once the LP bound cannot raise it: a packing there
@@ -411,11 +402,11 @@ def _search(
             lb_ticks = lp.dive_refuted + 1
             stats["refuted_capacity_ticks"] = lb_ticks - 1
             stats["lp"] = lp.evidence
-            report(inc.schedule.makespan, max(lb0, lb_ticks * res))
+            report(inc.schedule.makespan, max(lb0, ticks_to_seconds_down(lb_ticks, res)))
         if packing is not None and inc.consider(packing, "lp_dive"):
             for c in [c for c in open_searches if c >= inc.ub_ticks]:
                 del open_searches[c]
-            report(inc.schedule.makespan, max(lb0, lb_ticks * res))
+            report(inc.schedule.makespan, max(lb0, ticks_to_seconds_down(lb_ticks, res)))
         if lb_ticks >= inc.ub_ticks:
             break
         lns(LNS_SHARE)
@@ -448,7 +439,7 @@ def _search(
                     slice_nodes = int(min(max(want, MIN_SLICE_NODES), 2 * slice_nodes, 1e6))
                 if budget.expired():
                     break
-                report(inc.schedule.makespan, max(lb0, lb_ticks * res))
+                report(inc.schedule.makespan, max(lb0, ticks_to_seconds_down(lb_ticks, res)))
             stats["nodes"] += s.nodes - before
             if status == decision.FEASIBLE:
                 inc.consider(s.packing(), "search")
@@ -471,7 +462,7 @@ def _search(
                     hi = cap - 1  # undecided just below the incumbent: look lower
                 else:
                     lo = cap + 1
-            report(inc.schedule.makespan, max(lb0, lb_ticks * res))
+            report(inc.schedule.makespan, max(lb0, ticks_to_seconds_down(lb_ticks, res)))
         allowance *= ALLOWANCE_GROWTH
     return lb_ticks
 

@@ -1,0 +1,36 @@
+"""One registry of the compiled kernels to load before a clock starts.
+
+A cold numba compile takes seconds and loading a cached one a good part of a second; a
+process that will time a solve (a worker, ``spanwright solve`` or ``size``, a test) calls
+one of these first so that the cost is not charged to the first budget.
+"""
+
+from __future__ import annotations
+
+
+def warm_up_sizing() -> None:
+    """Every kernel of deadline sizing: the packings and the exact fill."""
+    from . import binpacking, perfect
+
+    binpacking.warm_up()
+    perfect.warm_up()
+
+
+def warm_up_exact() -> None:
+    """Every kernel of the exact search for identical nodes, LP bound included."""
+    from .exact import warm_up
+
+    warm_up()
+
+
+def warm_up_all() -> None:
+    """Everything: the greedy rules, the farm rules, sizing and the exact search."""
+    from .model import Instance, Node
+    from .solve import solve
+
+    solve(Instance.build([3.0, 2.0, 2.0, 1.0], 2), "longest_first")
+    solve(Instance.build([3.0, 2.0, 2.0, 1.0], 2), "list")
+    farm = [Node("a", speed=2.0), Node("b", free_at=1.0)]
+    solve(Instance.build([3.0, 2.0, 2.0, 1.0] * 600, farm), "longest_first")
+    warm_up_sizing()
+    warm_up_exact()
