@@ -54,32 +54,28 @@ def solve_plan(
     progress: Callable[[Any], None],
     should_stop: Callable[[], bool],
 ) -> Outcome:
-    """``POST /v1/plans``: build the instance and solve it.
+    """``POST /v1/plans`` through the use-case the command line calls too.
 
     ``body`` is the request body, or the API's copy of it with the jobs in columns.
     """
-    from workers.planning import Instance, solve
+    from workers.planning import Instance, usecases
 
     if isinstance(body, payload.Columns):
         inst = Instance.from_columns(body.envelope, body.ids, body.durations, body.groups)
-        body = body.envelope  # everything but the jobs
+        options: Mapping[str, Any] = body.envelope  # everything but the jobs
     else:
         inst = Instance.from_request(body)
-    res = solve(inst, method, time_budget=time_budget, progress=progress, should_stop=should_stop)
-    result = res.to_dict(with_assignment=False)
-    extra: dict[str, Any] = {}
-    if inst.duration_p90 is not None or "spread" in body or "confidence_samples" in body:
-        from workers.planning.confidence import confidence_block
-
-        extra["confidence"] = confidence_block(
-            res.schedule,
-            spread=body.get("spread"),
-            samples=int(body.get("confidence_samples", 1000)),
-            seed=int(body.get("confidence_seed", 0)),
-            deadline=inst.deadline,
-        )
-    text = res.to_json(extra)
-    result.update(extra)
+        options = body
+    answer = usecases.plan(
+        inst,
+        options,
+        method=method,
+        time_budget=time_budget,
+        progress=progress,
+        should_stop=should_stop,
+    )
+    res = answer.result
+    result = answer.to_dict(with_assignment=False)
     dl = result.get("deadline")
     summary = {
         "makespan": res.makespan,
@@ -91,7 +87,7 @@ def solve_plan(
         "stop_reason": res.stop_reason,
         "deadline_met": None if dl is None else dl["met"],
     }
-    return Outcome(result, summary, res.stop_reason == "cancelled", text)
+    return Outcome(result, summary, res.stop_reason == "cancelled", answer.to_json())
 
 
 def size_farm(
@@ -102,24 +98,14 @@ def size_farm(
     progress: Callable[[Any], None],
     should_stop: Callable[[], bool],
 ) -> Outcome:
-    """``POST /v1/sizings``: the fewest nodes meeting the deadline.
+    """``POST /v1/sizings`` through the use-case the command line calls too."""
+    from workers.planning import usecases
 
-    With spread inputs (a job's ``duration_p90``, ``spread``, ``confidence_samples``) or a
-    target ``confidence``, the result also carries the ``confidence`` of the answer's plan
-    and, with the target, ``confidence_sizing`` (``confidence.sizing_confidence``); a
-    cancelled sizing skips the simulation.
-    """
-    from workers.planning.confidence import SpreadRequest, sizing_confidence
-    from workers.planning.sizing import size_from_request
-
-    asked = SpreadRequest.from_body(body)  # bad spread inputs fail before the search
-    res = size_from_request(
+    answer = usecases.size_body(
         body, time_budget=time_budget, progress=progress, should_stop=should_stop
     )
-    d = res.to_dict()
-    cancelled = d.get("stop_reason") == "cancelled"
-    if asked is not None and not cancelled:
-        d.update(sizing_confidence(res.schedule, asked))
+    d = answer.to_dict()
+    cancelled = answer.result.stop_reason == "cancelled"
     keys = ("nodes_needed", "nodes_lower_bound", "proven_optimal", "estimated_cost")
     return Outcome(d, {k: d.get(k) for k in keys}, cancelled)
 

@@ -30,3 +30,29 @@ def read_json(path: str) -> Any:
 
 def finite(x: float) -> float | None:
     return x if math.isfinite(x) else None
+
+
+def load_request(path: str, kind: str) -> dict[str, Any]:
+    """A request file read and checked exactly as the API checks its body (the same
+    schemas, limits and messages; settings from the environment, as ``serve`` reads
+    them): ``kind`` is ``plan`` or ``sizing``. Defaults are filled in (``time_budget``)."""
+    import os
+
+    from ..schemas import load_plan_request, load_sizing_request
+    from ..settings import Settings
+
+    body = read_json(path)
+    settings = Settings.from_env(os.environ)
+    if kind == "plan":
+        return load_plan_request(body, settings)
+    return load_sizing_request(body, settings)
+
+
+def time_budget(override: float | None, data: dict[str, Any]) -> float:
+    """``--time-budget`` when given (finite, >= 0: a budget must end), else the body's."""
+    budget = override if override is not None else data["time_budget"]
+    if not 0 <= budget < math.inf:  # NaN and inf fail too
+        raise InvalidInstance(
+            "bad time budget", [Issue("/time_budget", "must be a finite number >= 0")]
+        )
+    return float(budget)

@@ -15,7 +15,7 @@ from typing import Any
 
 from workers.planning.errors import InvalidInstance, Issue
 
-from ._io import read_json
+from ._io import load_request, time_budget
 
 NAME = "confidence"
 HELP = "plan a batch file and estimate by simulation how likely it makes its deadline"
@@ -24,49 +24,31 @@ HELP = "plan a batch file and estimate by simulation how likely it makes its dea
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("file", help="request body as JSON ('-' for standard input)")
     p.add_argument("--samples", type=int, help="samples to draw (default: the file's, or 1000)")
-    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--seed", type=int, help="random seed (default: the file's, or 0)")
     p.add_argument("--json", action="store_true", help="print exactly the confidence block")
 
 
-def _number(body: dict[str, Any], key: str, default: Any) -> Any:
-    x = body.get(key, default)
-    if x is None:
-        return default
-    if isinstance(x, bool) or not isinstance(x, int | float):
-        raise InvalidInstance(f"bad {key}", [Issue(f"/{key}", "must be a number")])
-    return x
-
-
 def run(args: argparse.Namespace) -> int:
-    from workers.planning import Instance, solve
-    from workers.planning.confidence import confidence_block
-    from workers.planning.solve import METHODS
+    from workers.planning import Instance, usecases
 
-    body = read_json(args.file)
-    if not isinstance(body, dict):
-        raise InvalidInstance("the file must hold a JSON object", [Issue("", "not an object")])
-    method = body.get("method", "longest_first")
-    if method not in METHODS:
-        raise InvalidInstance(
-            f"unknown method {method!r}", [Issue("/method", f"must be one of {METHODS}")]
-        )
-    budget = _number(body, "time_budget", 5.0)
-    spread = _number(body, "spread", None)
-    samples = (
-        args.samples if args.samples is not None else _number(body, "confidence_samples", 1000)
-    )
-    if samples != int(samples) or samples < 1:
-        raise InvalidInstance(
-            "bad sample count", [Issue("/confidence_samples", "must be a whole number >= 1")]
-        )
-    inst = Instance.from_request(body)
-    result = solve(inst, method, time_budget=float(budget))
-    block = confidence_block(result.schedule, spread=spread, samples=int(samples), seed=args.seed)
+    data = load_request(args.file, "plan")  # the API's checks, its messages
+    if args.samples is not None:
+        if args.samples < 10:
+            raise InvalidInstance(
+                "bad sample count", [Issue("/confidence_samples", "must be at least 10")]
+            )
+        data["confidence_samples"] = args.samples
+    data.setdefault("confidence_samples", 1000)  # what the API would draw with spread
+    if args.seed is not None:
+        data["confidence_seed"] = args.seed
+    inst = Instance.from_request(data)
+    answer = usecases.plan(inst, data, method=data["method"], time_budget=time_budget(None, data))
+    block = answer.extra["confidence"]
     if args.json:
         json.dump(block, sys.stdout, allow_nan=False)
         sys.stdout.write("\n")
         return 0
-    print(result.summary())
+    print(answer.result.summary())
     print(block_lines(block))
     return 0
 

@@ -38,9 +38,11 @@ def _object(path: str) -> dict[str, object]:
 def run(args: argparse.Namespace) -> int:
     from workers.planning.replan import replan
 
+    from ..schemas import load_replan_request
+
     request = _object(args.request_file)
     result = _object(args.result_file)
-    events = _object(args.events_file)
+    events = load_replan_request(_object(args.events_file))  # the API's checks of events
     if args.time_budget is not None and not args.time_budget >= 0:
         raise InvalidInstance("bad time budget", [Issue("/time_budget", "must be >= 0")])
     res = replan(request, result, events, method=args.method, time_budget=args.time_budget)

@@ -6,9 +6,7 @@ import argparse
 import json
 import sys
 
-from workers.planning.errors import InvalidInstance, Issue
-
-from ._io import read_json
+from ._io import load_request, time_budget
 from .confidence import block_lines, target_lines
 
 NAME = "size"
@@ -27,29 +25,20 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from workers.planning.confidence import SpreadRequest, sizing_confidence
-    from workers.planning.sizing import size_from_request
+    from workers.planning import usecases
     from workers.planning.warmup import warm_up_sizing as warm_up
 
-    body = read_json(args.file)
-    if not isinstance(body, dict):
-        raise InvalidInstance("the file must hold a JSON object", [Issue("", "not an object")])
-    budget = args.time_budget if args.time_budget is not None else body.get("time_budget", 5.0)
-    if not isinstance(budget, int | float) or isinstance(budget, bool) or not budget >= 0:
-        raise InvalidInstance("bad time budget", [Issue("/time_budget", "must be a number >= 0")])
-    asked = SpreadRequest.from_body(body)  # bad spread inputs fail before the search
+    data = load_request(args.file, "sizing")  # the API's checks, its messages
+    budget = time_budget(args.time_budget, data)
     warm_up()  # load (or compile) the kernels before the clock starts
-    result = size_from_request(body, time_budget=float(budget))
-    extra = sizing_confidence(result.schedule, asked) if asked is not None else {}
+    answer = usecases.size_body(data, time_budget=budget)
     if args.json:
-        out = result.to_dict(with_plan=not args.no_plan)
-        out.update(extra)
-        json.dump(out, sys.stdout, allow_nan=False)
+        json.dump(answer.to_dict(with_plan=not args.no_plan), sys.stdout, allow_nan=False)
         sys.stdout.write("\n")
     else:
-        print(result.summary())
-        if "confidence" in extra:
-            print(block_lines(extra["confidence"]))
-        if "confidence_sizing" in extra:
-            print(target_lines(extra["confidence_sizing"]))
+        print(answer.result.summary())
+        if "confidence" in answer.extra:
+            print(block_lines(answer.extra["confidence"]))
+        if "confidence_sizing" in answer.extra:
+            print(target_lines(answer.extra["confidence_sizing"]))
     return 0

@@ -4,14 +4,11 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import sys
 
-from workers.planning import Instance, solve
-from workers.planning.errors import InvalidInstance, Issue
 from workers.planning.solve import METHODS
 
-from ._io import read_json
+from ._io import load_request, time_budget
 
 NAME = "solve"
 HELP = "solve a batch file (the JSON body of POST /v1/plans) locally and print the plan"
@@ -25,32 +22,24 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    body = read_json(args.file)
-    if not isinstance(body, dict):
-        raise InvalidInstance("the file must hold a JSON object", [Issue("", "not an object")])
-    method = args.method or body.get("method", "longest_first")
-    if method not in METHODS:
-        raise InvalidInstance(
-            f"unknown method {method!r}", [Issue("/method", f"must be one of {METHODS}")]
-        )
-    budget = args.time_budget if args.time_budget is not None else body.get("time_budget", 5.0)
-    if (
-        not isinstance(budget, int | float)
-        or isinstance(budget, bool)
-        or not 0 <= budget < math.inf  # NaN and inf fail too: a budget must end
-    ):
-        raise InvalidInstance(
-            "bad time budget", [Issue("/time_budget", "must be a finite number >= 0")]
-        )
-    inst = Instance.from_request(body)
-    if method in ("exact", "auto"):
+    from workers.planning import usecases
+
+    data = load_request(args.file, "plan")  # the API's checks, its messages
+    if args.method:
+        data["method"] = args.method
+    budget = time_budget(args.time_budget, data)
+    if data.get("method") in ("exact", "auto"):
         from workers.planning.warmup import warm_up_exact as warm_up
 
         warm_up()  # load the compiled search before its clock starts, not out of the budget
-    result = solve(inst, method, time_budget=float(budget))
+    answer = usecases.plan_body(data, time_budget=budget)
     if args.json:
-        json.dump(result.to_dict(), sys.stdout, allow_nan=False)
+        json.dump(answer.to_dict(), sys.stdout, allow_nan=False)
         sys.stdout.write("\n")
     else:
-        print(result.summary())
+        from .confidence import block_lines
+
+        print(answer.result.summary())
+        if "confidence" in answer.extra:
+            print(block_lines(answer.extra["confidence"]))
     return 0

@@ -1,10 +1,10 @@
 """``/v1/sizings``: the fewest nodes of one kind meeting a deadline; shared job machinery.
 
 Semantic checks (a job longer than the deadline is a 422 naming it, tags no node
-provides, ...) live in the core's ``size_from_request``. To answer them synchronously the
-API runs it once with a zero time budget and an immediate stop: that builds and checks
-the instance and runs only the quick first-fit construction (tens of milliseconds for a
-thousand jobs); the budgeted search runs on the worker.
+provides, more nodes than ``max_nodes`` by the lower bound, ...) are the core's
+``read_sizing_request`` and ``SizingArgs.check``: they read and check the request without
+sizing it; the search runs on the worker. (A batch whose lower bound fits ``max_nodes``
+but no plan found does ends ``failed`` with that reason.)
 """
 
 from __future__ import annotations
@@ -18,10 +18,10 @@ from .jobs import Resource, Validated, make_blueprint
 
 def validate_sizing(body: Any, settings: Settings) -> dict[str, Any]:
     """Limits and shape (marshmallow), then the core's checks (422 either way)."""
-    from workers.planning.sizing import size_from_request
+    from workers.planning.sizing import read_sizing_request
 
     data = load_sizing_request(body, settings)
-    size_from_request(data, time_budget=0.0, should_stop=lambda: True)
+    read_sizing_request(data).check()
     return data
 
 

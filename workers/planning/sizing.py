@@ -372,20 +372,43 @@ def size(
     )
 
 
-def size_from_request(
-    body: Mapping[str, Any],
-    *,
-    time_budget: float,
-    progress: SizingProgressHook | None = None,
-    should_stop: Callable[[], bool] | None = None,
-) -> SizingResult:
-    """Size from a ``POST /v1/sizings`` body; ``time_budget`` (seconds) wins over the body's.
+@dataclass(frozen=True, eq=False)
+class SizingArgs:
+    """A sizing request read into core objects: the jobs on one node of the kind to rent
+    (``base``, with the deadline and resolution) and the options."""
 
-    Body: ``jobs`` (as for plans), ``deadline`` (required), ``node`` ({speed, provides}),
-    ``max_nodes`` (default 2000), ``time_budget``, ``node_hour_cost``, ``billing``
-    (second | minute | hour, default second), ``curve_nodes`` (extra node counts),
-    ``resolution`` (default 1). Every problem found is raised together as one
-    :class:`InvalidInstance` whose issues carry JSON Pointers into ``body``.
+    base: Instance
+    max_nodes: int
+    node_hour_cost: float | None
+    billing: str
+    curve_nodes: tuple[int, ...]
+
+    @property
+    def node(self) -> Node:
+        return self.base.nodes[0]
+
+    def check(self) -> None:
+        """The checks that need no search (tens of microseconds a job): a job no node of
+        the kind can run or finish in time, a resolution too fine, more nodes needed than
+        ``max_nodes`` by the lower bound alone. Raises what :func:`size` would."""
+        base, node = self.base, self.node
+        deadline = float(base.deadline)  # type: ignore[arg-type]
+        _check_feasible(base, node, base.durations / node.speed, deadline)
+        limit = Fraction(deadline) * Fraction(node.speed)
+        too_fine = _tick_limit(base.durations, limit, base.resolution)
+        if too_fine:
+            raise InvalidInstance("the resolution is too fine for these times", too_fine)
+        q_lo, _ = ticks(base.durations, base.resolution)
+        cap = capacity_ticks(deadline, node.speed, base.resolution)
+        lower, source, _, _ = _lower_bound(q_lo, cap, array_sum(base.durations), limit)
+        _check_lower(lower, source, self.max_nodes)
+
+
+def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs:
+    """Read a ``POST /v1/sizings`` body (see :func:`size_from_request`) without sizing.
+
+    Every problem found is raised together as one :class:`InvalidInstance` whose issues
+    carry JSON Pointers into ``body``.
     """
     if not isinstance(body, Mapping):
         raise InvalidInstance(
@@ -436,17 +459,51 @@ def size_from_request(
         ) from None
     if issues:
         raise InvalidInstance(f"{len(issues)} problem(s) in the request", issues)
-    return _size(
-        base,
-        base.nodes[0],
-        time_budget=float(time_budget),
+    return SizingArgs(
+        base=base,
         max_nodes=int(max_nodes),
         node_hour_cost=None if node_hour_cost is None else float(node_hour_cost),
         billing=str(billing),
-        curve_nodes=[int(k) for k in curve_nodes],
+        curve_nodes=tuple(int(k) for k in curve_nodes),
+    )
+
+
+def size_from_request(
+    body: Mapping[str, Any],
+    *,
+    time_budget: float,
+    progress: SizingProgressHook | None = None,
+    should_stop: Callable[[], bool] | None = None,
+) -> SizingResult:
+    """Size from a ``POST /v1/sizings`` body; ``time_budget`` (seconds) wins over the body's.
+
+    Body: ``jobs`` (as for plans), ``deadline`` (required), ``node`` ({speed, provides}),
+    ``max_nodes`` (default 2000), ``time_budget``, ``node_hour_cost``, ``billing``
+    (second | minute | hour, default second), ``curve_nodes`` (extra node counts),
+    ``resolution`` (default 1); read by :func:`read_sizing_request`.
+    """
+    args = read_sizing_request(body)
+    return _size(
+        args.base,
+        args.node,
+        time_budget=float(time_budget),
+        max_nodes=args.max_nodes,
+        node_hour_cost=args.node_hour_cost,
+        billing=args.billing,
+        curve_nodes=list(args.curve_nodes),
         progress=progress,
         should_stop=should_stop,
     )
+
+
+def _check_lower(lower: int, source: str, max_nodes: int) -> None:
+    """Raise :class:`Infeasible` when the lower bound alone needs more than ``max_nodes``."""
+    if lower > max_nodes:
+        raise Infeasible(
+            f"at least {lower} nodes are needed ({source}), above max_nodes ({max_nodes})",
+            jobs=[],
+            issues=[Issue("/max_nodes", f"at least {lower} nodes are needed")],
+        )
 
 
 def _node_pointer(pointer: str) -> str:
@@ -830,13 +887,7 @@ def _size(
             progress(SizingProgress(budget.elapsed(), state.upper, state.lower))
 
     report()
-    if state.lower > max_nodes:
-        raise Infeasible(
-            f"at least {state.lower} nodes are needed ({state.source}), above max_nodes "
-            f"({max_nodes})",
-            jobs=[],
-            issues=[Issue("/max_nodes", f"at least {state.lower} nodes are needed")],
-        )
+    _check_lower(state.lower, state.source, max_nodes)
     cancelled = ran_out = False
     if state.lower < state.upper and base.n <= BFD_MAX_JOBS:
         b_bfd, _, n_bfd = best_fit_decreasing(sizes, deadline)
