@@ -14,6 +14,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields
 from typing import Any
 
+from workers.planning.budget import DEFAULT_SECONDS
 from workers.planning.errors import Issue, SpanwrightError
 
 PREFIX = "SPANWRIGHT_"
@@ -48,7 +49,7 @@ class Settings:
     #: ceiling on a request's ``time_budget`` (422 beyond)
     max_time_budget: float = 60.0
     #: ``time_budget`` when a request gives none
-    default_time_budget: float = 5.0
+    default_time_budget: float = DEFAULT_SECONDS
     #: longest ``Prefer: wait=N`` honoured; longer waits are cut to this
     max_wait: float = 30.0
     #: RQ job timeout = time budget + this margin: a crash guard, never the normal stop

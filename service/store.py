@@ -40,6 +40,8 @@ from typing import Any
 import redis
 from redis.client import Pipeline
 
+from workers.planning.budget import DEFAULT_SECONDS
+
 KINDS = ("plan", "sizing")
 STATUSES = ("queued", "solving", "done", "failed", "cancelled")
 FINISHED = frozenset({"done", "failed", "cancelled"})
@@ -338,7 +340,7 @@ class Store:
             return None
         _old, budget, method, body, copy = got
         return Claim(
-            time_budget=float(_text(budget)) if budget is not None else 5.0,
+            time_budget=float(_text(budget)) if budget is not None else DEFAULT_SECONDS,
             method=_text(method) if method is not None else "longest_first",
             body=bytes(body),
             columns=int(copy) == 1,

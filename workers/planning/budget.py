@@ -9,6 +9,20 @@ from __future__ import annotations
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from enum import StrEnum
+
+#: seconds of search when a request gives no ``time_budget`` (the one default: the service's
+#: ``Settings.default_time_budget`` starts from it, the library and the CLI use it)
+DEFAULT_SECONDS = 5.0
+
+
+class StopReason(StrEnum):
+    """Why a solver stopped (the contract's ``stop_reason``)."""
+
+    HEURISTIC = "heuristic"  # a rule that ends by itself, or a search with nothing left
+    PROVED_OPTIMAL = "proved_optimal"  # the bound meets the plan
+    TIME_BUDGET = "time_budget"  # the budget ran out first
+    CANCELLED = "cancelled"  # the caller asked it to stop
 
 
 @dataclass
@@ -47,3 +61,14 @@ class Budget:
         sub = Budget(self.remaining() * fraction, self.should_stop, self.poll_interval)
         sub.cancelled = self.cancelled
         return sub
+
+    def stop_reason(self, *, proven: bool, ran_out: bool) -> StopReason:
+        """The one rule: proven wins; then a cancel; then a search that ``ran_out`` of
+        time; else the search ended by itself (``heuristic``)."""
+        if proven:
+            return StopReason.PROVED_OPTIMAL
+        if self.cancelled:
+            return StopReason.CANCELLED
+        if ran_out:
+            return StopReason.TIME_BUDGET
+        return StopReason.HEURISTIC

@@ -39,6 +39,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any, TypeGuard
 
+from .budget import DEFAULT_SECONDS
 from .errors import Infeasible, InvalidInstance, Issue
 from .farm_bounds import eligibility
 from .model import Instance, Node
@@ -369,7 +370,7 @@ def replan(
     work = remaining_work(original_request, original_result, read_events(body))
     req = work.request
     chosen = method or req.get("method") or "longest_first"
-    budget = time_budget if time_budget is not None else req.get("time_budget", 5.0)
+    budget = time_budget if time_budget is not None else req.get("time_budget", DEFAULT_SECONDS)
     if not _num(budget) or budget < 0:
         raise InvalidInstance("bad time budget", [Issue("/time_budget", "must be a number >= 0")])
     inst = work.instance if work.instance is not None else Instance.from_request(req)

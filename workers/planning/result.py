@@ -20,14 +20,15 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from .budget import StopReason
 from .kernels import chain_starts, pure
 from .model import FloatArray, Instance
 from .rational import exact_sum
 
 IntArray = npt.NDArray[np.int32]
 
-#: why a solver stopped
-STOP_REASONS = ("heuristic", "proved_optimal", "time_budget", "cancelled")
+#: why a solver stopped (the values of :class:`budget.StopReason`)
+STOP_REASONS = tuple(StopReason)
 
 #: one job of :meth:`Schedule.assignment_json` (``%r`` of a float is ``float.__repr__``,
 #: which is how ``json.dumps`` writes floats)

@@ -949,14 +949,11 @@ def _size(
             jobs=[],
             issues=[Issue("/max_nodes", f"the best plan found needs {state.upper} nodes")],
         )
-    if state.lower >= state.upper:
-        stop = "proved_optimal"
-    elif cancelled or budget.cancelled:
-        stop = "cancelled"
-    elif ran_out or (time_budget > 0 and budget.expired()):
-        stop = "time_budget"
-    else:
-        stop = "heuristic"
+    budget.cancelled = budget.cancelled or cancelled
+    stop = budget.stop_reason(
+        proven=state.lower >= state.upper,
+        ran_out=ran_out or (time_budget > 0 and budget.expired()),
+    )
     # the same node count, balanced: longest first often ends earlier than the packing
     plan_method = state.method
     lpt_bins, lpt_start = least_loaded(order, times, state.upper)

@@ -8,7 +8,7 @@ from collections.abc import Callable
 from typing import Any
 
 from . import bounds, greedy
-from .budget import Budget
+from .budget import DEFAULT_SECONDS, Budget
 from .errors import InvalidInstance, Issue
 from .model import Instance
 from .progress import Progress as Progress
@@ -22,7 +22,7 @@ def solve(
     inst: Instance,
     method: str = "longest_first",
     *,
-    time_budget: float = 5.0,
+    time_budget: float = DEFAULT_SECONDS,
     progress: ProgressHook | None = None,
     should_stop: Callable[[], bool] | None = None,
 ) -> PlanResult:
