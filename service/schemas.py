@@ -25,7 +25,7 @@ from marshmallow import RAISE, Schema, ValidationError, fields, validate, valida
 
 from workers.planning.confidence import SpreadRequest
 from workers.planning.errors import InvalidInstance, Issue
-from workers.planning.model import MAX_ID_LENGTH
+from workers.planning.model import CONTROL, CONTROL_WORDS, MAX_ID_LENGTH
 from workers.planning.solve import METHODS
 
 from .problems import LimitExceeded
@@ -84,12 +84,23 @@ def _seconds(lowest: float = 0.0) -> validate.Range:
     return validate.Range(min=lowest, max=MAX_SECONDS)
 
 
+def plain_text(value: str) -> None:
+    """Refuse control characters, unpaired surrogates and bidirectional controls in text
+    we store and show (ids, tags, groups, names): see ``model.CONTROL``."""
+    if CONTROL.search(value):
+        raise ValidationError(f"Contains {CONTROL_WORDS}.")
+
+
+def _text(low: int, high: int) -> list[Any]:
+    return [validate.Length(min=low, max=high), plain_text]
+
+
 def _ident() -> fields.String:
-    return fields.String(required=True, validate=validate.Length(min=1, max=MAX_ID_LENGTH))
+    return fields.String(required=True, validate=_text(1, MAX_ID_LENGTH))
 
 
 def _tags() -> fields.List:  # type: ignore[type-arg]
-    return fields.List(fields.String(validate=validate.Length(min=1, max=MAX_ID_LENGTH)))
+    return fields.List(fields.String(validate=_text(1, MAX_ID_LENGTH)))
 
 
 class StrictSchema(Schema):
@@ -102,7 +113,7 @@ class JobSchema(StrictSchema):
     duration = FiniteNumber(required=True, validate=_seconds())
     duration_p90 = FiniteNumber(validate=_seconds())
     requires = _tags()
-    group = fields.String(allow_none=True, validate=validate.Length(max=MAX_ID_LENGTH))
+    group = fields.String(allow_none=True, validate=_text(0, MAX_ID_LENGTH))
 
 
 _JOB_KEYS = frozenset(JobSchema().fields)
@@ -174,7 +185,7 @@ class NodeSchema(StrictSchema):
 class PlanRequestSchema(StrictSchema):
     """The body of ``POST /v1/plans``."""
 
-    name = fields.String(validate=validate.Length(max=200))
+    name = fields.String(validate=_text(0, 200))
     jobs = JobList(required=True)
     nodes = fields.List(fields.Nested(NodeSchema), validate=validate.Length(min=1))
     node_count = WholeNumber(validate=validate.Range(min=1))
@@ -200,7 +211,7 @@ PLAN_ENVELOPE_SCHEMA = PlanRequestSchema(exclude=("jobs",))
 
 
 class SizingNodeSchema(StrictSchema):
-    id = fields.String(validate=validate.Length(min=1, max=MAX_ID_LENGTH))
+    id = fields.String(validate=_text(1, MAX_ID_LENGTH))
     speed = FiniteNumber(validate=validate.Range(*SPEEDS))
     provides = _tags()
 
@@ -208,7 +219,7 @@ class SizingNodeSchema(StrictSchema):
 class SizingRequestSchema(StrictSchema):
     """The body of ``POST /v1/sizings``."""
 
-    name = fields.String(validate=validate.Length(max=200))
+    name = fields.String(validate=_text(0, 200))
     jobs = JobList(required=True)
     deadline = FiniteNumber(required=True, validate=_seconds(MIN_DEADLINE))
     node = fields.Nested(SizingNodeSchema)

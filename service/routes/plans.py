@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 from workers.planning import Instance
+from workers.planning.farm_bounds import eligibility
 
 from .. import payload
 from ..schemas import load_plan_columns, load_plan_request
@@ -24,10 +25,12 @@ def read_plan(body: Any, settings: Settings) -> Validated:
     fast = load_plan_columns(body, settings)
     if fast is None:
         data = load_plan_request(body, settings)
-        Instance.from_request(data)
+        inst = Instance.from_request(data)
+        if inst.requires is not None:
+            eligibility(inst)  # a job no node can run: 422 naming it, not a failed plan
         return Validated(data)
     data, cols = fast
-    Instance.from_columns(body, cols.ids, cols.durations, cols.groups)
+    Instance.from_columns(body, cols.ids, cols.durations, cols.groups)  # no tags in columns
     envelope = {k: v for k, v in body.items() if k != "jobs"}
     return Validated(data, payload.encode(envelope, cols.ids, cols.durations, cols.groups))
 

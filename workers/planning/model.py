@@ -26,7 +26,15 @@ MAX_ID_LENGTH = 200
 
 FloatArray = npt.NDArray[np.float64]
 
-_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f]")
+#: what no id, tag or group may hold: control characters (C0, DEL, C1), unpaired UTF-16
+#: surrogates (not text: a page cannot even encode them) and the bidirectional controls of
+#: Unicode's UAX #9 (they reorder how the text around them is shown: the "Trojan Source"
+#: risk, Boucher and Anderson 2021)
+CONTROL = re.compile(
+    "[\x00-\x1f\x7f-\x9f\ud800-\udfff\u061c\u200e\u200f\u202a-\u202e\u2066-\u2069]"
+)
+#: the words for it in messages
+CONTROL_WORDS = "control, bidirectional-control or unpaired surrogate characters"
 
 
 @dataclass(frozen=True, slots=True)
@@ -289,11 +297,15 @@ def _plain_columns(
     if set(map(type, ids)) != {str}:
         return False
     lengths = list(map(len, ids))
-    if min(lengths) < 1 or max(lengths) > MAX_ID_LENGTH or _CONTROL.search("".join(ids)):
+    if min(lengths) < 1 or max(lengths) > MAX_ID_LENGTH or CONTROL.search("".join(ids)):
         return False
     if not (np.isfinite(d).all() and (d >= 0).all()):
         return False
-    return groups is None or set(map(type, groups)) <= {str, type(None)}
+    if groups is None:
+        return True
+    if not set(map(type, groups)) <= {str, type(None)}:
+        return False
+    return not CONTROL.search("".join(g for g in groups if g is not None))
 
 
 def _duplicates(ids: Sequence[str], where: str, what: str) -> list[Issue]:
@@ -349,8 +361,8 @@ class _RequestReader:
             return ""
         if len(x) > MAX_ID_LENGTH:
             self.fail(f"{ptr}/id", f"longer than {MAX_ID_LENGTH} characters")
-        elif _CONTROL.search(x):
-            self.fail(f"{ptr}/id", "contains control characters")
+        elif CONTROL.search(x):
+            self.fail(f"{ptr}/id", f"contains {CONTROL_WORDS}")
         return x
 
     def tags(self, obj: Mapping[str, Any], key: str, ptr: str) -> frozenset[str]:
@@ -362,6 +374,8 @@ class _RequestReader:
         if not isinstance(x, list) or not all(isinstance(t, str) and t for t in x):
             self.fail(f"{ptr}/{key}", "must be a list of non-empty strings")
             return frozenset()
+        if CONTROL.search("".join(x)):
+            self.fail(f"{ptr}/{key}", f"contains {CONTROL_WORDS}")
         return frozenset(x)
 
     def read(self) -> Instance:
@@ -379,7 +393,7 @@ class _RequestReader:
         if not isinstance(jobs, list):
             self.fail("/jobs", "required: a list of jobs")
             jobs = []
-        search_control = _CONTROL.search
+        search_control = CONTROL.search
         for i, job in enumerate(jobs):
             # fast path: {"id", "duration"[, "group"]} with plain, valid values
             if type(job) is dict and 2 <= len(job) <= 3:
@@ -391,7 +405,7 @@ class _RequestReader:
                     and (type(dur) is float or type(dur) is int)
                     and dur >= 0
                     and dur - dur == 0
-                    and (grp is None or type(grp) is str)
+                    and (grp is None or (type(grp) is str and not search_control(grp)))
                     and not search_control(jid)
                 ):
                     ids.append(jid)
@@ -416,6 +430,8 @@ class _RequestReader:
             if g is not None and not isinstance(g, str):
                 self.fail(f"{ptr}/group", "must be a string")
                 g = None
+            elif g is not None and CONTROL.search(g):
+                self.fail(f"{ptr}/group", f"contains {CONTROL_WORDS}")
             groups.append(g)
             q = self.number(job, "duration_p90", ptr, None)
             if q is not None and dur is not None and q < dur:
