@@ -70,6 +70,12 @@ def rq_job_id(kind: str, rid: str) -> str:
     return f"{kind}-{rid}"
 
 
+#: an idle ``spanwright worker`` beats at least every WORKER_TTL - 15 s (RQ's dequeue
+#: timeout) and a busy one every JOB_MONITORING_INTERVAL; a worker whose last beat is
+#: older than this is taken for dead by ``/readyz``
+WORKER_TTL = 60
+FRESH_HEARTBEAT = WORKER_TTL + 15
+
 class JobQueue:
     """The one queue between the API and the workers."""
 
@@ -112,8 +118,22 @@ class JobQueue:
         )
 
     def workers(self) -> int:
-        """How many workers listen on the queue."""
-        return int(Worker.count(connection=self.queue.connection, queue=self.queue))
+        """How many workers listen on the queue and are alive: their heartbeat is at most
+        :data:`FRESH_HEARTBEAT` seconds old. (RQ keeps a killed worker's key until its TTL
+        ends, so counting keys would call a farm with every worker dead ready.)"""
+        from datetime import UTC, datetime
+
+        now = datetime.now(UTC)
+        alive = 0
+        for w in Worker.all(connection=self.queue.connection, queue=self.queue):
+            beat = w.last_heartbeat
+            if beat is None:
+                continue
+            if beat.tzinfo is None:
+                beat = beat.replace(tzinfo=UTC)
+            if (now - beat).total_seconds() <= FRESH_HEARTBEAT:
+                alive += 1
+        return alive
 
     def depth(self) -> int:
         return int(self.queue.count)

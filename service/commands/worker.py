@@ -40,7 +40,7 @@ def run(args: argparse.Namespace) -> int:
     from ..app import connect
     from ..embedded import warm_up
     from ..logs import configure_logging
-    from ..queue import JobQueue
+    from ..queue import WORKER_TTL, JobQueue
     from ..settings import Settings
     from ..worker import JOB_MONITORING_INTERVAL, LeanWorker
     from ..wsgi import sentinel_connection
@@ -74,6 +74,8 @@ def run(args: argparse.Namespace) -> int:
         maintenance_interval=args.maintenance_interval,
         # heartbeats of a running job: a worker killed on any host is seen within 70 s
         job_monitoring_interval=JOB_MONITORING_INTERVAL,
+        # an idle worker beats every WORKER_TTL - 15 s, so /readyz can tell it is alive
+        worker_ttl=WORKER_TTL,
     )
     worker.work(burst=args.burst, logging_level=args.log_level)
     return 0
