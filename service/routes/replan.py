@@ -35,7 +35,8 @@ def replan(rid: str) -> Response:
     store, who = svc.store, tenant()
     if not ID_RE.fullmatch(rid):
         raise NotFound(f"no plan {rid!r}")
-    old = store.get("plan", rid)
+    owner, _ = store.version("plan", rid)  # the owner first: "not yours" costs "not there"
+    old = store.get("plan", rid) if owner == who else None
     if old is None or old.tenant != who:
         raise NotFound(f"no plan {rid!r} (it may have expired)")
     raw_request = store.load_request("plan", rid)

@@ -27,7 +27,8 @@ def _record(kind: str, rid: str) -> tuple[dict[str, Any], bytes | None]:
     if not ID_RE.fullmatch(rid):
         raise NotFound(f"no {kind} {rid!r}")
     store = services().store
-    rec = store.get(kind, rid)
+    owner, _ = store.version(kind, rid)  # the owner first: "not yours" costs "not there"
+    rec = store.get(kind, rid) if may_read(owner) else None
     if rec is None or not may_read(rec.tenant):
         raise NotFound(f"no {kind} {rid!r} (it may have expired)")
     doc = json.loads(status_document(rec, f"/v1/{kind}s"))
