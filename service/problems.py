@@ -195,8 +195,14 @@ def to_spanwright(exc: BaseException) -> SpanwrightError:
                 [Issue("", "body too large (limit: SPANWRIGHT_MAX_REQUEST_BYTES)")],
             )
         return out
+    if isinstance(exc, redis.exceptions.OutOfMemoryError):
+        # noeviction at maxmemory: writes are refused until retention frees memory
+        full = StoreUnavailable("the plan store is full; try again later")
+        full.headers = {"Retry-After": "30"}  # type: ignore[attr-defined]
+        return full
     if isinstance(exc, redis.exceptions.ConnectionError | redis.exceptions.TimeoutError):
-        return StoreUnavailable(f"cannot reach Redis: {exc}")
+        # the reason is logged (status >= 500); the caller is not told hosts or ports
+        return StoreUnavailable("cannot reach the plan store; try again shortly")
     return InternalError("an unexpected error occurred; it has been logged")
 
 

@@ -76,6 +76,7 @@ def rq_job_id(kind: str, rid: str) -> str:
 WORKER_TTL = 60
 FRESH_HEARTBEAT = WORKER_TTL + 15
 
+
 class JobQueue:
     """The one queue between the API and the workers."""
 

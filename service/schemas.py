@@ -139,13 +139,14 @@ class JobList(fields.Field):  # type: ignore[type-arg]
         if not value:
             raise self.make_error("empty")
         errors: dict[int, Any] = {}
-        keys, num = _JOB_KEYS, _NUM
+        keys, num, control = _JOB_KEYS, _NUM, CONTROL.search
         for i, job in enumerate(value):
             if (
                 type(job) is dict
                 and keys.issuperset(job)
                 and type(job.get("id")) is str
                 and 0 < len(job["id"]) <= MAX_ID_LENGTH
+                and not control(job["id"])
                 and type(job.get("duration")) in num
                 and 0 <= job["duration"] <= MAX_SECONDS
                 and len(job) == 2

@@ -52,6 +52,9 @@ class Settings:
     default_time_budget: float = DEFAULT_SECONDS
     #: longest ``Prefer: wait=N`` honoured; longer waits are cut to this
     max_wait: float = 30.0
+    #: refuse new work (503 + Retry-After) once Redis uses this share of its maxmemory,
+    #: so reads, cancels and finishing workers keep the rest (no effect without maxmemory)
+    store_high_water: float = 0.9
     #: RQ job timeout = time budget + this margin: a crash guard, never the normal stop
     job_timeout_margin: int = 30
     #: how often a solving worker publishes progress at most

@@ -212,6 +212,7 @@ class Store:
         self.conn = conn
         self.prefix = prefix
         self.retention = int(retention)
+        self._memory: tuple[float, float] | None = None  # (when read, used / maxmemory)
         self._transition = conn.register_script(_TRANSITION)
         self._cancel = conn.register_script(_CANCEL)
         self._while_solving = conn.register_script(_WHILE_SOLVING)
@@ -239,6 +240,21 @@ class Store:
         ]
 
     # -- writing ------------------------------------------------------------------------
+    def memory_share(self, max_age: float = 1.0) -> float:
+        """``used_memory / maxmemory`` of Redis (0 without a maxmemory), read at most every
+        ``max_age`` seconds per store."""
+        now = time.monotonic()
+        if self._memory is not None and now - self._memory[0] < max_age:
+            return self._memory[1]
+        try:
+            info = self.conn.info("memory")
+        except redis.exceptions.ResponseError:  # a store without INFO (the embedded one)
+            info = {}
+        cap = int(info.get("maxmemory", 0) or 0)
+        share = int(info.get("used_memory", 0)) / cap if cap > 0 else 0.0
+        self._memory = (now, share)
+        return share
+
     def create(
         self,
         kind: str,
@@ -260,6 +276,64 @@ class Store:
         """
         t = time.time() if now is None else now
         rid = rid or new_id(t)
+        fields = self._fields(kind, tenant, meta, t)
+        keep = 2 * self.retention
+        pipe = self.conn.pipeline(transaction=True)
+        pipe.multi()  # explicit: a queue adding its writes finds the transaction open
+        self._write_record(pipe, kind, tenant, rid, fields, request_body, work, t, keep)
+        if enqueue is not None:
+            enqueue(pipe)
+        pipe.execute()
+        return rid
+
+    def create_keyed(
+        self,
+        kind: str,
+        tenant: str,
+        request_body: bytes,
+        meta: dict[str, Any],
+        *,
+        key: str,
+        fingerprint: str,
+        rid: str,
+        work: bytes | None = None,
+        enqueue: Callable[[Pipeline], object] | None = None,
+    ) -> dict[str, str] | None:
+        """:meth:`create` under an ``Idempotency-Key``: the key is claimed in the same
+        transaction as the record and its queue entry, so a key is never bound to a record
+        that was not queued (a failed write leaves nothing behind). Returns None when the
+        record was made; when the key is bound already, nothing is written and its binding
+        (``{"fingerprint", "id"}``) is returned."""
+        t = time.time()
+        fields = self._fields(kind, tenant, meta, t)
+        keep = 2 * self.retention
+        # claim the key, store the record and queue it in one transaction: a key is never
+        # bound to a record that was not queued (a failed write leaves nothing behind)
+        ik = self.idem_key(tenant, kind, key)
+        fields["idem_key"] = ik
+        doc = json.dumps({"fingerprint": fingerprint, "id": rid})
+        for _ in range(8):
+            with self.conn.pipeline(transaction=True) as pipe:
+                try:
+                    pipe.watch(ik)
+                    raw = pipe.get(ik)
+                    if raw is not None:
+                        bound: dict[str, str] = json.loads(raw)
+                        return bound
+                    pipe.multi()
+                    self._write_record(pipe, kind, tenant, rid, fields, request_body, work, t, keep)
+                    pipe.set(ik, doc, ex=keep)
+                    if enqueue is not None:
+                        enqueue(pipe)
+                    pipe.execute()
+                    return None
+                except redis.WatchError:  # the key was bound meanwhile: look again
+                    continue
+        raise redis.WatchError("the idempotency key kept changing")
+
+    @staticmethod
+    def _fields(kind: str, tenant: str, meta: dict[str, Any], t: float) -> dict[str, Any]:
+        """The hash fields of a new queued record."""
         fields: dict[str, Any] = {
             "kind": kind,
             "tenant": tenant,
@@ -271,9 +345,21 @@ class Store:
         for k, v in meta.items():
             if v is not None:
                 fields[k] = json.dumps(v) if k in _JSON_FIELDS else v
-        keep = 2 * self.retention
-        pipe = self.conn.pipeline(transaction=True)
-        pipe.multi()  # explicit: a queue adding its writes finds the transaction open
+        return fields
+
+    def _write_record(
+        self,
+        pipe: Pipeline,
+        kind: str,
+        tenant: str,
+        rid: str,
+        fields: dict[str, Any],
+        request_body: bytes,
+        work: bytes | None,
+        t: float,
+        keep: int,
+    ) -> None:
+        """The writes of a new record, added to an open transaction."""
         pipe.hset(self.key(kind, rid), mapping=fields)  # type: ignore[arg-type]
         pipe.expire(self.key(kind, rid), keep)
         pipe.set(self.key(kind, rid, "request"), request_body, ex=keep)
@@ -284,10 +370,6 @@ class Store:
         # ids older than three retentions can have no record left: drop them
         oldest = new_id(t - 3 * self.retention)[:11]
         pipe.zremrangebylex(self.index_key(tenant, kind), "-", "(" + oldest)
-        if enqueue is not None:
-            enqueue(pipe)
-        pipe.execute()
-        return rid
 
     def claim_idempotency(
         self, tenant: str, kind: str, key: str, fingerprint: str, rid: str

@@ -29,7 +29,6 @@ from ..problems import (
     NotFound,
     StoreUnavailable,
     UnsupportedMediaType,
-    problem_dict,
 )
 from ..queue import simulation_allowance
 from ..services import may_read, services, tenant
@@ -270,45 +269,49 @@ def queue_record(
             return replay(old)
     rid = new_id()
     budget = float(checked.data["time_budget"])
+    if store.memory_share() >= settings.store_high_water:
+        full = StoreUnavailable(
+            "the plan store is nearly full; new work is refused until finished records "
+            "expire (reads and cancels go on)"
+        )
+        full.headers = {"Retry-After": "30"}  # type: ignore[attr-defined]
+        raise full
     limits.admit(who, res.kind, rid)  # 429 before anything is stored
-    if key is None:  # record and queue entry in one transaction, one round trip
 
-        def enqueue(pipe: Any) -> None:
-            svc.queue.enqueue(res.kind, rid, budget, pipeline=pipe, extra_seconds=extra_seconds)
+    def enqueue(pipe: Any) -> None:
+        svc.queue.enqueue(res.kind, rid, budget, pipeline=pipe, extra_seconds=extra_seconds)
 
-        store.create(res.kind, who, raw, meta, rid=rid, work=checked.work, enqueue=enqueue)
-    else:
-        store.create(res.kind, who, raw, meta, rid=rid, work=checked.work)
-        for _ in range(2):
-            bound = store.claim_idempotency(who, res.kind, key, fingerprint, rid)
-            if bound is None:
-                break
-            if bound.get("fingerprint") != fingerprint:
-                store.discard(res.kind, rid, who)
+    try:
+        if key is None:  # record and queue entry in one transaction, one round trip
+            store.create(res.kind, who, raw, meta, rid=rid, work=checked.work, enqueue=enqueue)
+        else:  # the same, with the key claimed in that transaction too
+            for _ in range(2):
+                bound = store.create_keyed(
+                    res.kind,
+                    who,
+                    raw,
+                    meta,
+                    key=key,
+                    fingerprint=fingerprint,
+                    rid=rid,
+                    work=checked.work,
+                    enqueue=enqueue,
+                )
+                if bound is None:
+                    break
+                if bound.get("fingerprint") != fingerprint:
+                    raise _key_reused()
+                old = store.get(res.kind, bound.get("id", ""))
+                if old is None or old.tenant != who:
+                    store.release_idempotency(who, res.kind, key)  # its record expired
+                    continue
                 limits.release(who, res.kind, rid)
-                raise _key_reused()
-            old = store.get(res.kind, bound.get("id", ""))
-            if old is None or old.tenant != who:
-                store.release_idempotency(who, res.kind, key)  # its record expired
-                continue
-            store.discard(res.kind, rid, who)
-            limits.release(who, res.kind, rid)
-            return replay(old)
-        else:  # pragma: no cover - needs two expiries in a row
-            store.discard(res.kind, rid, who)
-            limits.release(who, res.kind, rid)
-            raise IdempotencyKeyInFlight("the key is being re-bound; retry in a moment")
-        try:
-            svc.queue.enqueue(res.kind, rid, budget, extra_seconds=extra_seconds)
-        except Exception:
-            store.finish(
-                res.kind,
-                rid,
-                "failed",
-                allowed_from="queued",
-                error=problem_dict(StoreUnavailable("the plan could not be queued")),
-            )
-            raise
+                return replay(old)
+            else:  # pragma: no cover - needs two expiries in a row
+                raise IdempotencyKeyInFlight("the key is being re-bound; retry in a moment")
+    except BaseException:
+        limits.release(who, res.kind, rid)  # nothing was stored: free the slot it held
+        raise
     rec = store.wait_for(res.kind, rid, wait) if wait else store.get(res.kind, rid)
     if rec is None:  # pragma: no cover - expired within the request
         raise NotFound(f"{res.kind} {rid} vanished")
