@@ -52,6 +52,10 @@ class Settings:
     default_time_budget: float = DEFAULT_SECONDS
     #: longest ``Prefer: wait=N`` honoured; longer waits are cut to this
     max_wait: float = 30.0
+    #: requests of one process that may hold a thread in ``Prefer: wait`` at once; keep it
+    #: below gunicorn's threads (8) so probes and reads always find a thread. A request
+    #: past it is answered at once (202, no Preference-Applied) and polls
+    max_waiters: int = 6
     #: refuse new work (503 + Retry-After) once Redis uses this share of its maxmemory,
     #: so reads, cancels and finishing workers keep the rest (no effect without maxmemory)
     store_high_water: float = 0.9

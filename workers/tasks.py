@@ -213,9 +213,17 @@ def on_failure(job: Any, connection: Any, exc_type: Any, exc: Any, tb: Any) -> N
     kw = job.kwargs
     store = Store(connection, prefix=kw["prefix"], retention=kw["retention"])
     name = getattr(exc_type, "__name__", str(exc_type))
-    detail = (
-        f"the worker failed: {name}: {exc}" if exc is not None else f"the worker failed: {name}"
-    )
+    said = str(exc).strip() if exc is not None else ""
+    if name == "AbandonedJobError":  # RQ's word for a worker that died under the job
+        detail = (
+            "the worker running it stopped (killed, out of memory or lost) before it "
+            "finished (AbandonedJobError)"
+            + ("; it had already been retried once" if not job.retries_left else "")
+        )
+    elif said:
+        detail = f"the worker failed: {name}: {said}"
+    else:
+        detail = f"the worker failed: {name}"
     if job.retries_left:
         store.requeue(kw["kind"], kw["record_id"], detail)
         return

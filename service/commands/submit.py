@@ -68,4 +68,10 @@ def run(args: argparse.Namespace) -> int:
                 f"gap {100 * res['gap']:.3f}%"
             )
     status = doc.get("status")
+    if status == "failed":
+        error = doc.get("error") or {}
+        print(
+            f"spanwright: {doc['id']} failed: {error.get('detail', 'no reason given')}",
+            file=sys.stderr,
+        )
     return _remote.EXIT_OK if status in ("done", "queued", "solving") else _remote.EXIT_FAILED

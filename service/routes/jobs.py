@@ -11,6 +11,7 @@ from __future__ import annotations
 import hashlib
 import json
 import re
+import threading
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -37,6 +38,30 @@ from ..store import FINISHED, STATUSES, Record, new_id
 
 ID_RE = re.compile(r"[0-9a-f]{21}")
 _KEY_RE = re.compile(r"[\x20-\x21\x23-\x5b\x5d-\x7e]{1,255}")  # printable ASCII but " and \
+
+
+class _Waiters:
+    """How many requests of this process hold a thread in ``Prefer: wait`` (a counter with
+    a lock: the limit comes from the settings at each call)."""
+
+    def __init__(self) -> None:
+        self._lock = threading.Lock()
+        self.count = 0
+
+    def acquire(self, limit: int) -> bool:
+        with self._lock:
+            if self.count >= limit:
+                return False
+            self.count += 1
+            return True
+
+    def release(self) -> None:
+        with self._lock:
+            self.count -= 1
+
+
+_WAITERS = _Waiters()
+
 _WAIT_RE = re.compile(r"^\s*wait\s*=\s*\"?(\d+(?:\.\d+)?)\"?\s*$", re.IGNORECASE)
 
 
@@ -245,17 +270,43 @@ def queue_record(
     queue slot), queue-depth admission (429 before anything is stored), ``Prefer: wait``
     and ``respond-async``. ``raw`` is what the worker solves, ``fingerprint`` identifies
     the request for its idempotency key, ``more`` adds fields to the answer."""
-    svc = services()
-    store, settings = svc.store, svc.settings
+    settings = services().settings
     key = idempotency_key()
     wait, is_async = preferences()
     who = tenant()
     extra: dict[str, str] = {}
-    if wait is not None:
-        wait = min(wait, settings.max_wait)
-        extra["Preference-Applied"] = f"wait={wait:g}"
-    elif is_async:
-        extra["Preference-Applied"] = "respond-async"
+    if wait is not None and not _WAITERS.acquire(settings.max_waiters):
+        wait = None  # every waiting slot is taken: answer at once, the client polls
+    try:
+        if wait is not None:
+            wait = min(wait, settings.max_wait)
+            extra["Preference-Applied"] = f"wait={wait:g}"
+        elif is_async:
+            extra["Preference-Applied"] = "respond-async"
+        return _queue_record(
+            res, raw, checked, meta, fingerprint, more, extra_seconds, key, wait, who, extra
+        )
+    finally:
+        if wait is not None:
+            _WAITERS.release()
+
+
+def _queue_record(
+    res: Resource,
+    raw: bytes,
+    checked: Validated,
+    meta: dict[str, Any],
+    fingerprint: str,
+    more: dict[str, Any] | None,
+    extra_seconds: float,
+    key: str | None,
+    wait: float | None,
+    who: str,
+    extra: dict[str, str],
+) -> Response:
+    """:func:`queue_record` once the wait is settled."""
+    svc = services()
+    store, settings = svc.store, svc.settings
 
     def replay(old: Record) -> Response:
         if wait and old.status not in FINISHED:
