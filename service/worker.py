@@ -42,7 +42,7 @@ from typing import Any
 
 import redis
 from redis.client import Pipeline
-from rq import SimpleWorker
+from rq import SimpleWorker, worker_registration
 from rq.exceptions import StopRequested
 from rq.executions import Execution
 from rq.job import Job, JobStatus
@@ -165,12 +165,16 @@ class LeanWorker(SimpleWorker):
         """RQ's heartbeat; outside a pipeline, one round trip and at most every few seconds."""
         if pipeline is not None:
             super().heartbeat(timeout, pipeline=pipeline)
+            worker_registration.register(self, pipeline)  # see below
             return
         beat = time.monotonic()
         if timeout is None and beat - self._beaten_at < self.heartbeat_every:
             return
         with self.connection.pipeline() as pipe:
             super().heartbeat(timeout, pipeline=pipe)
+            # listed again at every beat (two SADDs): a Redis that restarted without its
+            # data forgot the worker, and /readyz would call a live worker dead
+            worker_registration.register(self, pipe)
             pipe.execute()
         self._beaten_at = beat
 

@@ -32,6 +32,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     import contextlib
+    import logging
+    import time
 
     import redis
     from rq import Queue, Worker
@@ -45,6 +47,7 @@ def run(args: argparse.Namespace) -> int:
     from ..worker import JOB_MONITORING_INTERVAL, LeanWorker
     from ..wsgi import sentinel_connection
 
+    log = logging.getLogger("spanwright.worker")
     settings = Settings.from_env(os.environ)
     sentinel = sentinel_connection(settings)
     if settings.embedded and sentinel is None:
@@ -66,16 +69,30 @@ def run(args: argparse.Namespace) -> int:
             with contextlib.suppress(redis.RedisError):
                 jobs.reap()
 
-    worker = ReapingWorker(
-        [queue],
-        connection=conn,
-        serializer=JSONSerializer,
-        name=args.name,
-        maintenance_interval=args.maintenance_interval,
-        # heartbeats of a running job: a worker killed on any host is seen within 70 s
-        job_monitoring_interval=JOB_MONITORING_INTERVAL,
-        # an idle worker beats every WORKER_TTL - 15 s, so /readyz can tell it is alive
-        worker_ttl=WORKER_TTL,
-    )
-    worker.work(burst=args.burst, logging_level=args.log_level)
+    delay = 1.0
+    worker = None
+    while True:  # a lost Redis (a restart, a failover) is waited for, never a reason to exit
+        began = time.monotonic()
+        try:
+            worker = ReapingWorker(
+                [queue],
+                connection=conn,
+                serializer=JSONSerializer,
+                name=args.name,
+                maintenance_interval=args.maintenance_interval,
+                # heartbeats of a running job: a worker killed on any host is seen within 70 s
+                job_monitoring_interval=JOB_MONITORING_INTERVAL,
+                # an idle worker beats every WORKER_TTL - 15 s, so /readyz can tell it is alive
+                worker_ttl=WORKER_TTL,
+            )
+            worker.work(burst=args.burst, logging_level=args.log_level)
+            break
+        except (redis.exceptions.ConnectionError, redis.exceptions.TimeoutError) as exc:
+            if worker is not None and worker._shutdown_requested_date is not None:
+                break  # a stop was asked for (SIGTERM): do not start again
+            if time.monotonic() - began > 60:
+                delay = 1.0  # it had been working: a new outage starts the backoff again
+            log.warning("Redis is unreachable (%s); trying again in %.0f s", exc, delay)
+            time.sleep(delay)
+            delay = min(2 * delay, 30.0)
     return 0

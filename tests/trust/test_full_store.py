@@ -9,8 +9,10 @@ deletes still work) on a real redis-server, and RFC 9110's Retry-After for 503.
 
 from __future__ import annotations
 
+import os
 import shutil
 import subprocess
+import sys
 import time
 from collections.abc import Iterator
 from pathlib import Path
@@ -18,10 +20,10 @@ from typing import Any
 
 import pytest
 import redis
+from live import ROOT, free_port
 
 from service.app import create_app
 from service.settings import Settings
-from tests.service.conftest import ROOT, free_port
 
 pytestmark = pytest.mark.slow
 
@@ -104,3 +106,66 @@ def test_a_submit_refused_for_memory_binds_no_key(small_redis: redis.Redis) -> N
     rid = again.get_json()["id"]
     queued = [j.decode() for j in small_redis.lrange("rq:queue:swfull", 0, -1)]
     assert any(rid in j for j in queued), queued
+
+
+def _redis_proc(port: int, data: Path) -> subprocess.Popen[bytes]:
+    exe = shutil.which("redis-server")
+    assert exe is not None
+    conf = ROOT / "deploy" / "redis.conf"
+    args = [exe, str(conf), "--port", str(port), "--dir", str(data), "--appendonly", "no"]
+    proc = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    conn = redis.Redis(port=port)
+    for _ in range(250):
+        try:
+            conn.ping()
+            return proc
+        except redis.exceptions.ConnectionError:
+            time.sleep(0.02)
+    raise AssertionError("redis-server did not answer")
+
+
+def test_worker_rides_out_a_redis_restart(tmp_path: Path) -> None:
+    """A real ``spanwright worker`` whose Redis restarts (and, AOF off here, forgets every
+    key, the worker's registration included) keeps running: a plan submitted afterwards is
+    solved, and /readyz counts the worker again."""
+    if shutil.which("redis-server") is None:
+        pytest.fail("redis-server is not installed")
+    port = free_port()
+    url = f"redis://127.0.0.1:{port}/0"
+    proc = _redis_proc(port, tmp_path)
+    env = dict(os.environ, REDIS_URL=url, PYTHONPATH=str(ROOT))
+    worker = subprocess.Popen(
+        [sys.executable, "-m", "service.cli", "worker", "--log-level", "WARNING"],
+        cwd=ROOT,
+        env=env,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+    )
+    try:
+        api = create_app(Settings(redis_url=url), connection=redis.Redis.from_url(url))
+        client = api.test_client()
+        deadline = time.monotonic() + 60
+        while client.get("/readyz").status_code != 200:  # the worker is up
+            assert time.monotonic() < deadline, "the worker never became ready"
+            time.sleep(0.2)
+        proc.terminate()
+        proc.wait(5)
+        time.sleep(1.0)  # Redis is down for a second
+        proc = _redis_proc(port, tmp_path)
+        body = {"jobs": [{"id": "lh_gale_001", "duration": 40}], "node_count": 1}
+        r = client.post("/v1/plans", json=body, headers={"Prefer": "wait=10"})
+        assert r.status_code == 201, r.get_json()
+        assert worker.poll() is None  # still running
+        deadline = time.monotonic() + 60
+        while client.get("/readyz").status_code != 200:  # registered again
+            assert time.monotonic() < deadline, "the worker was never counted again"
+            time.sleep(0.5)
+    finally:
+        worker.terminate()
+        try:
+            worker.wait(10)
+        except subprocess.TimeoutExpired:  # a second signal is RQ's cold shutdown
+            worker.kill()
+            worker.wait(5)
+        proc.terminate()
+        proc.wait(5)
