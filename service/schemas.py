@@ -359,12 +359,12 @@ def job_columns(jobs: Any) -> JobColumns | None:
         named = [g for g in groups if g is not None]
         if size != 2 * n + len(named) or set(map(type, named)) != {str}:
             return None
-        if max(map(len, named)) > MAX_ID_LENGTH:
+        if max(map(len, named)) > MAX_ID_LENGTH or CONTROL.search("".join(named)):
             return None
     if set(map(type, ids)) != {str} or not set(map(type, durs)) <= _NUMBER_TYPES:
         return None
     lengths = list(map(len, ids))
-    if min(lengths) < 1 or max(lengths) > MAX_ID_LENGTH:
+    if min(lengths) < 1 or max(lengths) > MAX_ID_LENGTH or CONTROL.search("".join(ids)):
         return None
     try:
         d = np.array(durs, dtype=np.float64)

@@ -28,6 +28,7 @@ from ..problems import (
     IdempotencyKeyInFlight,
     IdempotencyKeyReused,
     NotFound,
+    PayloadTooLarge,
     StoreUnavailable,
     UnsupportedMediaType,
 )
@@ -118,10 +119,41 @@ def read_json_body() -> tuple[bytes, Any]:
             f"the body must be application/json, not {mt or 'unspecified'}",
         )
     raw = request.get_data(cache=False)  # 413 beyond MAX_CONTENT_LENGTH
+    _check_elements(raw, services().settings)  # before a Python object is made for each
     try:
         return raw, _loads(raw)
     except (ValueError, RecursionError) as exc:
         raise BadRequest(f"the body is not valid JSON: {exc}", [Issue("", str(exc))]) from None
+
+
+_STRING = re.compile(rb'"(?:[^"\\]|\\.)*"')
+
+
+def element_limit(settings: Settings) -> int:
+    """Most JSON values (objects, arrays, numbers, strings) a body may hold: a job or a
+    node takes at most about eight (itself, its fields, its tag lists), plus the rest of
+    the body. A body past it is refused before it is parsed, so a few megabytes of
+    ``[{},{},...]`` cannot cost a gigabyte of Python objects."""
+    return 8 * (settings.max_jobs + settings.max_nodes) + 10_000
+
+
+def _check_elements(raw: bytes, settings: Settings) -> None:
+    """413 when the body holds more JSON values than :func:`element_limit`.
+
+    Values are counted by their separators (``,`` and ``:``) and openers (``{``, ``[``);
+    the quick count over the raw bytes may include ones inside strings, so only a body
+    over the limit is counted again with its strings removed."""
+    limit = element_limit(settings)
+    if sum(map(raw.count, (b",", b":", b"{", b"["))) <= limit:
+        return
+    bare = _STRING.sub(b'""', raw)
+    if sum(map(bare.count, (b",", b":", b"{", b"["))) <= limit:
+        return
+    raise PayloadTooLarge(
+        f"the body holds more than {limit} JSON values; this service plans at most "
+        f"{settings.max_jobs} jobs on {settings.max_nodes} nodes",
+        [Issue("", "too many JSON values")],
+    )
 
 
 def idempotency_key() -> str | None:
