@@ -1,4 +1,4 @@
-"""Deadline confidence by simulation (workers/planning/confidence.py).
+"""Deadline confidence by simulation (workers/planning/confidence/).
 
 The references are outside the code under test: the lognormal moments (Johnson, Kotz and
 Balakrishnan, Continuous Univariate Distributions vol. 1, 2nd ed. 1994, ch. 14), the normal

@@ -1,0 +1,174 @@
+"""The confidence fields of a request: what a body asks the simulation for.
+
+:class:`SpreadRequest` reads ``spread``, ``confidence_samples``, ``confidence_seed``,
+``confidence`` and ``max_nodes`` from a request body; :func:`sizing_confidence` gives the
+``confidence`` and ``confidence_sizing`` fields of a sizing result.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+from ..errors import InvalidInstance, Issue
+from ..model import Instance
+from ..result import Schedule
+from .simulation import confidence_block
+from .spread import SpreadModel
+from .target import confidence_target, nodes_for_confidence
+
+#: request keys that ask for a simulation (as does any job's ``duration_p90``)
+SIMULATION_KEYS = ("spread", "confidence_samples", "confidence")
+DEFAULT_SAMPLES = 1000
+MAX_SEED = 2**32 - 1
+
+
+def _finite_number(x: object) -> bool:
+    return isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x)
+
+
+def _whole_number(x: object) -> bool:
+    return _finite_number(x) and float(x).is_integer()  # type: ignore[arg-type]
+
+
+@dataclass(frozen=True, slots=True)
+class SpreadRequest:
+    """What a request asks the simulation for: spread, samples, seed, maybe a target q."""
+
+    spread: float | None
+    samples: int
+    seed: int
+    #: the confidence q of "the fewest nodes with P(meet deadline) >= q", if asked
+    target: float | None = None
+    #: most nodes the sizing to ``target`` may answer (None: the sizing's default)
+    max_nodes: int | None = None
+
+    @classmethod
+    def from_body(cls, body: Mapping[str, Any]) -> SpreadRequest | None:
+        """Read ``spread``, ``confidence_samples``, ``confidence_seed`` and ``confidence``.
+
+        None when the body asks for no simulation: no job has ``duration_p90`` and none of
+        ``spread``, ``confidence_samples`` or ``confidence`` is given (as for plans, plus
+        the target). Types and ranges are checked here, so that a body that skipped the
+        API's schema (the command line) gets the same pointers.
+        """
+        jobs = body.get("jobs")
+        with_p90 = isinstance(jobs, list) and any(
+            isinstance(job, Mapping) and job.get("duration_p90") is not None for job in jobs
+        )
+        if not with_p90 and not any(key in body for key in SIMULATION_KEYS):
+            return None
+        issues: list[Issue] = []
+        spread = body.get("spread")
+        if spread is not None and not (_finite_number(spread) and spread >= 0):
+            issues.append(Issue("/spread", "must be a finite number >= 0"))
+        samples = body.get("confidence_samples", DEFAULT_SAMPLES)
+        if not (_whole_number(samples) and samples >= 1):
+            issues.append(Issue("/confidence_samples", "must be a whole number >= 1"))
+        seed = body.get("confidence_seed", 0)
+        if not (_whole_number(seed) and 0 <= seed <= MAX_SEED):
+            issues.append(Issue("/confidence_seed", f"must be a whole number in 0..{MAX_SEED}"))
+        target = body.get("confidence")
+        if target is not None and not (_finite_number(target) and 0 < target < 1):
+            issues.append(Issue("/confidence", "must be a number strictly between 0 and 1"))
+        max_nodes = body.get("max_nodes")
+        if max_nodes is not None and not (_whole_number(max_nodes) and max_nodes >= 1):
+            issues.append(Issue("/max_nodes", "must be a whole number >= 1"))
+        if issues:
+            raise InvalidInstance(f"{len(issues)} problem(s) with the spread inputs", issues)
+        return cls(
+            spread=None if spread is None else float(spread),
+            samples=int(samples),
+            seed=int(seed),
+            target=None if target is None else float(target),
+            max_nodes=None if max_nodes is None else int(max_nodes),
+        )
+
+    def check(self, inst: Instance, speed: float) -> None:
+        """The checks that need no sampling, for the jobs and deadline of ``inst``.
+
+        The spread model (a p90 on a zero estimate, a spread too wide to simulate) and,
+        with a target, :func:`confidence_target` on nodes of ``speed`` (q out of reach of
+        the sample count, or of any node count). Cheap: closed forms, no sampling.
+        """
+        if self.target is None:
+            SpreadModel.from_instance(inst, self.spread)
+            return
+        if inst.deadline is None:
+            raise InvalidInstance(
+                "sizing to a confidence needs a deadline", [Issue("/deadline", "required")]
+            )
+        confidence_target(
+            inst.durations,
+            inst.deadline,
+            self.target,
+            speed=speed,
+            duration_p90=inst.duration_p90,
+            spread=self.spread,
+            samples=self.samples,
+            job_ids=inst.job_ids,
+        )
+
+    def check_body(self, body: Mapping[str, Any]) -> None:
+        """:meth:`check` on a ``POST /v1/sizings`` body whose shape was already checked."""
+        jobs = body["jobs"]
+        node = body.get("node") or {}
+        one = Instance.build(
+            [float(job["duration"]) for job in jobs],
+            1,
+            job_ids=[str(job["id"]) for job in jobs],
+            deadline=float(body["deadline"]),
+            duration_p90=[job.get("duration_p90") for job in jobs],
+        )
+        self.check(one, float(node.get("speed", 1.0)))
+
+
+def sizing_confidence(
+    schedule: Schedule, asked: SpreadRequest, *, threads: int | None = None
+) -> dict[str, Any]:
+    """The ``confidence`` and ``confidence_sizing`` fields of a sizing result.
+
+    ``schedule`` is the sizing's answer: its plan on ``nodes_needed`` nodes of the sized
+    kind, with the sizing's deadline. ``confidence`` is :func:`confidence_block` of that
+    plan (static, with dynamic inside), exactly as for a plan. With a target q,
+    ``confidence_sizing`` is :func:`nodes_for_confidence` for nodes of the same speed, at
+    most ``asked.max_nodes`` (the sizing's own default when absent). The kind's
+    ``provides`` need not be passed on: the sizing has already refused any job whose
+    ``requires`` the kind lacks, so every node of the kind may run every job, which is
+    what the identical nodes of that search assume. The checks that need no sampling run
+    first, so a q out of reach fails before anything is simulated.
+    """
+    inst = schedule.instance
+    speed = inst.nodes[0].speed
+    asked.check(inst, speed)
+    out: dict[str, Any] = {
+        "confidence": confidence_block(
+            schedule,
+            spread=asked.spread,
+            samples=asked.samples,
+            seed=asked.seed,
+            deadline=inst.deadline,
+            threads=threads,
+        )
+    }
+    if asked.target is not None:
+        from ..sizing import DEFAULT_MAX_NODES  # the sizing's own cap on the answer
+
+        assert inst.deadline is not None  # check() refused a target without a deadline
+        answer = nodes_for_confidence(
+            inst.durations,
+            inst.deadline,
+            asked.target,
+            speed=speed,
+            duration_p90=inst.duration_p90,
+            spread=asked.spread,
+            samples=asked.samples,
+            seed=asked.seed,
+            max_nodes=DEFAULT_MAX_NODES if asked.max_nodes is None else asked.max_nodes,
+            threads=threads,
+            job_ids=inst.job_ids,
+        )
+        out["confidence_sizing"] = answer.to_dict()
+    return out
