@@ -23,11 +23,22 @@ from . import commands
 EXIT_OK, EXIT_FAILURE, EXIT_INVALID = 0, 1, 2
 
 
+def _version() -> str:
+    """The installed distribution's version (pyproject.toml)."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("spanwright")
+    except PackageNotFoundError:  # pragma: no cover - run from a tree never installed
+        return "unknown"
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="spanwright",
         description="Plan render and transcode batches onto farm nodes, with certificates.",
     )
+    parser.add_argument("--version", action="version", version=f"spanwright {_version()}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for info in sorted(pkgutil.iter_modules(commands.__path__), key=lambda i: i.name):
         if info.name.startswith("_"):
@@ -46,8 +57,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         code: int = args._run(args)
     except SpanwrightError as exc:
         print(f"spanwright: {exc.detail}", file=sys.stderr)
-        if exc.issues:
-            print(format_issues(exc.issues), file=sys.stderr)
+        # an issue of the whole body that only repeats the message is not printed again
+        rest = [i for i in exc.issues if i.pointer or i.detail not in exc.detail]
+        if rest:
+            print(format_issues(rest), file=sys.stderr)
         return EXIT_INVALID if exc.status < 500 else EXIT_FAILURE
     except KeyboardInterrupt:
         return 130

@@ -124,3 +124,21 @@ def test_replan_events_refused_alike(
         files.append(str(f))
     assert main(["replan", *files, "--json"]) == 2
     assert "/finised" in capsys.readouterr().err
+
+
+def test_version_and_one_clean_error_line(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """``--version`` prints the installed version (importlib.metadata, the packaging
+    standard); a file that is not JSON gives one error line, not a second ``/: ...``."""
+    from importlib.metadata import version
+
+    with pytest.raises(SystemExit) as stop:
+        main(["--version"])
+    assert stop.value.code == 0
+    assert capsys.readouterr().out.strip() == f"spanwright {version('spanwright')}"
+    f = tmp_path / "bad.json"
+    f.write_text("not json")
+    assert main(["solve", str(f)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("spanwright: ")
