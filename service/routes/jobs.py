@@ -27,8 +27,8 @@ from ..problems import (
     BadRequest,
     IdempotencyKeyInFlight,
     IdempotencyKeyReused,
+    LimitExceeded,
     NotFound,
-    PayloadTooLarge,
     StoreUnavailable,
     UnsupportedMediaType,
 )
@@ -138,7 +138,8 @@ def element_limit(settings: Settings) -> int:
 
 
 def _check_elements(raw: bytes, settings: Settings) -> None:
-    """413 when the body holds more JSON values than :func:`element_limit`.
+    """422 ``limit-exceeded`` when the body holds more JSON values than
+    :func:`element_limit` (as for more jobs than ``max_jobs``).
 
     Values are counted by their separators (``,`` and ``:``) and openers (``{``, ``[``);
     the quick count over the raw bytes may include ones inside strings, so only a body
@@ -149,7 +150,7 @@ def _check_elements(raw: bytes, settings: Settings) -> None:
     bare = _STRING.sub(b'""', raw)
     if sum(map(bare.count, (b",", b":", b"{", b"["))) <= limit:
         return
-    raise PayloadTooLarge(
+    raise LimitExceeded(
         f"the body holds more than {limit} JSON values; this service plans at most "
         f"{settings.max_jobs} jobs on {settings.max_nodes} nodes",
         [Issue("", "too many JSON values")],

@@ -76,7 +76,7 @@ def test_a_body_of_countless_empty_objects_is_refused_before_parsing(
     settings: Any, conn: Any
 ) -> None:
     """``{"zzz":[{},{},...]}`` (two million empty objects, 6 MB) under the shipped limits
-    (200,000 jobs, 10,000 nodes, 32 MiB bodies): 413 payload-too-large before a Python
+    (200,000 jobs, 10,000 nodes, 32 MiB bodies): 422 limit-exceeded before a Python
     object is made for each (the hostile case of the availability audit); a real batch of
     5,000 jobs is not refused by it (control case)."""
     import dataclasses
@@ -97,8 +97,8 @@ def test_a_body_of_countless_empty_objects_is_refused_before_parsing(
     client = app.test_client()
     raw = b'{"zzz":[' + b",".join([b"{}"] * 2_000_000) + b"]}"
     r = client.post("/v1/plans", data=raw, content_type="application/json")
-    assert r.status_code == 413
-    assert r.get_json()["type"].endswith("payload-too-large")
+    assert r.status_code == 422
+    assert r.get_json()["type"].endswith("limit-exceeded")
     jobs = [{"id": f"lh_dune_{i:06d}_beauty_layer_a", "duration": 60 + i % 7} for i in range(5000)]
     ok = client.post("/v1/plans", json={"jobs": jobs, "node_count": 40})
     assert ok.status_code == 202
