@@ -44,6 +44,7 @@ from typing import Any
 
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
+sys.path.insert(0, str(REPO / "tests"))  # live.py, which spanwright_topology uses
 sys.path.insert(0, str(REPO / "tests" / "deploy"))
 
 import redis  # noqa: E402

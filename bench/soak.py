@@ -30,7 +30,6 @@ import json
 import os
 import shutil
 import signal
-import socket
 import statistics
 import subprocess
 import sys
@@ -41,12 +40,9 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 TENANTS = ("lanternhill", "brightwater", "copperfield", "mossgate")
+sys.path.insert(0, str(ROOT / "tests"))
 
-
-def free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
+from live import free_port  # noqa: E402
 
 
 def rss_kb(pid: int) -> int:

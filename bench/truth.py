@@ -160,9 +160,21 @@ def ids(n: int) -> list[str]:
     return [f"j{i}" for i in range(n)]
 
 
+def refused(exc: Exception, most: int) -> tuple[list[str], list[str]]:
+    """(failure kinds, sentences) of an instance that raised ``exc``: a refusal
+    (InvalidInstance), wrong below 2**50 ticks, or a crash, which this bench counts."""
+    from workers.planning import InvalidInstance
+
+    if not isinstance(exc, InvalidInstance):
+        return [f"crash {type(exc).__name__}"], [f"{type(exc).__name__}: {exc}"]
+    if most <= ACCEPT_TICKS:
+        return ["wrong refusals"], [f"refused below 2**50 ticks: {exc}"]
+    return ["refused"], []
+
+
 def check_plan(inst: dict[str, Any], method: str, budget: float) -> tuple[list[str], list[str]]:
     """(failure kinds, sentences) of one method on one instance."""
-    from workers.planning import Instance, InvalidInstance, Node, solve
+    from workers.planning import Instance, Node, solve
 
     d, nodes, opt = inst["durations"], inst["nodes"], inst["opt"]
     most, longest = ticks(inst)
@@ -176,12 +188,8 @@ def check_plan(inst: dict[str, Any], method: str, budget: float) -> tuple[list[s
             resolution=inst["resolution"],
         )
         r = solve(built, method, time_budget=budget).to_dict()
-    except InvalidInstance as exc:
-        if most <= ACCEPT_TICKS:
-            return ["wrong refusals"], [f"refused below 2**50 ticks: {exc}"]
-        return ["refused"], []
-    except Exception as exc:  # a crash is what this bench counts
-        return [f"crash {type(exc).__name__}"], [f"{type(exc).__name__}: {exc}"]
+    except Exception as exc:  # a refusal, or a crash (which this bench counts)
+        return refused(exc, most)
     kinds: list[str] = []
     why: list[str] = []
     above = {k: v for k, v in r["bounds"].items() if Fraction(v) > opt}
@@ -213,7 +221,7 @@ def check_plan(inst: dict[str, Any], method: str, budget: float) -> tuple[list[s
 
 def check_sizing(inst: dict[str, Any], budget: float) -> tuple[list[str], list[str]]:
     """(failure kinds, sentences) of sizing on one instance."""
-    from workers.planning import Infeasible, InvalidInstance, Node
+    from workers.planning import Infeasible, Node
     from workers.planning.sizing import size
 
     d, speed, deadline = inst["durations"], inst["size_speed"], inst["size_deadline"]
@@ -234,12 +242,8 @@ def check_sizing(inst: dict[str, Any], budget: float) -> tuple[list[str], list[s
         if truth is None:
             return [], []
         return ["wrong sizings"], [f"Infeasible, but {truth} node(s) can: {exc}"]
-    except InvalidInstance as exc:
-        if most <= ACCEPT_TICKS:
-            return ["wrong refusals"], [f"refused below 2**50 ticks: {exc}"]
-        return ["refused"], []
-    except Exception as exc:  # a crash is what this bench counts
-        return [f"crash {type(exc).__name__}"], [f"{type(exc).__name__}: {exc}"]
+    except Exception as exc:  # a refusal, or a crash (which this bench counts)
+        return refused(exc, most)
     if truth is None:
         return ["wrong sizings"], [f"{r['nodes_needed']} node(s), but no count can do it"]
     kinds: list[str] = []

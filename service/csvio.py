@@ -11,13 +11,11 @@ from __future__ import annotations
 import csv
 import io
 import math
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from typing import Any
 
 from workers.planning.errors import InvalidInstance, Issue
 
-JOB_COLUMNS = ("id", "duration", "group", "requires", "duration_p90")
-NODE_COLUMNS = ("id", "speed", "provides", "free_at")
 ASSIGNMENT_COLUMNS = ("node", "job", "start", "end")
 
 
@@ -69,50 +67,72 @@ def _number(value: str, line: int, header: list[str], name: str, *, low: float =
     return x
 
 
-def _tags(value: str) -> list[str]:
+def _speed(value: str, line: int, header: list[str], name: str) -> float:
+    return _number(value, line, header, name, low=1e-9)
+
+
+def _tags(value: str, line: int, header: list[str], name: str) -> list[str]:
     return [t for t in value.replace(";", " ").split() if t]
+
+
+def _text(value: str, line: int, header: list[str], name: str) -> str:
+    return value
+
+
+def _job_id(value: str, line: int, header: list[str], name: str) -> str:
+    if not value:
+        raise CsvError(
+            f"line {line}, column {header.index(name) + 1} (id): empty",
+            [Issue("", f"line {line}: empty id")],
+        )
+    return value
+
+
+#: how a cell becomes a field: (text, line number, header, column name) -> value
+Reader = Callable[[str, int, list[str], str], Any]
+#: the columns of a batch and of a farm CSV, in order, and how each is read
+JOB_READERS: dict[str, Reader] = {
+    "id": _job_id,
+    "duration": _number,
+    "group": _text,
+    "requires": _tags,
+    "duration_p90": _number,
+}
+NODE_READERS: dict[str, Reader] = {
+    "id": _text,
+    "speed": _speed,
+    "provides": _tags,
+    "free_at": _number,
+}
+
+
+def _read(
+    text: str, readers: dict[str, Reader], required: tuple[str, ...], what: str, items: str
+) -> list[dict[str, Any]]:
+    """Every data row as a JSON object: the required columns always, the others when filled,
+    in the order of ``readers``; refused when there is no data row."""
+    out = []
+    for line, row, header in _rows(text, tuple(readers), required, what):
+        out.append(
+            {
+                name: read(row[name], line, header, name)
+                for name, read in readers.items()
+                if name in required or row.get(name)
+            }
+        )
+    if not out:
+        raise CsvError(f"the {what} CSV has no {items}", [Issue("", "no data rows")])
+    return out
 
 
 def read_jobs_csv(text: str) -> list[dict[str, Any]]:
     """Jobs of a batch CSV as the JSON objects of ``POST /v1/plans``."""
-    jobs = []
-    for line, row, header in _rows(text, JOB_COLUMNS, ("id", "duration"), "batch"):
-        if not row["id"]:
-            raise CsvError(
-                f"line {line}, column {header.index('id') + 1} (id): empty",
-                [Issue("", f"line {line}: empty id")],
-            )
-        job: dict[str, Any] = {
-            "id": row["id"],
-            "duration": _number(row["duration"], line, header, "duration"),
-        }
-        if row.get("group"):
-            job["group"] = row["group"]
-        if row.get("requires"):
-            job["requires"] = _tags(row["requires"])
-        if row.get("duration_p90"):
-            job["duration_p90"] = _number(row["duration_p90"], line, header, "duration_p90")
-        jobs.append(job)
-    if not jobs:
-        raise CsvError("the batch CSV has no jobs", [Issue("", "no data rows")])
-    return jobs
+    return _read(text, JOB_READERS, ("id", "duration"), "batch", "jobs")
 
 
 def read_nodes_csv(text: str) -> list[dict[str, Any]]:
     """Nodes of a farm CSV as the JSON objects of ``POST /v1/plans``."""
-    nodes = []
-    for line, row, header in _rows(text, NODE_COLUMNS, ("id",), "farm"):
-        node: dict[str, Any] = {"id": row["id"]}
-        if row.get("speed"):
-            node["speed"] = _number(row["speed"], line, header, "speed", low=1e-9)
-        if row.get("provides"):
-            node["provides"] = _tags(row["provides"])
-        if row.get("free_at"):
-            node["free_at"] = _number(row["free_at"], line, header, "free_at")
-        nodes.append(node)
-    if not nodes:
-        raise CsvError("the farm CSV has no nodes", [Issue("", "no data rows")])
-    return nodes
+    return _read(text, NODE_READERS, ("id",), "farm", "nodes")
 
 
 def assignment_rows(assignment: Iterable[dict[str, Any]]) -> list[tuple[str, str, float, float]]:

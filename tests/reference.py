@@ -238,6 +238,12 @@ def exact_min_nodes(
     return min(k, n)
 
 
+def _job_index(n: int, job_ids: Sequence[str] | None) -> dict[str, int]:
+    """{job id: job index}, the ids ``job_ids`` or by default ``job-<j>``."""
+    ids = list(job_ids) if job_ids is not None else [f"job-{j}" for j in range(n)]
+    return {x: j for j, x in enumerate(ids)}
+
+
 def plan_problems(
     result: Mapping[str, Any],
     durations: Sequence[float | Fraction],
@@ -265,8 +271,7 @@ def plan_problems(
     n = len(durations)
     nd = _exact_nodes(nodes)
     req = _exact_requires(n, requires)
-    ids = list(job_ids) if job_ids is not None else [f"job-{j}" for j in range(n)]
-    index = {x: j for j, x in enumerate(ids)}
+    index = _job_index(n, job_ids)
     plan = result.get("assignment", result.get("plan"))
     out: list[str] = []
     if not isinstance(plan, list) or len(plan) != len(nd):
@@ -339,8 +344,7 @@ def exact_plan_makespan(
     """The exact makespan of a result's assignment: the latest node finish, ``free_at``
     plus the exact sum of its jobs' durations over its speed (the stated times unused)."""
     nd = _exact_nodes(nodes)
-    ids = list(job_ids) if job_ids is not None else [f"job-{j}" for j in range(len(durations))]
-    index = {x: j for j, x in enumerate(ids)}
+    index = _job_index(len(durations), job_ids)
     plan = result.get("assignment", result.get("plan"))
     assert isinstance(plan, list) and len(plan) == len(nd)
     finish = []
@@ -350,16 +354,10 @@ def exact_plan_makespan(
     return max(finish)
 
 
-def check_plan_exact(
-    result: Mapping[str, Any],
-    durations: Sequence[float | Fraction],
-    nodes: int | Sequence[ExactNode],
-    requires: Sequence[Iterable[str]] | None = None,
-    job_ids: Sequence[str] | None = None,
-    deadline: float | None = None,
-) -> None:
-    """Raise AssertionError listing every problem :func:`plan_problems` finds."""
-    problems = plan_problems(result, durations, nodes, requires, job_ids, deadline)
+def check_plan_exact(*args: Any, **kwargs: Any) -> None:
+    """Raise AssertionError listing every problem :func:`plan_problems` finds (called with
+    the same arguments)."""
+    problems = plan_problems(*args, **kwargs)
     assert not problems, "; ".join(problems[:10])
 
 

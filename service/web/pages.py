@@ -151,15 +151,22 @@ def list_rows(items: list[dict[str, Any]]) -> list[dict[str, str]]:
     return rows
 
 
+def _record_context(kind: str, record: dict[str, Any]) -> tuple[dict[str, Any], bool]:
+    """The template values every record's page starts from (title, the record under the name
+    of its ``kind``, the self-refresh while it is worked on), and whether it is."""
+    working = record.get("status") in ("queued", "solving")
+    ctx: dict[str, Any] = {
+        "title": f"{kind} {record['id']}",
+        kind: record,
+        "refresh": REFRESH_SECONDS if working else None,
+    }
+    return ctx, working
+
+
 def plan_context(plan: dict[str, Any], groups: dict[str, str]) -> dict[str, Any]:
     """Template values for one plan's page (``plan`` is the API's status body)."""
     result = plan.get("result")
-    working = plan.get("status") in ("queued", "solving")
-    ctx: dict[str, Any] = {
-        "title": f"plan {plan['id']}",
-        "plan": plan,
-        "refresh": REFRESH_SECONDS if working else None,
-    }
+    ctx, working = _record_context("plan", plan)
     progress = plan.get("progress") or {}
     history = plan.get("progress_history") or []
     if history:
@@ -231,12 +238,7 @@ def sizing_context(sizing: dict[str, Any]) -> dict[str, Any]:
     Both mark the answer (``nodes_needed``) with a labelled line; the table marks its row.
     """
     result = sizing.get("result")
-    working = sizing.get("status") in ("queued", "solving")
-    ctx: dict[str, Any] = {
-        "title": f"sizing {sizing['id']}",
-        "sizing": sizing,
-        "refresh": REFRESH_SECONDS if working else None,
-    }
+    ctx, working = _record_context("sizing", sizing)
     progress = sizing.get("progress") or {}
     if working and progress.get("nodes_needed") is not None:
         text = (

@@ -32,31 +32,12 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import pytest
+from live import free_port
 
 REPO = Path(__file__).resolve().parents[2]
 DEPLOY = REPO / "deploy"
 UNIT_SRC = "/opt/spanwright/src"
 UNIT_VENV_BIN = "/opt/spanwright/venv/bin/"
-
-
-def require(*programs: str) -> None:
-    """Skip (or, with SPANWRIGHT_REQUIRE_SERVERS=1, fail) unless every program is installed."""
-    venv_bin = Path(sys.executable).parent
-    missing = [p for p in programs if not (shutil.which(p) or (venv_bin / p).exists())]
-    if missing:
-        msg = f"not installed: {', '.join(missing)}"
-        if os.environ.get("SPANWRIGHT_REQUIRE_SERVERS") == "1":
-            pytest.fail(msg + " (SPANWRIGHT_REQUIRE_SERVERS=1)")
-        pytest.skip(msg)
-
-
-def free_port() -> int:
-    """A TCP port free on 127.0.0.1 right now."""
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        port: int = s.getsockname()[1]
-        return port
 
 
 def parse_unit(path: Path) -> dict[str, list[tuple[str, str]]]:
@@ -153,6 +134,18 @@ def http(
             return resp.status, dict(resp.headers.items()), resp.read()
     except urllib.error.HTTPError as exc:
         return exc.code, dict(exc.headers.items()), exc.read()
+
+
+def samples(text: str) -> dict[tuple[str, tuple[tuple[str, str], ...]], float]:
+    """{(sample name, sorted labels): value} of a whole ``/metrics`` exposition, read with
+    prometheus_client's own parser."""
+    from prometheus_client.parser import text_string_to_metric_families
+
+    out: dict[tuple[str, tuple[tuple[str, str], ...]], float] = {}
+    for fam in text_string_to_metric_families(text):
+        for s in fam.samples:
+            out[(s.name, tuple(sorted(s.labels.items())))] = s.value
+    return out
 
 
 @dataclass

@@ -24,13 +24,13 @@ from typing import Any
 import fakeredis
 import pytest
 import yaml
+from live import require
 from spanwright_topology import (
     DEPLOY,
     REPO,
     UNIT_SRC,
     UNIT_VENV_BIN,
     parse_unit,
-    require,
     unit_environment,
     unit_value,
 )

@@ -13,7 +13,8 @@ from pathlib import Path
 
 import fakeredis
 import pytest
-from spanwright_topology import Topology, free_port, require
+from live import free_port, require
+from spanwright_topology import Topology
 
 from service.app import create_app
 from service.logs import (

@@ -18,7 +18,7 @@ from typing import Any
 
 import fakeredis
 import pytest
-from prometheus_client.parser import text_string_to_metric_families
+from spanwright_topology import samples
 
 from service.app import create_app
 from service.metrics import (
@@ -35,15 +35,6 @@ from service.settings import Settings
 from service.store import STATUSES, Store
 
 REPO = Path(__file__).resolve().parents[2]
-
-
-def samples(text: str) -> dict[tuple[str, tuple[tuple[str, str], ...]], float]:
-    """{(sample name, sorted labels): value} of a whole exposition."""
-    out: dict[tuple[str, tuple[tuple[str, str], ...]], float] = {}
-    for fam in text_string_to_metric_families(text):
-        for s in fam.samples:
-            out[(s.name, tuple(sorted(s.labels.items())))] = s.value
-    return out
 
 
 def scrape(conn: fakeredis.FakeRedis, settings: Settings, cap: int = 20_000) -> dict[Any, float]:

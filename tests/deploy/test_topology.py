@@ -24,8 +24,8 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import pytest
-from prometheus_client.parser import text_string_to_metric_families
-from spanwright_topology import Topology, http, require
+from live import require
+from spanwright_topology import Topology, http, samples
 
 PLANS = 500
 CLIENTS = 4
@@ -119,14 +119,6 @@ def run(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Run]:
         topo.stop()
         alive = [name for name, p in topo.procs.items() if p.poll() is None]
         assert not alive, f"still running after stop: {alive}"
-
-
-def samples(text: str) -> dict[tuple[str, tuple[tuple[str, str], ...]], float]:
-    out: dict[tuple[str, tuple[tuple[str, str], ...]], float] = {}
-    for fam in text_string_to_metric_families(text):
-        for s in fam.samples:
-            out[(s.name, tuple(sorted(s.labels.items())))] = s.value
-    return out
 
 
 @pytest.mark.slow

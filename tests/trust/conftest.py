@@ -1,5 +1,5 @@
-"""Fixtures of the trust tests: apps with a keys file on fakeredis, and the real-process
-fixtures of ``tests/service/conftest.py`` (redis-server, ``spanwright worker``) re-used.
+"""Fixtures of the trust tests: apps with a keys file on fakeredis (the real redis-server
+is the session's, ``redis_server`` in tests/conftest.py).
 
 The tenants are productions of an invented studio: ``lanternhill`` and ``brightwater``;
 ``ops`` holds the operators' admin key.
@@ -13,10 +13,10 @@ from typing import Any
 
 import fakeredis
 import pytest
+from stack import run_queue, small_settings
 
 from service.app import create_app
 from service.settings import Settings
-from tests.service.conftest import RealStack, WorkerProcs, free_port, redis_server  # noqa: F401
 
 KEYS = {
     "lanternhill": "lh-7f3a9c0e5b2d4a1f8e6c",
@@ -46,17 +46,10 @@ def keys_file(tmp_path: Path) -> Path:
 @pytest.fixture
 def trust_settings(keys_file: Path) -> Settings:
     """Small limits so each one is cheap to reach."""
-    return Settings(
+    return small_settings(
+        "swtrust",
         keys_file=str(keys_file),
-        max_jobs=500,
-        max_nodes=50,
-        max_time_budget=2.0,
-        default_time_budget=0.5,
         max_wait=2.0,
-        max_request_bytes=200_000,
-        retention=600,
-        key_prefix="swtrust",
-        queue_name="swtrust",
         max_queued_per_tenant=5,
         max_queued_total=8,
         rate_limit=40,
@@ -78,17 +71,7 @@ def keyed_app(trust_settings: Settings, fake_server: fakeredis.FakeServer) -> An
 @pytest.fixture
 def drain_queue(fake_server: fakeredis.FakeServer, trust_settings: Settings) -> Any:
     """Run every queued job now, in this thread (SimpleWorker, burst)."""
-    from rq import Queue, SimpleWorker
-    from rq.serializers import JSONSerializer
-
-    def run() -> None:
-        c = fakeredis.FakeRedis(server=fake_server)
-        q = Queue(trust_settings.queue_name, connection=c, serializer=JSONSerializer)
-        SimpleWorker([q], connection=c, serializer=JSONSerializer).work(
-            burst=True, logging_level="WARNING"
-        )
-
-    return run
+    return lambda: run_queue(fake_server, trust_settings.queue_name)
 
 
 def small_batch(n: int = 4, name: str = "ep01 shot 010") -> dict[str, Any]:

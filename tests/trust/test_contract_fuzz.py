@@ -31,15 +31,13 @@ from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
-import fakeredis
 import pytest
 import schemathesis
 import yaml
 from hypothesis import HealthCheck, settings
 from schemathesis import checks
+from stack import UNTHROTTLED, embedded_app
 
-from service.app import create_app
-from service.embedded import EmbeddedWorker
 from service.metrics import init_metrics
 from service.settings import Settings
 from tests.trust.conftest import KEYS, write_keys
@@ -109,17 +107,11 @@ def fuzz_app(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Any]:
         max_time_budget=0.2,
         default_time_budget=0.1,
         max_jobs=2000,
-        rate_limit=1_000_000,
-        max_queued_per_tenant=100_000,
-        max_queued_total=100_000,
+        **UNTHROTTLED,
     )
-    server = fakeredis.FakeServer()
-    worker = EmbeddedWorker(server, s).start()
-    conn = fakeredis.FakeRedis(server=server)
-    app = create_app(s, connection=conn)
-    init_metrics(app, s, conn)
-    yield app
-    worker.stop(timeout=0)
+    with embedded_app(s) as (app, conn):
+        init_metrics(app, s, conn)
+        yield app
 
 
 def run_case(mode: str, case: Any, app: Any) -> None:

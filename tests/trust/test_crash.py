@@ -18,9 +18,7 @@ from __future__ import annotations
 
 import os
 import random
-import shutil
 import signal
-import subprocess
 import threading
 import time
 from collections.abc import Iterator
@@ -29,13 +27,12 @@ from typing import Any
 
 import pytest
 import redis
+from live import RedisServer
+from stack import UNTHROTTLED, RealStack
 
-from service.app import create_app
-from service.settings import Settings
-from tests.trust.conftest import WorkerProcs, free_port
-
-ROOT = Path(__file__).resolve().parents[2]
 FINISHED = ("done", "failed", "cancelled")
+#: the real stack of both tests: results kept 15 min, a 5 s crash-guard margin, no throttling
+STACK: dict[str, Any] = {"retention": 900, "job_timeout_margin": 5, **UNTHROTTLED}
 
 
 def hard_exact_plan(seed: int, budget: float) -> dict[str, Any]:
@@ -55,33 +52,6 @@ def hard_exact_plan(seed: int, budget: float) -> dict[str, Any]:
         "method": "exact",
         "time_budget": budget,
     }
-
-
-def stack_settings(url: str, prefix: str) -> Settings:
-    return Settings(
-        redis_url=url,
-        key_prefix=prefix,
-        queue_name=prefix,
-        retention=900,
-        max_wait=10.0,
-        max_time_budget=10.0,
-        job_timeout_margin=5,
-        rate_limit=100_000,
-        max_queued_per_tenant=10_000,
-        max_queued_total=10_000,
-    )
-
-
-def worker_env(url: str, prefix: str) -> dict[str, str]:
-    env = dict(os.environ)
-    env.update(
-        REDIS_URL=url,
-        SPANWRIGHT_KEY_PREFIX=prefix,
-        SPANWRIGHT_QUEUE_NAME=prefix,
-        SPANWRIGHT_RETENTION="900",
-        PYTHONPATH=str(ROOT),
-    )
-    return env
 
 
 def wait_workers(conn: redis.Redis, queue: str, n: int, timeout: float = 60.0) -> None:
@@ -120,11 +90,8 @@ def test_kill9_worker_mid_solve_ten_times(redis_server: str) -> None:
     none lost, none stuck. Then one plan whose both attempts are killed ends ``failed``
     naming RQ's AbandonedJobError. The recovery times are printed."""
     prefix = f"kill{os.getpid()}"
-    settings = stack_settings(redis_server, prefix)
-    conn = redis.Redis.from_url(redis_server)
-    app = create_app(settings)
-    client = app.test_client()
-    workers = WorkerProcs(worker_env(redis_server, prefix))
+    stack = RealStack(redis_server, prefix, **STACK)
+    conn, client, workers = stack.redis, stack.client, stack.workers
     recoveries: list[float] = []
     outcomes: list[dict[str, Any]] = []
     try:
@@ -193,61 +160,10 @@ def test_kill9_worker_mid_solve_ten_times(redis_server: str) -> None:
     assert max(recoveries) <= 90
 
 
-class RedisProc:
-    """A redis-server of our own (it is killed on purpose), deploy/redis.conf, AOF on."""
-
-    def __init__(self, data: Path) -> None:
-        exe = shutil.which("redis-server")
-        if exe is None:
-            if os.environ.get("SPANWRIGHT_REQUIRE_SERVERS") == "1":
-                pytest.fail("redis-server is not installed and SPANWRIGHT_REQUIRE_SERVERS=1")
-            pytest.skip("redis-server is not installed")
-        self.exe, self.data, self.port = exe, data, free_port()
-        self.proc: subprocess.Popen[bytes] | None = None
-
-    @property
-    def url(self) -> str:
-        return f"redis://127.0.0.1:{self.port}/0"
-
-    def start(self) -> None:
-        self.proc = subprocess.Popen(
-            [
-                self.exe,
-                str(ROOT / "deploy" / "redis.conf"),
-                "--port",
-                str(self.port),
-                "--dir",
-                str(self.data),
-            ],
-            stdout=subprocess.DEVNULL,
-            stderr=subprocess.DEVNULL,
-            start_new_session=True,
-        )
-        c = redis.Redis.from_url(self.url)
-        for _ in range(500):
-            try:
-                if c.ping():
-                    return
-            except redis.exceptions.ConnectionError:
-                time.sleep(0.02)
-            except redis.exceptions.BusyLoadingError:
-                time.sleep(0.02)
-        raise AssertionError("redis-server did not answer")
-
-    def kill(self) -> None:
-        assert self.proc is not None
-        self.proc.send_signal(signal.SIGKILL)
-        self.proc.wait()
-
-    def stop(self) -> None:
-        if self.proc is not None and self.proc.poll() is None:
-            self.proc.terminate()
-            self.proc.wait(10)
-
-
 @pytest.fixture
-def own_redis(tmp_path: Path) -> Iterator[RedisProc]:
-    r = RedisProc(tmp_path)
+def own_redis(tmp_path: Path) -> Iterator[RedisServer]:
+    """A redis-server of its own (it is killed on purpose), deploy/redis.conf, AOF on."""
+    r = RedisServer(tmp_path)
     r.start()
     try:
         yield r
@@ -266,16 +182,15 @@ def small_plan(i: int) -> dict[str, Any]:
 
 
 @pytest.mark.slow
-def test_redis_restart_mid_stream_loses_no_accepted_plan(own_redis: RedisProc) -> None:
+def test_redis_restart_mid_stream_loses_no_accepted_plan(own_redis: RedisServer) -> None:
     """4 clients submit plans for ~6 s; at ~3 s redis-server is killed with SIGKILL and
     restarted from its AOF. Every plan whose 202 was sent more than 1 s before the kill
     exists afterwards (0 lost) and every existing plan finishes within 90 s. A worker that
     exits on the lost connection is restarted, as the systemd unit's ``Restart=always``
     does in the deployment."""
     prefix = "rst"
-    settings = stack_settings(own_redis.url, prefix)
-    app = create_app(settings)
-    workers = WorkerProcs(worker_env(own_redis.url, prefix))
+    stack = RealStack(own_redis.url, prefix, **STACK)
+    app, workers = stack.app, stack.workers
     accepted: list[tuple[str, float]] = []
     refused = [0]
     lock = threading.Lock()
@@ -312,7 +227,7 @@ def test_redis_restart_mid_stream_loses_no_accepted_plan(own_redis: RedisProc) -
     try:
         workers.start()
         workers.start()
-        wait_workers(redis.Redis.from_url(own_redis.url), prefix, 2)
+        wait_workers(stack.redis, prefix, 2)
         supervisor.start()
         threads = [threading.Thread(target=submitter, args=(k,)) for k in range(4)]
         for t in threads:

@@ -14,14 +14,10 @@ import pytest
 from scipy.optimize import Bounds, LinearConstraint, milp
 
 from workers.planning import Infeasible, Instance, Node, solve
-from workers.planning.farm import (
-    KOVACS_2010,
-    earliest_finish_classes,
-    improve,
-    node_classes,
-)
+from workers.planning.farm import KOVACS_2010, node_classes
 from workers.planning.farm_bounds import eligibility, farm_lower_bounds
-from workers.planning.kernels import earliest_finish
+from workers.planning.farm_kernels import _sift_down, earliest_finish_classes, improve
+from workers.planning.kernels import earliest_finish, pure
 
 
 def reference_optimum(inst: Instance) -> float:
@@ -291,9 +287,37 @@ def test_improve_pure_python_path_matches_compiled() -> None:
     members, cstart, celig = node_classes(inst, elig)
     args = (inst.durations, s, f, elig.job_type, elig.eligible, order, celig, cstart, members)
     ra = improve(a, *args, 1000)
-    rb = improve.py_func(b, *args, 1000)
+    rb = pure(improve)(b, *args, 1000)
     assert ra == rb and np.array_equal(a, b)
     assert ra[0] > 0
+
+
+def test_sift_down_pure_python_path_matches_compiled() -> None:
+    """The class heaps' sift-down builds the same heap compiled and as plain Python, and
+    that heap has the heap property on (load, node index), checked here on every parent
+    and child (J. W. J. Williams, "Algorithm 232: Heapsort", CACM 7, 1964); the rest of
+    the array is left alone."""
+    rng = np.random.default_rng(11)
+    for _ in range(30):
+        size, lo = int(rng.integers(1, 40)), int(rng.integers(0, 5))
+        total = lo + size + 3
+        load = rng.integers(0, 6, total).astype(np.float64)  # equal loads: ties by index
+        base = rng.permutation(total).astype(np.int64)
+        heaps = []
+        for sift in (_sift_down, pure(_sift_down)):
+            heap = base.copy()
+            for i in range(size // 2 - 1, -1, -1):
+                sift(heap, lo, size, i, load)
+            heaps.append(heap)
+        assert np.array_equal(heaps[0], heaps[1])
+        heap = heaps[1]
+        part = heap[lo : lo + size]
+        for c in range(1, size):
+            p = (c - 1) // 2
+            assert (load[part[p]], part[p]) < (load[part[c]], part[c])
+        assert sorted(part.tolist()) == sorted(base[lo : lo + size].tolist())
+        assert np.array_equal(heap[:lo], base[:lo])
+        assert np.array_equal(heap[lo + size :], base[lo + size :])
 
 
 def test_class_heap_lpt_equals_plain_earliest_finish() -> None:
@@ -322,7 +346,7 @@ def test_class_heap_lpt_equals_plain_earliest_finish() -> None:
         f = np.array([nd.free_at for nd in inst.nodes])
         members, cstart, celig = node_classes(inst, elig)
         for order in (inst.order_longest_first, np.arange(n, dtype=np.intp)):
-            ref = earliest_finish.py_func(order, inst.durations, s, f, elig.job_type, elig.eligible)
+            ref = pure(earliest_finish)(order, inst.durations, s, f, elig.job_type, elig.eligible)
             args = (order, inst.durations, s, f, elig.job_type, celig, cstart, members)
-            for got in (earliest_finish_classes(*args), earliest_finish_classes.py_func(*args)):
+            for got in (earliest_finish_classes(*args), pure(earliest_finish_classes)(*args)):
                 assert np.array_equal(got[0], ref[0]) and np.array_equal(got[1], ref[1])

@@ -356,51 +356,26 @@ def farm_case(draw: st.DrawFn) -> tuple[list[float], list, list[frozenset[str]] 
     return durations, spec, requires
 
 
-@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(
-    case=identical_case(),
-    method=st.sampled_from(METHODS),
-    resolution=RESOLUTIONS,
-    budget=BUDGETS,
-    where=WHERE,
-)
-def test_identical_nodes_every_claim_is_exactly_true(
-    case: tuple[list[float], list], method: str, resolution: float, budget: float, where: str
-) -> None:
-    """Identical nodes, scales 1e-9..1e12 s, resolutions 1e-6..1e6 s, deadlines a hair
-    below, at and around the optimum, every method: lower bound and every named bound <=
-    the optimum, proven_optimal only at the optimum, gap == 0 iff proven_optimal,
-    provably_unreachable only for a deadline below the optimum, the plan sound (all
-    exactly). Reference: the exact DFS and check_plan_exact of tests/reference.py."""
-    durations, spec = case
-    opt = exact_optimum(durations, spec)
-    deadline = float_near(opt, where)
-    note(f"durations={durations!r} nodes={spec!r} deadline={deadline!r}")
-    note(f"method={method} resolution={resolution!r} budget={budget} opt={float(opt)!r}")
-    assume(tick_count(durations, spec, resolution, deadline) <= ACCEPT_TICKS)
-    r = plan(durations, spec, method, deadline=deadline, resolution=resolution, budget=budget)
-    assert_truthful(r, opt, durations, spec)
+#: what the every-claim sweeps draw besides the instance
+SWEEP = {
+    "method": st.sampled_from(METHODS),
+    "resolution": RESOLUTIONS,
+    "budget": BUDGETS,
+    "where": WHERE,
+}
 
 
-@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(
-    case=farm_case(),
-    method=st.sampled_from(METHODS),
-    resolution=RESOLUTIONS,
-    budget=BUDGETS,
-    where=WHERE,
-)
-def test_farms_every_claim_is_exactly_true(
-    case: tuple[list[float], list, list[frozenset[str]] | None],
+def check_every_claim(
+    durations: list[float],
+    spec: list[tuple[float, float, frozenset[str]]],
+    requires: list[frozenset[str]] | None,
     method: str,
     resolution: float,
     budget: float,
     where: str,
 ) -> None:
-    """Farms (speeds 0.5, 1, 2, 3; busy nodes; GPU tags), scales 1e-9..1e12 s, every
-    method: the same claims as on identical nodes, all exactly true. Reference: the exact
-    DFS and check_plan_exact of tests/reference.py."""
-    durations, spec, requires = case
+    """Plan with a deadline placed ``where`` by the exact optimum (float_near) and check
+    every claim of the result against that optimum (assert_truthful)."""
     opt = exact_optimum(durations, spec, requires)
     deadline = float_near(opt, where)
     note(f"durations={durations!r} nodes={spec!r} requires={requires!r} deadline={deadline!r}")
@@ -416,6 +391,36 @@ def test_farms_every_claim_is_exactly_true(
         budget=budget,
     )
     assert_truthful(r, opt, durations, spec, requires)
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(case=identical_case(), **SWEEP)
+def test_identical_nodes_every_claim_is_exactly_true(
+    case: tuple[list[float], list], method: str, resolution: float, budget: float, where: str
+) -> None:
+    """Identical nodes, scales 1e-9..1e12 s, resolutions 1e-6..1e6 s, deadlines a hair
+    below, at and around the optimum, every method: lower bound and every named bound <=
+    the optimum, proven_optimal only at the optimum, gap == 0 iff proven_optimal,
+    provably_unreachable only for a deadline below the optimum, the plan sound (all
+    exactly). Reference: the exact DFS and check_plan_exact of tests/reference.py."""
+    durations, spec = case
+    check_every_claim(durations, spec, None, method, resolution, budget, where)
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(case=farm_case(), **SWEEP)
+def test_farms_every_claim_is_exactly_true(
+    case: tuple[list[float], list, list[frozenset[str]] | None],
+    method: str,
+    resolution: float,
+    budget: float,
+    where: str,
+) -> None:
+    """Farms (speeds 0.5, 1, 2, 3; busy nodes; GPU tags), scales 1e-9..1e12 s, every
+    method: the same claims as on identical nodes, all exactly true. Reference: the exact
+    DFS and check_plan_exact of tests/reference.py."""
+    durations, spec, requires = case
+    check_every_claim(durations, spec, requires, method, resolution, budget, where)
 
 
 @settings(max_examples=40, deadline=None)

@@ -46,6 +46,7 @@ from __future__ import annotations
 import dataclasses
 import math
 import time
+from collections.abc import Callable
 from fractions import Fraction
 from typing import Any
 
@@ -55,8 +56,9 @@ import numpy.typing as npt
 from . import farm_exact, farm_milp
 from .budget import Budget
 from .farm_bounds import Eligibility, eligibility, farm_lower_bounds
+from .farm_kernels import earliest_finish_classes, improve
 from .greedy import lpt_ratio
-from .kernels import earliest_finish, jit
+from .kernels import earliest_finish, pure
 from .model import FloatArray, Instance
 from .progress import Progress, ProgressHook
 from .rational import down
@@ -121,12 +123,25 @@ def _tiny(inst: Instance) -> bool:
     return inst.n * inst.m <= TINY_WORK
 
 
+def _reserve(inst: Instance) -> float:
+    """Seconds of the budget kept back to build the final plan and its certificate."""
+    return 0.005 + FINISH_SECONDS_PER_JOB * inst.n
+
+
+def _makespan(
+    node_of: npt.NDArray[np.int32], durations: FloatArray, s: FloatArray, f: FloatArray
+) -> float:
+    """The latest node finish of ``node_of``, in floating point (what the search steers by;
+    the result is measured exactly by :class:`Schedule`)."""
+    return float((f + np.bincount(node_of, durations, s.shape[0]) / s).max())
+
+
 def greedy_schedule(inst: Instance, elig: Eligibility, method: str) -> Schedule:
     """``list`` (batch order) or ``longest_first`` (LPT) with earliest finish."""
     s, f = arrays(inst)
     order = np.arange(inst.n, dtype=np.intp) if method == "list" else inst.order_longest_first
     if _tiny(inst):
-        rule = getattr(earliest_finish, "py_func", earliest_finish)
+        rule = pure(earliest_finish)
         node_of, start = rule(order, inst.durations, s, f, elig.job_type, elig.eligible)
         return Schedule(inst, node_of, start)
     members, cstart, celig = node_classes(inst, elig)
@@ -151,232 +166,21 @@ def node_classes(
     return members, cstart, celig
 
 
-@jit
-def _sift_down(
-    heap: npt.NDArray[np.int64], lo: int, size: int, i: int, load: npt.NDArray[np.float64]
-) -> None:
-    """Restore the min-heap on (load, node index) of ``heap[lo:lo+size]`` from ``i``."""
-    k = heap[lo + i]
-    while True:
-        c = 2 * i + 1
-        if c >= size:
-            break
-        r = c + 1
-        a = heap[lo + c]
-        if r < size:
-            b = heap[lo + r]
-            if load[b] < load[a] or (load[b] == load[a] and b < a):
-                c = r
-                a = b
-        if load[a] < load[k] or (load[a] == load[k] and a < k):
-            heap[lo + i] = a
-            i = c
-        else:
-            break
-    heap[lo + i] = k
+def improver(
+    inst: Instance, elig: Eligibility, compiled: bool = True
+) -> Callable[[npt.NDArray[np.int32], int], tuple[int, bool]]:
+    """The local-search kernel :func:`.farm_kernels.improve` on ``inst`` (compiled, or its
+    pure-Python twin): ``(plan, most steps) -> (steps taken, at a local optimum)``."""
+    s, f = arrays(inst)
+    members, cstart, celig = node_classes(inst, elig)
+    order = inst.order_longest_first
+    fixed = (inst.durations, s, f, elig.job_type, elig.eligible, order, celig, cstart, members)
+    kernel = improve if compiled else pure(improve)
 
+    def step(node_of: npt.NDArray[np.int32], max_steps: int) -> tuple[int, bool]:
+        return kernel(node_of, *fixed, max_steps)
 
-@jit
-def earliest_finish_classes(
-    order: npt.NDArray[np.intp],
-    durations: npt.NDArray[np.float64],
-    speeds: npt.NDArray[np.float64],
-    free_at: npt.NDArray[np.float64],
-    job_type: npt.NDArray[np.int32],
-    class_eligible: npt.NDArray[np.bool_],
-    class_start: npt.NDArray[np.int64],
-    members: npt.NDArray[np.int64],
-) -> tuple[npt.NDArray[np.int32], npt.NDArray[np.float64]]:
-    """``kernels.earliest_finish`` for nodes in classes of one speed and one eligibility:
-    inside a class the node that frees first is where a job ends first, so one heap per
-    class gives the answer in O(classes + log m) a job instead of O(m). Ties go to the
-    lowest node index among the nodes that free first."""
-    n = order.shape[0]
-    nc = class_start.shape[0] - 1
-    load = free_at.copy()
-    heap = members.copy()
-    for c in range(nc):
-        lo = class_start[c]
-        size = class_start[c + 1] - lo
-        for i in range(size // 2 - 1, -1, -1):
-            _sift_down(heap, lo, size, i, load)
-    node_of = np.full(durations.shape[0], -1, dtype=np.int32)
-    start = np.zeros(durations.shape[0], dtype=np.float64)
-    for t in range(n):
-        j = order[t]
-        row = job_type[j]
-        best_c = -1
-        best_k = -1
-        best_end = np.inf
-        for c in range(nc):
-            if class_eligible[row, c]:
-                k = heap[class_start[c]]
-                e = load[k] + durations[j] / speeds[k]
-                if e < best_end or (e == best_end and k < best_k):
-                    best_end = e
-                    best_k = k
-                    best_c = c
-        if best_c >= 0:
-            node_of[j] = best_k
-            start[j] = load[best_k]
-            load[best_k] = best_end
-            lo = class_start[best_c]
-            _sift_down(heap, lo, class_start[best_c + 1] - lo, 0, load)
-    return node_of, start
-
-
-@jit
-def improve(
-    node_of: npt.NDArray[np.int32],
-    durations: npt.NDArray[np.float64],
-    speeds: npt.NDArray[np.float64],
-    free_at: npt.NDArray[np.float64],
-    job_type: npt.NDArray[np.int32],
-    eligible: npt.NDArray[np.bool_],
-    order: npt.NDArray[np.intp],
-    class_eligible: npt.NDArray[np.bool_],
-    class_start: npt.NDArray[np.int64],
-    members: npt.NDArray[np.int64],
-    max_steps: int,
-) -> tuple[int, bool]:
-    """Local search on ``node_of`` (changed in place): move a job off the node that finishes
-    last, or swap it with a shorter one elsewhere, whenever both nodes then finish strictly
-    before the current makespan. ``order`` lists the jobs longest first. Returns (steps
-    taken, True if no step helps any more).
-
-    A move costs O(n + m + jobs on the critical node x classes): inside a class of nodes
-    with one speed and one eligibility the node that finishes first is the best place.
-    Before a swap search the jobs of every node are listed longest first (one pass over
-    the jobs in longest-first order), so a partner is found by binary search in the window
-    of durations that would help: O(n + jobs on the critical node x m x log n).
-    """
-    n = durations.shape[0]
-    m = speeds.shape[0]
-    load = np.zeros(m)
-    for j in range(n):
-        load[node_of[j]] += durations[j]
-    first = np.zeros(m + 1, dtype=np.int64)
-    fill = np.zeros(m, dtype=np.int64)
-    seg = np.empty(n, dtype=np.int64)
-    nc = class_start.shape[0] - 1
-    class_best = np.zeros(nc, dtype=np.int64)
-    steps = 0
-    while steps < max_steps:
-        c = 0
-        cmax = -1.0
-        for k in range(m):
-            e = free_at[k] + load[k] / speeds[k]
-            if e > cmax:
-                cmax = e
-                c = k
-        tol = 1e-12 * max(1.0, cmax)
-        limit = cmax - tol
-        moved = False
-        # the node of every class (one speed, one eligibility) that finishes first
-        for cl in range(nc):
-            bk = -1
-            bf = np.inf
-            for q in range(class_start[cl], class_start[cl + 1]):
-                k = members[q]
-                e = free_at[k] + load[k] / speeds[k]
-                if e < bf:
-                    bf = e
-                    bk = k
-            class_best[cl] = bk
-        # moves: the best destination for some job of the critical node
-        for j in range(n):
-            if node_of[j] != c or durations[j] <= 0:
-                continue
-            row = job_type[j]
-            best = -1
-            best_end = limit
-            for cl in range(nc):
-                k = class_best[cl]
-                if k != c and class_eligible[row, cl]:
-                    e = free_at[k] + (load[k] + durations[j]) / speeds[k]
-                    if e < best_end:
-                        best_end = e
-                        best = k
-            if best >= 0:
-                node_of[j] = best
-                load[c] -= durations[j]
-                load[best] += durations[j]
-                moved = True
-                break
-        if moved:
-            steps += 1
-            continue
-        # every node's jobs, longest first (for the swap search)
-        first[:] = 0
-        for j in range(n):
-            first[node_of[j] + 1] += 1
-        for k in range(m):
-            first[k + 1] += first[k]
-        for k in range(m):
-            fill[k] = first[k]
-        for t in range(n):
-            j = order[t]
-            k = node_of[j]
-            seg[fill[k]] = j
-            fill[k] += 1
-        # swaps: job j of the critical node against a shorter job i on node k, with
-        # delta = p_j - p_i in (need_c, room_k): both nodes then end before the makespan.
-        # For the longest j that has one, take the pair that balances the two nodes best.
-        need_c = load[c] - (limit - free_at[c]) * speeds[c]
-        for q in range(first[c], first[c + 1]):
-            j = seg[q]
-            rj = job_type[j]
-            best_i = -1
-            best_k = -1
-            best_end = limit
-            for k in range(m):
-                if k == c or not eligible[rj, k] or first[k] == first[k + 1]:
-                    continue
-                room = (limit - free_at[k]) * speeds[k] - load[k]
-                if room <= need_c:
-                    continue
-                hi_d = durations[j] - need_c  # p_i must be < hi_d ...
-                lo_d = durations[j] - room  # ... and > lo_d
-                # the delta that would make both nodes end together
-                even = (free_at[c] - free_at[k] + load[c] / speeds[c] - load[k] / speeds[k]) / (
-                    1.0 / speeds[c] + 1.0 / speeds[k]
-                )
-                want = min(max(durations[j] - even, lo_d), hi_d)
-                # first position in node k's list (longest first) with p_i < want
-                lo = first[k]
-                hi = first[k + 1]
-                while lo < hi:
-                    mid = (lo + hi) // 2
-                    if durations[seg[mid]] < want:
-                        hi = mid
-                    else:
-                        lo = mid + 1
-                # look a few places either side for an allowed partner in the window
-                for r in range(max(first[k], lo - 4), min(first[k + 1], lo + 4)):
-                    i = seg[r]
-                    if not (lo_d < durations[i] < hi_d and eligible[job_type[i], c]):
-                        continue
-                    delta = durations[j] - durations[i]
-                    e = max(
-                        free_at[c] + (load[c] - delta) / speeds[c],
-                        free_at[k] + (load[k] + delta) / speeds[k],
-                    )
-                    if e < best_end:
-                        best_end = e
-                        best_i = i
-                        best_k = k
-            if best_i >= 0:
-                delta = durations[j] - durations[best_i]
-                node_of[j] = best_k
-                node_of[best_i] = c
-                load[c] -= delta
-                load[best_k] += delta
-                moved = True
-                break
-        if not moved:
-            return steps, True
-        steps += 1
-    return steps, False
+    return step
 
 
 def local_search(
@@ -396,16 +200,11 @@ def local_search(
     total, done = 0, False
     best = sched.makespan
     chunk = 4
-    order = inst.order_longest_first
-    members, cstart, celig = node_classes(inst, elig)
-    classes = (celig, cstart, members)
-    step = getattr(improve, "py_func", improve) if _tiny(inst) else improve
-    reserve = 0.005 + FINISH_SECONDS_PER_JOB * inst.n  # to build the final plan afterwards
+    step = improver(inst, elig, compiled=not _tiny(inst))
+    reserve = _reserve(inst)
     while not budget.expired() and budget.remaining() > reserve:
         t = time.perf_counter()
-        steps, done = step(
-            node_of, inst.durations, s, f, elig.job_type, elig.eligible, order, *classes, chunk
-        )
+        steps, done = step(node_of, chunk)
         took = time.perf_counter() - t
         total += steps
         # keep every compiled call short against the budget (about CALL_SECONDS)
@@ -413,7 +212,7 @@ def local_search(
             per_step = took / steps
             goal = min(CALL_SECONDS, 0.5 * budget.remaining())
             chunk = int(max(1, min(4 * chunk, goal / max(per_step, 1e-9))))
-        ms = float((f + np.bincount(node_of, inst.durations, inst.m) / s).max())
+        ms = _makespan(node_of, inst.durations, s, f)
         if progress is not None and ms < best:
             progress(Progress(budget.elapsed(), ms, lower))
         best = min(best, ms)
@@ -442,12 +241,10 @@ def _kicks(
     better plan is found): move a few random jobs to random eligible nodes, run the local
     search again, keep the result if the makespan went down. Seeded, so reproducible."""
     s, f = arrays(inst)
-    d = inst.durations
-    order = inst.order_longest_first
-    members, cstart, celig = node_classes(inst, elig)
+    step = improver(inst, elig)
     rng = np.random.default_rng(0)
     options = [np.flatnonzero(row) for row in elig.eligible]
-    best = float((f + np.bincount(node_of, d, inst.m) / s).max())
+    best = _makespan(node_of, inst.durations, s, f)
     tries = 0
     size = max(2, inst.n // 100)
     while not budget.expired() and budget.remaining() > reserve and best > target:
@@ -457,11 +254,9 @@ def _kicks(
             trial[j] = opt[rng.integers(opt.size)]
         done = False
         while not done and budget.remaining() > reserve:
-            done = improve(
-                trial, d, s, f, elig.job_type, elig.eligible, order, celig, cstart, members, 256
-            )[1]
+            done = step(trial, 256)[1]
         tries += 1
-        ms = float((f + np.bincount(trial, d, inst.m) / s).max())
+        ms = _makespan(trial, inst.durations, s, f)
         if ms < best * (1 - 1e-12):
             best = ms
             node_of[:] = trial
@@ -590,7 +385,7 @@ def _search(
         stop = "proved_optimal"
     elif budget.cancelled:
         stop = "cancelled"
-    elif budget.expired() or budget.remaining() <= 0.005 + FINISH_SECONDS_PER_JOB * inst.n:
+    elif budget.expired() or budget.remaining() <= _reserve(inst):
         stop = "time_budget"
     else:
         # the search ended before the budget: a local optimum no move or swap improves
