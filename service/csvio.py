@@ -75,8 +75,23 @@ def _tags(value: str, line: int, header: list[str], name: str) -> list[str]:
     return [t for t in value.replace(";", " ").split() if t]
 
 
+#: a cell starting with one of these is a formula to a spreadsheet (OWASP, "CSV Injection")
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+
+
+def neutral(cell: str) -> str:
+    """A text cell as written to CSV: one that a spreadsheet would run as a formula gets a
+    leading apostrophe (OWASP's advice), which :func:`restored` takes off again."""
+    return "'" + cell if cell.startswith(FORMULA_STARTS) else cell
+
+
+def restored(cell: str) -> str:
+    """What :func:`neutral` wrote, read back."""
+    return cell[1:] if cell.startswith("'") and cell[1:].startswith(FORMULA_STARTS) else cell
+
+
 def _text(value: str, line: int, header: list[str], name: str) -> str:
-    return value
+    return restored(value)
 
 
 def _job_id(value: str, line: int, header: list[str], name: str) -> str:
@@ -85,7 +100,7 @@ def _job_id(value: str, line: int, header: list[str], name: str) -> str:
             f"line {line}, column {header.index(name) + 1} (id): empty",
             [Issue("", f"line {line}: empty id")],
         )
-    return value
+    return restored(value)
 
 
 #: how a cell becomes a field: (text, line number, header, column name) -> value
@@ -141,10 +156,11 @@ def assignment_rows(assignment: Iterable[dict[str, Any]]) -> list[tuple[str, str
 
 
 def write_assignment_csv(assignment: Iterable[dict[str, Any]]) -> str:
-    """The assignment as CSV text with a header row."""
+    """The assignment as CSV text with a header row; ids a spreadsheet would take for a
+    formula are written with a leading apostrophe (:func:`neutral`)."""
     out = io.StringIO()
     w = csv.writer(out, lineterminator="\n")
     w.writerow(ASSIGNMENT_COLUMNS)
     for node, job, start, end in assignment_rows(assignment):
-        w.writerow((node, job, repr(float(start)), repr(float(end))))
+        w.writerow((neutral(node), neutral(job), repr(float(start)), repr(float(end))))
     return out.getvalue()

@@ -65,3 +65,26 @@ def test_assignment_csv_round_trip() -> None:
     durations = {j["id"]: j["duration"] for j in jobs}
     for r in out:
         assert float(r["end"]) - float(r["start"]) == pytest.approx(durations[r["job"]])
+
+
+def test_export_neutralises_formula_cells_and_reads_them_back() -> None:
+    """OWASP's CSV Injection guidance: a cell beginning with =, +, -, @ is a formula to a
+    spreadsheet; the export writes it with a leading apostrophe, and our own reader takes
+    it off again (round trip)."""
+    from service.csvio import read_jobs_csv
+
+    assignment = [
+        {
+            "node": "@rack",
+            "load": 3.0,
+            "jobs": [
+                {"id": "=HYPERLINK(1)", "start": 0.0, "end": 1.0},
+                {"id": "-lh_x", "start": 1.0, "end": 3.0},
+            ],
+        }
+    ]
+    rows = list(csv.reader(io.StringIO(write_assignment_csv(assignment))))
+    assert rows[1][:2] == ["'@rack", "'=HYPERLINK(1)"]
+    assert rows[2][:2] == ["'@rack", "'-lh_x"]
+    back = read_jobs_csv("id,duration\n'=HYPERLINK(1),5\n'-lh_x,2\nplain,1\n")
+    assert [j["id"] for j in back] == ["=HYPERLINK(1)", "-lh_x", "plain"]
