@@ -18,7 +18,7 @@ from .jobs import Resource, Validated, make_blueprint
 
 def validate_sizing(body: Any, settings: Settings) -> dict[str, Any]:
     """Limits and shape (marshmallow), then the core's checks (422 either way)."""
-    from workers.planning.sizing import read_sizing_request
+    from workers.planning.sizing_request import read_sizing_request
 
     data = load_sizing_request(body, settings)
     read_sizing_request(data).check()

@@ -27,7 +27,8 @@ from workers.planning.errors import Infeasible, InvalidInstance
 from workers.planning.greedy import list_schedule, longest_first_schedule
 from workers.planning.kernels import earliest_finish
 from workers.planning.result import Schedule
-from workers.planning.sizing import SizingResult, size_from_request
+from workers.planning.sizing import SizingResult
+from workers.planning.sizing_request import size_from_request
 
 Z90 = stats.norm.ppf(0.9)
 

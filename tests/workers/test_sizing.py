@@ -22,9 +22,9 @@ from workers.planning.sizing import (
     capacity_ticks,
     cost_of,
     size,
-    size_from_request,
     work_ticks,
 )
+from workers.planning.sizing_request import size_from_request
 from workers.planning.warmup import warm_up_sizing as warm_up
 
 

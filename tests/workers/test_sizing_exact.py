@@ -21,7 +21,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from workers.planning import InvalidInstance, Node
-from workers.planning.sizing import _tick_limit, cost_of, size, size_from_request
+from workers.planning.sizing import _tick_limit, cost_of, size
+from workers.planning.sizing_request import size_from_request
 
 LIMIT = 2**53
 AUDIT_BODY: dict[str, Any] = {

@@ -35,7 +35,8 @@ from reference import (
 )
 
 from workers.planning import Infeasible, Instance, InvalidInstance, Node, solve
-from workers.planning.sizing import size, size_from_request
+from workers.planning.sizing import size
+from workers.planning.sizing_request import size_from_request
 
 METHODS = ("list", "longest_first", "exact", "auto")
 PLAIN = frozenset[str]()

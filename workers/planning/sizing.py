@@ -42,8 +42,8 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Callable, Iterable, Mapping, Sequence
-from dataclasses import dataclass, field
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass
 from fractions import Fraction
 from typing import Any
 
@@ -55,7 +55,6 @@ from .binpacking import (
     FOUND,
     REFUTED,
     best_fit_decreasing,
-    bin_starts,
     first_fit_decreasing,
     min_bin_slack,
     pack_search,
@@ -68,19 +67,39 @@ from .model import Instance, Node
 from .perfect import perfect_fill
 from .rational import MAX_TICKS, array_sum, ceil_div, decimal_up, down, ticks, up
 from .result import Schedule
+from .sizing_fit import Fit as _Fit
+from .sizing_result import (
+    BILLING as BILLING,
+)
+from .sizing_result import (
+    COST_MODEL as COST_MODEL,
+)
+from .sizing_result import (
+    DEFAULT_BILLING as DEFAULT_BILLING,
+)
+from .sizing_result import (
+    MAX_CURVE_NODES as MAX_CURVE_NODES,
+)
+from .sizing_result import (
+    CurveRow as CurveRow,
+)
+from .sizing_result import (
+    SizingProgress as SizingProgress,
+)
+from .sizing_result import (
+    SizingProgressHook as SizingProgressHook,
+)
+from .sizing_result import (
+    SizingResult as SizingResult,
+)
+from .sizing_result import (
+    cost_of as cost_of,
+)
 
 #: billing granularities and their unit in seconds
-BILLING = {"second": 1.0, "minute": 60.0, "hour": 3600.0}
-DEFAULT_BILLING = "second"
 DEFAULT_MAX_NODES = 2000
 #: the curve goes this far below the lower bound and above the answer
 CURVE_BELOW, CURVE_ABOVE = 2, 3
-#: at most this many extra node counts may be listed in ``curve_nodes``
-MAX_CURVE_NODES = 50
-COST_MODEL = (
-    "nodes * ceil(makespan / unit) * unit / 3600 * node_hour_cost "
-    "(every node rented from 0 to the makespan; unit = the billing granularity in seconds)"
-)
 #: the first call of the exact search gets about this many bin visits (then doubled
 #: while the budget lasts)
 SEARCH_FIRST_WORK = 20_000_000
@@ -106,163 +125,6 @@ CURVE_LIFT_MAX_JOBS = 20_000
 
 F64 = npt.NDArray[np.float64]
 I64 = npt.NDArray[np.int64]
-
-
-@dataclass(frozen=True, slots=True)
-class SizingProgress:
-    """What a running sizing reports: the interval so far."""
-
-    elapsed: float
-    nodes_needed: int
-    nodes_lower_bound: int
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "elapsed": self.elapsed,
-            "nodes_needed": self.nodes_needed,
-            "nodes_lower_bound": self.nodes_lower_bound,
-        }
-
-
-SizingProgressHook = Callable[[SizingProgress], None]
-
-
-@dataclass(frozen=True, slots=True)
-class CurveRow:
-    """One node count of the trade-off curve."""
-
-    nodes: int
-    makespan: float
-    lower_bound: float
-    cost: float | None
-    meets_deadline: bool
-    #: fewer nodes than the proven lower bound: no plan with this many meets the deadline
-    provably_misses: bool
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "nodes": self.nodes,
-            "makespan": self.makespan,
-            "lower_bound": self.lower_bound,
-            "cost": self.cost,
-            "meets_deadline": self.meets_deadline,
-            "provably_misses": self.provably_misses,
-        }
-
-
-@dataclass(frozen=True, eq=False)
-class SizingResult:
-    """The fewest nodes that meet the deadline, proven from both sides, and the curve."""
-
-    schedule: Schedule
-    deadline: float
-    nodes_needed: int
-    nodes_lower_bound: int
-    bound_source: str
-    bounds: dict[str, int]
-    evidence: dict[str, Any]
-    stop_reason: str
-    solve_seconds: float
-    first_answer_seconds: float
-    method: str
-    plan_method: str
-    upper_bounds: dict[str, int]
-    node_hour_cost: float | None
-    billing: str
-    curve: tuple[CurveRow, ...] = field(default=())
-
-    def __post_init__(self) -> None:
-        if self.nodes_lower_bound > self.nodes_needed:
-            raise ValueError("node lower bound above the nodes of a plan: a bound is wrong")
-        if self.schedule.instance.m != self.nodes_needed:
-            raise ValueError("the plan does not use nodes_needed nodes")
-
-    @property
-    def proven_optimal(self) -> bool:
-        return self.nodes_lower_bound == self.nodes_needed
-
-    @property
-    def makespan(self) -> float:
-        return self.schedule.makespan
-
-    @property
-    def ffd_excess(self) -> int:
-        """How many nodes more first fit decreasing alone would have asked for."""
-        return self.upper_bounds["ffd"] - self.nodes_needed
-
-    @property
-    def cost(self) -> float | None:
-        return cost_of(self.nodes_needed, self.makespan, self.node_hour_cost, self.billing)
-
-    def to_dict(self, *, with_plan: bool = True) -> dict[str, Any]:
-        """The sizing result object (``POST /v1/sizings``, ``spanwright size --json``)."""
-        inst = self.schedule.instance
-        node = inst.nodes[0]
-        out: dict[str, Any] = {
-            "nodes_needed": self.nodes_needed,
-            "nodes_lower_bound": self.nodes_lower_bound,
-            "bound_source": self.bound_source,
-            "bounds": dict(self.bounds),
-            "proven_optimal": self.proven_optimal,
-            "stop_reason": self.stop_reason,
-            "solve_seconds": self.solve_seconds,
-            "first_answer_seconds": self.first_answer_seconds,
-            "method": self.method,
-            "plan_method": self.plan_method,
-            "upper_bounds": dict(self.upper_bounds),
-            "ffd_excess": self.ffd_excess,
-            "deadline": self.deadline,
-            "makespan": self.makespan,
-            "slack": self.deadline - self.makespan,
-            "node": {"speed": node.speed, "provides": sorted(node.provides)},
-            "jobs": inst.n,
-            "resolution": inst.resolution,
-            "certificate": dict(self.evidence),
-            "estimated_cost": self.cost,
-            "node_hour_cost": self.node_hour_cost,
-            "billing": self.billing,
-            "cost_model": COST_MODEL,
-            "curve": [row.to_dict() for row in self.curve],
-        }
-        if with_plan:
-            out["plan"] = self.schedule.to_assignment()
-        return out
-
-    def summary(self) -> str:
-        """A few human-readable lines."""
-        verdict = "proven optimal" if self.proven_optimal else "not proven optimal"
-        lines = [
-            f"nodes needed    {self.nodes_needed} ({self.method}; {verdict}, "
-            f"stopped: {self.stop_reason})",
-            f"lower bound     {self.nodes_lower_bound} node(s) ({self.bound_source})",
-            f"deadline        {self.deadline:.6g} s; plan makespan {self.makespan:.6g} s "
-            f"({self.plan_method})",
-            f"first fit dec.  {self.upper_bounds['ffd']} node(s)",
-        ]
-        if self.cost is not None:
-            lines.append(f"estimated cost  {self.cost:.2f} (billed per {self.billing})")
-        lines.append("curve           nodes  makespan  lower_bound  cost")
-        for row in self.curve:
-            cost = "-" if row.cost is None else f"{row.cost:.2f}"
-            mark = "*" if row.nodes == self.nodes_needed else " "
-            lines.append(
-                f"              {mark}{row.nodes:6d}  {row.makespan:8.6g}  "
-                f"{row.lower_bound:11.6g}  {cost}"
-            )
-        lines.append(f"solve time      {self.solve_seconds:.4f} s")
-        return "\n".join(lines)
-
-
-# -- cost ------------------------------------------------------------------------------
-def cost_of(
-    nodes: int, makespan: float, node_hour_cost: float | None, billing: str = DEFAULT_BILLING
-) -> float | None:
-    """``nodes * ceil(makespan / unit) * unit / 3600 * node_hour_cost`` (None without a price)."""
-    if node_hour_cost is None:
-        return None
-    unit = BILLING[billing]
-    billed = ceil_div(Fraction(makespan), Fraction(unit)) * unit
-    return nodes * billed / 3600.0 * node_hour_cost
 
 
 # -- ticks -----------------------------------------------------------------------------
@@ -372,130 +234,6 @@ def size(
     )
 
 
-@dataclass(frozen=True, eq=False)
-class SizingArgs:
-    """A sizing request read into core objects: the jobs on one node of the kind to rent
-    (``base``, with the deadline and resolution) and the options."""
-
-    base: Instance
-    max_nodes: int
-    node_hour_cost: float | None
-    billing: str
-    curve_nodes: tuple[int, ...]
-
-    @property
-    def node(self) -> Node:
-        return self.base.nodes[0]
-
-    def check(self) -> None:
-        """The checks that need no search (tens of microseconds a job): a job no node of
-        the kind can run or finish in time, a resolution too fine, more nodes needed than
-        ``max_nodes`` by the lower bound alone. Raises what :func:`size` would."""
-        base, node = self.base, self.node
-        deadline = float(base.deadline)  # type: ignore[arg-type]
-        _check_feasible(base, node, base.durations / node.speed, deadline)
-        limit = Fraction(deadline) * Fraction(node.speed)
-        too_fine = _tick_limit(base.durations, limit, base.resolution)
-        if too_fine:
-            raise InvalidInstance("the resolution is too fine for these times", too_fine)
-        q_lo, _ = ticks(base.durations, base.resolution)
-        cap = capacity_ticks(deadline, node.speed, base.resolution)
-        lower, source, _, _ = _lower_bound(q_lo, cap, array_sum(base.durations), limit)
-        _check_lower(lower, source, self.max_nodes)
-
-
-def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs:
-    """Read a ``POST /v1/sizings`` body (see :func:`size_from_request`) without sizing.
-
-    Every problem found is raised together as one :class:`InvalidInstance` whose issues
-    carry JSON Pointers into ``body``.
-    """
-    if not isinstance(body, Mapping):
-        raise InvalidInstance(
-            "the request body must be a JSON object", [Issue("", "not an object")]
-        )
-    issues: list[Issue] = []
-    raw_node = body.get("node", {})
-    if raw_node is None:
-        raw_node = {}
-    if not isinstance(raw_node, Mapping):
-        issues.append(Issue("/node", "must be an object"))
-        raw_node = {}
-    if "id" in raw_node and not isinstance(raw_node["id"], str):
-        issues.append(Issue("/node/id", "must be a string"))
-    if "free_at" in raw_node:
-        issues.append(Issue("/node/free_at", "not used by sizing: every node starts at 0"))
-    if body.get("deadline") is None:
-        issues.append(Issue("/deadline", "required: the time by which every job must be done"))
-    for key in ("nodes", "node_count"):
-        if key in body:
-            issues.append(Issue(f"/{key}", "not used by sizing: the answer is the node count"))
-    max_nodes = body.get("max_nodes", DEFAULT_MAX_NODES)
-    node_hour_cost = body.get("node_hour_cost")
-    billing = body.get("billing", DEFAULT_BILLING)
-    curve_nodes = body.get("curve_nodes", [])
-    issues.extend(
-        _check_options(max_nodes, node_hour_cost, billing, curve_nodes, body.get("time_budget"))
-    )
-    node_id = raw_node.get("id") if isinstance(raw_node.get("id"), str) else "node"
-    plan_body = {
-        "jobs": body.get("jobs"),
-        "nodes": [
-            {
-                "id": node_id or "node",
-                "speed": raw_node.get("speed", 1.0),
-                "provides": raw_node.get("provides"),
-            }
-        ],
-        "deadline": body.get("deadline"),
-        "resolution": body.get("resolution"),
-    }
-    try:
-        base = Instance.from_request(plan_body)
-    except InvalidInstance as exc:
-        moved = [Issue(_node_pointer(i.pointer), i.detail) for i in exc.issues]
-        raise InvalidInstance(
-            f"{len(issues) + len(moved)} problem(s) in the request", issues + moved
-        ) from None
-    if issues:
-        raise InvalidInstance(f"{len(issues)} problem(s) in the request", issues)
-    return SizingArgs(
-        base=base,
-        max_nodes=int(max_nodes),
-        node_hour_cost=None if node_hour_cost is None else float(node_hour_cost),
-        billing=str(billing),
-        curve_nodes=tuple(int(k) for k in curve_nodes),
-    )
-
-
-def size_from_request(
-    body: Mapping[str, Any],
-    *,
-    time_budget: float,
-    progress: SizingProgressHook | None = None,
-    should_stop: Callable[[], bool] | None = None,
-) -> SizingResult:
-    """Size from a ``POST /v1/sizings`` body; ``time_budget`` (seconds) wins over the body's.
-
-    Body: ``jobs`` (as for plans), ``deadline`` (required), ``node`` ({speed, provides}),
-    ``max_nodes`` (default 2000), ``time_budget``, ``node_hour_cost``, ``billing``
-    (second | minute | hour, default second), ``curve_nodes`` (extra node counts),
-    ``resolution`` (default 1); read by :func:`read_sizing_request`.
-    """
-    args = read_sizing_request(body)
-    return _size(
-        args.base,
-        args.node,
-        time_budget=float(time_budget),
-        max_nodes=args.max_nodes,
-        node_hour_cost=args.node_hour_cost,
-        billing=args.billing,
-        curve_nodes=list(args.curve_nodes),
-        progress=progress,
-        should_stop=should_stop,
-    )
-
-
 def _check_lower(lower: int, source: str, max_nodes: int) -> None:
     """Raise :class:`Infeasible` when the lower bound alone needs more than ``max_nodes``."""
     if lower > max_nodes:
@@ -504,13 +242,6 @@ def _check_lower(lower: int, source: str, max_nodes: int) -> None:
             jobs=[],
             issues=[Issue("/max_nodes", f"at least {lower} nodes are needed")],
         )
-
-
-def _node_pointer(pointer: str) -> str:
-    """Issues about the one node of the plan body point at ``/node`` of the sizing body."""
-    if pointer.startswith("/nodes/0"):
-        return "/node" + pointer[len("/nodes/0") :]
-    return pointer
 
 
 def _is_int(x: object) -> bool:
@@ -705,141 +436,6 @@ def _search(
         want = 0.9 * rate * (1 - LOCAL_SHARE) * budget.remaining()
         limit = int(min(2 * limit, max(1000, want), 1 << 40))
     return info
-
-
-def _starts(
-    bin_of: npt.NDArray[np.int32],
-    times: F64,
-    m: int,
-    order: npt.NDArray[np.intp] | None = None,
-) -> F64:
-    """Start times when each node runs its jobs longest first, back to back.
-
-    ``order`` (all jobs longest first, ties by index) may be given to save the sort:
-    visiting the jobs in it, each node sees its own jobs longest first.
-    """
-    if order is None:
-        order = np.argsort(-times, kind="stable")
-    return bin_starts(order.astype(np.int64), bin_of.astype(np.int32), times, m)
-
-
-class _Fit:
-    """Whether a plan meets the deadline, exactly, and repairs for those that do not.
-
-    A node meets the deadline when its work ``sum(duration)`` is at most
-    ``deadline * speed`` in exact arithmetic and its floating-point times, back to back
-    in the order of ``order``, end by the deadline. The exact test is settled cheaply
-    where it can be: by whole ticks rounded up (at most the capacity), or by the float
-    sum with room for its round-off; only the nodes left in doubt are summed exactly.
-    """
-
-    def __init__(
-        self,
-        durations: F64,
-        times: F64,
-        speed: float,
-        deadline: float,
-        q_hi: I64,
-        cap: int,
-        order: npt.NDArray[np.intp],
-    ) -> None:
-        self.d, self.times, self.deadline = durations, times, deadline
-        self.limit = Fraction(deadline) * Fraction(speed)
-        self.limit_down, self.limit_up = down(self.limit), up(self.limit)
-        self.q_hi = q_hi.astype(np.float64)  # whole numbers below 2**53: sums stay exact
-        self.cap, self.order = cap, order
-        self.rank = np.empty(order.size, dtype=np.int64)
-        self.rank[order] = np.arange(order.size)
-
-    def work_fits(self, bin_of: npt.NDArray[np.int32], m: int) -> npt.NDArray[np.bool_]:
-        """Per node: its exact work is at most deadline * speed."""
-        ok = np.bincount(bin_of, weights=self.q_hi, minlength=m)[:m] <= self.cap
-        if ok.all():
-            return ok
-        load = np.bincount(bin_of, weights=self.d, minlength=m)[:m]
-        count = np.bincount(bin_of, minlength=m)[:m]
-        # a running sum of c non-negative terms is within (c - 1) units in the last
-        # place of its exact value (relative); allow eight times that, and do not trust
-        # sums small enough to have underflowed
-        err = (count + 4) * 2.0**-50
-        trusted = load > 2.0**-960
-        ok |= (count == 0) | (trusted & (load * (1.0 + err) <= self.limit_down))
-        over = trusted & (load * (1.0 - err) > self.limit_up)
-        doubt = np.flatnonzero(~ok & ~over)
-        if doubt.size:
-            idx = np.argsort(bin_of, kind="stable")
-            cuts = np.searchsorted(bin_of[idx], np.arange(m + 1))
-            for k in doubt.tolist():
-                ok[k] = array_sum(self.d[idx[cuts[k] : cuts[k + 1]]]) <= self.limit
-        return ok
-
-    def _node_ok(self, jobs: list[int]) -> bool:
-        """One node running ``jobs`` meets the deadline (exact work and float times)."""
-        if array_sum(self.d[jobs]) > self.limit:
-            return False
-        clock = 0.0
-        for j in sorted(jobs, key=self.rank.__getitem__):
-            clock = clock + float(self.times[j])
-        return clock <= self.deadline
-
-    def settle(self, bin_of: npt.NDArray[np.int32], m: int) -> tuple[Any, int, F64]:
-        """A plan that meets the deadline exactly, from ``bin_of`` on ``m`` nodes: the same
-        plan when it does; else the nodes that miss give up their shortest jobs until they
-        meet it, and those go, longest first, to the first node they fit (a new node when
-        none). Returns (node of each job, nodes used, starts)."""
-        start = _starts(bin_of, self.times, m, self.order)
-        late = np.zeros(m, dtype=np.bool_)
-        late[bin_of[start + self.times > self.deadline]] = True
-        bad = ~self.work_fits(bin_of, m) | late
-        if not bad.any():
-            return bin_of, m, start
-        bin_of = bin_of.copy()
-        idx = np.argsort(bin_of, kind="stable")
-        cuts = np.searchsorted(bin_of[idx], np.arange(m + 1))
-        members: dict[int, list[int]] = {}
-
-        def jobs_of(k: int) -> list[int]:
-            if k not in members:
-                members[k] = idx[cuts[k] : cuts[k + 1]].tolist()
-            return members[k]
-
-        moved: list[int] = []
-        for k in np.flatnonzero(bad).tolist():
-            keep = sorted(jobs_of(k), key=lambda j: (self.d[j], j))  # shortest first
-            while keep and not self._node_ok(keep):
-                gone = next((i for i, j in enumerate(keep) if self.d[j] > 0), 0)
-                moved.append(keep.pop(gone))
-            members[k] = keep
-        load = np.bincount(bin_of, weights=self.times, minlength=m)[:m].tolist()
-        for j in moved:
-            load[bin_of[j]] -= float(self.times[j])
-        for j in sorted(moved, key=lambda j: (-self.d[j], j)):
-            t = float(self.times[j])
-            for k in range(len(load)):
-                if load[k] + t <= self.deadline * (1.0 + 2.0**-40) and self._node_ok(
-                    [*jobs_of(k), j]
-                ):
-                    break
-            else:
-                k = len(load)
-                load.append(0.0)
-                members[k] = []
-            members[k].append(j)
-            load[k] += t
-            bin_of[j] = k
-        m = len(load)
-        start = _starts(bin_of, self.times, m, self.order)
-        if not self.meets(bin_of, m, start):  # pragma: no cover - each node was checked
-            raise AssertionError("a repaired sizing plan misses the deadline")
-        return bin_of, m, start
-
-    def meets(self, bin_of: npt.NDArray[np.int32], m: int, start: F64) -> bool:
-        """Every node of the plan meets the deadline, exactly and in its float times."""
-        if bin_of.size == 0:
-            return True
-        if int(bin_of.max()) >= m or (start + self.times).max() > self.deadline:
-            return False
-        return bool(self.work_fits(bin_of, m).all())
 
 
 def _size(

@@ -115,7 +115,7 @@ def size_body(
     target ``confidence``, the ``confidence`` of the answer's plan and, with the target,
     ``confidence_sizing``. A cancelled sizing skips the simulation."""
     from .confidence import SpreadRequest, sizing_confidence
-    from .sizing import size_from_request
+    from .sizing_request import size_from_request
 
     asked = SpreadRequest.from_body(body)  # bad spread inputs fail before the search
     res = size_from_request(

@@ -12,7 +12,7 @@ import pytest
 from service.web.pages import certificate_sentence, plan_context, sizing_context
 from service.web.svg import INK, PALETTE, contrast, fmt_duration, label_ink, line_chart, timeline
 from workers.planning import Instance, solve
-from workers.planning.sizing import size_from_request
+from workers.planning.sizing_request import size_from_request
 
 NS = {"s": "http://www.w3.org/2000/svg"}
 
