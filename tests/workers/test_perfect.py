@@ -9,15 +9,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from tests.workers.test_binpacking import brute_force_bins
-from workers.planning.perfect import (
-    S_MOVES,
-    S_POOL,
-    eject_walk,
-    exact_fill,
-    perfect_fill,
-    walk_start,
-    warm_up,
-)
+from workers.planning.perfect import perfect_fill, warm_up
+from workers.planning.perfect_exact_fill import exact_fill
+from workers.planning.perfect_walk import S_MOVES, S_POOL, eject_walk, walk_start
 
 #: generous: every case here finishes in milliseconds; the limit only guards a hang
 SECONDS = 30.0
@@ -152,8 +146,8 @@ def test_compiled_and_pure_python_agree(seed: int) -> None:
     walk_fast = walk_start(q, cap, k, fast[0], seed)
     walk_slow = walk_start.py_func(q, cap, k, slow[0], seed)
     for _ in range(3):
-        left_fast = eject_walk(q, cap, 0, 400, *walk_fast)
-        left_slow = eject_walk.py_func(q, cap, 0, 400, *walk_slow)
+        left_fast = eject_walk(q, cap, 0, 400, walk_fast)
+        left_slow = eject_walk.py_func(q, cap, 0, 400, walk_slow)
         assert left_fast == left_slow
         for a, b in zip(walk_fast, walk_slow, strict=True):
             assert np.array_equal(a, b)

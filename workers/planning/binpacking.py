@@ -262,6 +262,20 @@ def _alive_from(parent: I64, i: int) -> int:
 
 
 @jit
+def first_at_most(vals: I64 | F64, lo: int, x: float) -> int:
+    """The first index i >= lo with ``vals[i] <= x`` (``vals`` longest first), or the
+    length of ``vals`` when there is none (binary search)."""
+    hi = vals.shape[0]
+    while lo < hi:
+        mid = (lo + hi) // 2
+        if vals[mid] <= x:
+            hi = mid
+        else:
+            lo = mid + 1
+    return lo
+
+
+@jit
 def _alive_before(back: I64, i: int) -> int:
     """The last index <= i still unpacked, or -1.
 
@@ -345,14 +359,7 @@ def min_bin_slack(sizes: F64, cap: float, node_limit: int, pair_steps: int) -> t
                     i += 1
         if best_slack > 0.0 and pair_steps > 0:
             # the best two-item completion, by two pointers over the unpacked items
-            r = cap - a
-            lo, hi = first + 1, n
-            while lo < hi:
-                mid = (lo + hi) // 2
-                if sizes[mid] <= r:
-                    hi = mid
-                else:
-                    lo = mid + 1
+            lo = first_at_most(sizes, first + 1, cap - a)
             i = _alive_from(parent, lo) if lo < n else n
             j = _alive_before(back, n - 1)
             steps = 0
@@ -378,6 +385,19 @@ def min_bin_slack(sizes: F64, cap: float, node_limit: int, pair_steps: int) -> t
             cur = cur + sizes[j]
             parent[j] = j + 1
             back[j + 1] = j
+
+
+@jit
+def sort_longest_first(items: I64, n: int, q: I64) -> None:
+    """Sort the first ``n`` entries of ``items`` (indices into ``q``) longest first, by
+    insertion (stable; for a few items)."""
+    for t in range(1, n):
+        j = items[t]
+        u = t
+        while u > 0 and q[items[u - 1]] < q[j]:
+            items[u] = items[u - 1]
+            u -= 1
+        items[u] = j
 
 
 @jit
@@ -528,13 +548,7 @@ def reduce_bins(
             if np_ == 0 or work > max_work:
                 break
     # the pool, first fit decreasing into new bins (insertion sort: the pool is small)
-    for t in range(1, np_):
-        j = pool[t]
-        u = t
-        while u > 0 and q[pool[u - 1]] < q[j]:
-            pool[u] = pool[u - 1]
-            u -= 1
-        pool[u] = j
+    sort_longest_first(pool, np_, q)
     extra = np.zeros(np_ + 1, dtype=np.int64)
     nextra = 0
     for t in range(np_):

@@ -38,6 +38,7 @@ from __future__ import annotations
 import numpy as np
 import numpy.typing as npt
 
+from ..binpacking import first_at_most
 from ..kernels import jit
 
 I64 = npt.NDArray[np.int64]
@@ -177,6 +178,53 @@ def dominated(q: I64, used: npt.NDArray[np.uint8], fr: I64, sp: int, room: int, 
 
 
 @jit
+def _fenwick_add(fen: I64, n: int, j: int, delta: int) -> None:
+    """Add ``delta`` to the length of job ``j`` in the Fenwick tree ``fen`` (n jobs)."""
+    i = j + 1
+    while i <= n:
+        fen[i] += delta
+        i += i & (-i)
+
+
+@jit
+def _fenwick_prefix(fen: I64, j: int) -> int:
+    """The sum of the lengths of jobs 0 .. j - 1 in the Fenwick tree ``fen``."""
+    total = fen[0] * 0
+    i = j
+    while i > 0:
+        total += fen[i]
+        i -= i & (-i)
+    return int(total)
+
+
+@jit
+def _push(fr: I64, sp: int, kind: int, a: int, b: int, c: int, d: int) -> int:
+    """Push a frame of ``kind`` with four values; returns the new stack size."""
+    base = 5 * sp
+    fr[base] = kind
+    fr[base + 1] = a
+    fr[base + 2] = b
+    fr[base + 3] = c
+    fr[base + 4] = d
+    return sp + 1
+
+
+@jit
+def _use(j: int, b: int, q: I64, used: npt.NDArray[np.uint8], asg: I32, fen: I64) -> None:
+    """Put job ``j`` on bin ``b``."""
+    used[j] = 1
+    asg[j] = b
+    _fenwick_add(fen, q.shape[0], j, -q[j])
+
+
+@jit
+def _unuse(j: int, q: I64, used: npt.NDArray[np.uint8], fen: I64) -> None:
+    """Take job ``j`` back off its bin."""
+    used[j] = 0
+    _fenwick_add(fen, q.shape[0], j, q[j])
+
+
+@jit
 def complete(
     q: I64,
     cap: int,
@@ -258,22 +306,11 @@ def complete(
             x = 0
             while used[x] == 1:
                 x += 1
-            base = 5 * sp
-            fr[base] = 0  # a bin frame
-            fr[base + 1] = x
-            fr[base + 2] = h1
-            fr[base + 3] = h2
-            fr[base + 4] = w
-            sp += 1
-            used[x] = 1
+            sp = _push(fr, sp, 0, x, h1, h2, w)  # a bin frame
+            _use(x, b, q, used, asg, fen)
             nused += 1
-            asg[x] = b
             h1 ^= z1[x]
             h2 ^= z2[x]
-            i = x + 1
-            while i <= n:
-                fen[i] -= q[x]
-                i += i & (-i)
             room = cap - q[x]
             k = x + 1
             last_excl = none
@@ -281,15 +318,7 @@ def complete(
             mode = 1
         elif mode == 1:  # fill the open bin from job k on
             # first job at or after k that fits
-            lo = k
-            hi = n
-            while lo < hi:
-                mid = (lo + hi) // 2
-                if q[mid] <= room:
-                    hi = mid
-                else:
-                    lo = mid + 1
-            k = lo
+            k = first_at_most(q, k, room)
             while k < n and used[k] == 1:
                 k += 1
             if k >= n:
@@ -300,51 +329,24 @@ def complete(
                 if dominated(q, used, fr, sp, room, ubuf):
                     mode = 2
                     continue
-                base = 5 * sp
-                fr[base] = 3
-                fr[base + 1] = room
-                fr[base + 2] = last_excl
-                fr[base + 3] = min_diff
-                fr[base + 4] = k
-                sp += 1
+                sp = _push(fr, sp, 3, room, last_excl, min_diff, k)
                 w += room
                 b += 1
                 mode = 0
                 continue
             # the unused jobs from k on can add at most their sum
-            s_all = fen[0] * 0
-            i = n
-            while i > 0:
-                s_all += fen[i]
-                i -= i & (-i)
-            s_before = fen[0] * 0
-            i = k
-            while i > 0:
-                s_before += fen[i]
-                i -= i & (-i)
-            if room - (s_all - s_before) > slack - w:
+            if room - (_fenwick_prefix(fen, n) - _fenwick_prefix(fen, k)) > slack - w:
                 mode = 2
                 continue
             if nodes >= node_limit:
                 result = -1
                 break
             nodes += 1
-            base = 5 * sp
-            fr[base] = 1
-            fr[base + 1] = k
-            fr[base + 2] = room
-            fr[base + 3] = last_excl
-            fr[base + 4] = min_diff
-            sp += 1
-            used[k] = 1
+            sp = _push(fr, sp, 1, k, room, last_excl, min_diff)
+            _use(k, b, q, used, asg, fen)
             nused += 1
-            asg[k] = b
             h1 ^= z1[k]
             h2 ^= z2[k]
-            i = k + 1
-            while i <= n:
-                fen[i] -= q[k]
-                i += i & (-i)
             if last_excl != none and last_excl > q[k] and last_excl - q[k] < min_diff:
                 min_diff = last_excl - q[k]
             room -= q[k]
@@ -361,14 +363,10 @@ def complete(
                 room = fr[base + 2]
                 last_excl = fr[base + 3]
                 min_diff = fr[base + 4]
-                used[k] = 0
+                _unuse(k, q, used, fen)
                 nused -= 1
                 h1 ^= z1[k]
                 h2 ^= z2[k]
-                i = k + 1
-                while i <= n:
-                    fen[i] += q[k]
-                    i += i & (-i)
                 last_excl = q[k]
                 k = next_smaller[k]
                 mode = 1
@@ -384,12 +382,8 @@ def complete(
                 k1[idx] = h1
                 k2[idx] = h2
                 kj[idx] = b + 1
-                used[x] = 0
+                _unuse(x, q, used, fen)
                 nused -= 1
-                i = x + 1
-                while i <= n:
-                    fen[i] += q[x]
-                    i += i & (-i)
     st[0] = mode
     st[1] = k
     st[2] = room

@@ -23,6 +23,43 @@ I32 = npt.NDArray[np.int32]
 
 
 @jit
+def _move_off(q: I64, node_of: I32, load: I64, c: int, top: int) -> bool:
+    """Move a job from node ``c`` to another node where it ends below ``top``; True if
+    one moved (the first such job, to the first such node)."""
+    for a in range(q.shape[0]):
+        if node_of[a] != c:
+            continue
+        for k in range(load.shape[0]):
+            if k != c and load[k] + q[a] < top:
+                load[k] += q[a]
+                load[c] -= q[a]
+                node_of[a] = k
+                return True
+    return False
+
+
+@jit
+def _swap_off(q: I64, node_of: I32, load: I64, c: int, top: int) -> bool:
+    """Swap a job on node ``c`` with a shorter one on another node, both nodes ending
+    below ``top``; True if a pair was swapped (the first such pair)."""
+    for a in range(q.shape[0]):
+        if node_of[a] != c:
+            continue
+        for b in range(q.shape[0]):
+            k = node_of[b]
+            if k == c or q[b] >= q[a]:
+                continue
+            d = q[a] - q[b]
+            if load[k] + d < top:
+                load[k] += d
+                load[c] -= d
+                node_of[a] = k
+                node_of[b] = c
+                return True
+    return False
+
+
+@jit
 def descend(q: I64, node_of: I32, m: int, max_steps: int) -> int:
     """Improve ``node_of`` in place; returns the number of steps taken."""
     n = q.shape[0]
@@ -34,42 +71,11 @@ def descend(q: I64, node_of: I32, m: int, max_steps: int) -> int:
         top = load.max()
         improved = False
         for c in range(m):
-            if load[c] != top:
-                continue
-            # move a job a from c to k
-            for a in range(n):
-                if node_of[a] != c:
-                    continue
-                for k in range(m):
-                    if k != c and load[k] + q[a] < top:
-                        load[k] += q[a]
-                        load[c] -= q[a]
-                        node_of[a] = k
-                        improved = True
-                        break
-                if improved:
-                    break
-            if improved:
-                break
-            # swap a (on c) with a shorter b (on another node)
-            for a in range(n):
-                if node_of[a] != c:
-                    continue
-                for b in range(n):
-                    k = node_of[b]
-                    if k == c or q[b] >= q[a]:
-                        continue
-                    d = q[a] - q[b]
-                    if load[k] + d < top:
-                        load[k] += d
-                        load[c] -= d
-                        node_of[a] = k
-                        node_of[b] = c
-                        improved = True
-                        break
-                if improved:
-                    break
-            if improved:
+            # a move off a critical node c, else a swap
+            if load[c] == top and (
+                _move_off(q, node_of, load, c, top) or _swap_off(q, node_of, load, c, top)
+            ):
+                improved = True
                 break
         if not improved:
             break
