@@ -61,7 +61,7 @@ import numpy.typing as npt
 from .budget import Budget
 from .farm_bounds import Eligibility
 from .model import FloatArray, Instance
-from .rational import exact_sum
+from .result import Schedule
 
 #: search nodes between two looks at the clock
 CHECK_EVERY = 4096
@@ -121,29 +121,11 @@ def scaled_ints(values: FloatArray, e: int) -> list[int]:
 
 
 def exact_loads(inst: Instance, node_of: npt.ArrayLike) -> list[Fraction]:
-    """Every node's exact finish time ``f_k + (sum of the p_j it runs) / s_k``.
-
-    The durations are scaled by one power of two to whole numbers and summed per node in
-    int64 when no sum can reach 2**62, else summed exactly per node with ``exact_sum``.
-    """
-    nodes = np.asarray(node_of, dtype=np.intp)
-    d = inst.durations
-    m = inst.m
-    sums: list[Fraction]
-    if d.size == 0:
-        return [Fraction(nd.free_at) for nd in inst.nodes]
-    e = dyadic_exponent(d)
-    # every scaled duration is below 2**top, so every per-node sum is below 2**62
-    top = math.frexp(float(d.max()))[1] + e + d.size.bit_length()
-    if top <= 62:
-        acc = np.zeros(m, dtype=np.int64)
-        np.add.at(acc, nodes, np.ldexp(d, e).astype(np.int64))  # times 2**e: exact
-        sums = [Fraction(x, 1 << e) for x in acc.tolist()]
-    else:
-        order = np.argsort(nodes, kind="stable")
-        cuts = np.searchsorted(nodes[order], np.arange(m + 1))
-        sums = [exact_sum(d[order[cuts[k] : cuts[k + 1]]]) for k in range(m)]
-    return [Fraction(nd.free_at) + sums[k] / Fraction(nd.speed) for k, nd in enumerate(inst.nodes)]
+    """Every node's exact finish time ``f_k + (sum of the p_j it runs) / s_k`` (what
+    :meth:`Schedule.exact_finish` computes; no times are needed for it)."""
+    nodes = np.asarray(node_of, dtype=np.int32)
+    sched = Schedule(inst, nodes, np.zeros(inst.n))
+    return [sched.exact_finish(k) for k in range(inst.m)]
 
 
 def exact_makespan(inst: Instance, node_of: npt.ArrayLike) -> Fraction:
