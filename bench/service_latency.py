@@ -57,6 +57,8 @@ sys.path.insert(0, str(ROOT / "tests"))
 
 from live import free_port  # noqa: E402
 
+from service.reading import read_instance  # noqa: E402
+
 
 def cpu_seconds(pid: int) -> float:
     """User + system CPU time of a process so far (Linux /proc), immune to others' load."""
@@ -344,7 +346,7 @@ def throughput(stack: Stack, plans: int, clients: int = 8) -> dict[str, float]:
 
 def big(stack: Stack, runs: int = 3) -> dict[str, float]:
     """The 100,000-job plan: medians of ``runs`` end-to-end requests and in-process runs."""
-    from workers.planning import Instance, solve
+    from workers.planning import solve
 
     body_doc = batch(100_000, 200, 3)
     body = json.dumps(body_doc).encode()
@@ -353,7 +355,7 @@ def big(stack: Stack, runs: int = 3) -> dict[str, float]:
     cores = []
     for _ in range(runs):
         t0 = time.perf_counter()
-        inst = Instance.from_request(json.loads(body))
+        inst = read_instance(json.loads(body))
         res = solve(inst, "longest_first")
         res.to_json()
         cores.append(time.perf_counter() - t0)
@@ -386,16 +388,16 @@ def core_costs() -> float:
     """Where a plan's time goes inside the core (in this process, no Redis, no HTTP).
 
     Returns the milliseconds of the whole in-process pipeline for the 1,000-job plan."""
-    from workers.planning import Instance, bounds, solve
+    from workers.planning import bounds, solve
 
     for n, m in ((100, 10), (1000, 50)):
         body = batch(n, m, 5)
         raw = json.dumps(body)
-        solve(Instance.from_request(body), "longest_first")  # compiled kernels loaded
+        solve(read_instance(body), "longest_first")  # compiled kernels loaded
         reps = 20
         t0 = time.perf_counter()
         for _ in range(reps):
-            inst = Instance.from_request(json.loads(raw))
+            inst = read_instance(json.loads(raw))
         t1 = time.perf_counter()
         for _ in range(reps):
             res = solve(inst, "longest_first")

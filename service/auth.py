@@ -92,11 +92,11 @@ class KeyRing:
                 and (len(parts) == 2 or parts[2] == "admin")
             )
             if not ok:  # the line itself is not echoed: it may hold a key pasted by mistake
-                issues.append(Issue(f"{source}:{no}", "expected `<tenant> <sha256 hex> [admin]`"))
+                issues.append(Issue((source, no), "expected `<tenant> <sha256 hex> [admin]`"))
                 continue
             entries.append((parts[0], parts[1].lower(), len(parts) == 3))
         if issues:
-            lines = ", ".join(i.pointer.rsplit(":", 1)[1] for i in issues)
+            lines = ", ".join(str(i.path[-1]) for i in issues)
             raise SettingsError(
                 f"{source}: unreadable line(s) {lines}; each line must be "
                 "`<tenant> <sha256 hex of the key> [admin]`",
@@ -111,7 +111,7 @@ class KeyRing:
         except OSError as exc:
             raise SettingsError(
                 f"SPANWRIGHT_KEYS_FILE: cannot read {path}: {exc.strerror}",
-                [Issue("SPANWRIGHT_KEYS_FILE", "a readable file")],
+                [Issue(("SPANWRIGHT_KEYS_FILE",), "a readable file")],
             ) from None
         return cls.parse(text)
 

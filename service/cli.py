@@ -16,7 +16,7 @@ import pkgutil
 import sys
 from collections.abc import Sequence
 
-from workers.planning.errors import SpanwrightError, format_issues
+from workers.planning.errors import Issue, SpanwrightError
 
 from . import commands
 
@@ -50,6 +50,16 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def format_issues(issues: list[Issue], limit: int = 10) -> str:
+    """One line per issue, each named by its JSON Pointer as the API names it."""
+    from .problems import json_pointer
+
+    lines = [f"{json_pointer(i.path) or '/'}: {i.detail}" for i in issues[:limit]]
+    if len(issues) > limit:
+        lines.append(f"... and {len(issues) - limit} more")
+    return "\n".join(lines)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
@@ -58,10 +68,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     except SpanwrightError as exc:
         print(f"spanwright: {exc.detail}", file=sys.stderr)
         # an issue of the whole body that only repeats the message is not printed again
-        rest = [i for i in exc.issues if i.pointer or i.detail not in exc.detail]
+        rest = [i for i in exc.issues if i.path or i.detail not in exc.detail]
         if rest:
             print(format_issues(rest), file=sys.stderr)
-        return EXIT_INVALID if exc.status < 500 else EXIT_FAILURE
+        from .problems import http_status
+
+        return EXIT_INVALID if http_status(exc) < 500 else EXIT_FAILURE
     except KeyboardInterrupt:
         return 130
     return code

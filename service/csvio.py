@@ -28,19 +28,19 @@ def _rows(text: str, columns: tuple[str, ...], required: tuple[str, ...], what: 
     try:
         header = next(reader)
     except StopIteration:
-        raise CsvError(f"the {what} CSV is empty", [Issue("", "line 1: no header row")]) from None
+        raise CsvError(f"the {what} CSV is empty", [Issue((), "line 1: no header row")]) from None
     header = [h.strip().lower() for h in header]
     for c, name in enumerate(header, start=1):
         if name not in columns:
             raise CsvError(
                 f"line 1, column {c}: unknown column {name!r} (expected {', '.join(columns)})",
-                [Issue("", f"line 1, column {c}: unknown column {name!r}")],
+                [Issue((), f"line 1, column {c}: unknown column {name!r}")],
             )
     for name in required:
         if name not in header:
             raise CsvError(
                 f"line 1: the {what} CSV needs a {name!r} column",
-                [Issue("", f"line 1: missing column {name!r}")],
+                [Issue((), f"line 1: missing column {name!r}")],
             )
     for line_no, row in enumerate(reader, start=2):
         if not row or all(not cell.strip() for cell in row):
@@ -48,7 +48,7 @@ def _rows(text: str, columns: tuple[str, ...], required: tuple[str, ...], what: 
         if len(row) != len(header):
             raise CsvError(
                 f"line {line_no}: {len(row)} fields, the header has {len(header)}",
-                [Issue("", f"line {line_no}: wrong number of fields")],
+                [Issue((), f"line {line_no}: wrong number of fields")],
             )
         yield line_no, dict(zip(header, (cell.strip() for cell in row), strict=True)), header
 
@@ -62,7 +62,7 @@ def _number(value: str, line: int, header: list[str], name: str, *, low: float =
     if not math.isfinite(x) or x < low:
         raise CsvError(
             f"line {line}, column {col} ({name}): {value!r} is not a finite number >= {low:g}",
-            [Issue("", f"line {line}, column {col}: bad {name}")],
+            [Issue((), f"line {line}, column {col}: bad {name}")],
         )
     return x
 
@@ -98,7 +98,7 @@ def _job_id(value: str, line: int, header: list[str], name: str) -> str:
     if not value:
         raise CsvError(
             f"line {line}, column {header.index(name) + 1} (id): empty",
-            [Issue("", f"line {line}: empty id")],
+            [Issue((), f"line {line}: empty id")],
         )
     return restored(value)
 
@@ -136,7 +136,7 @@ def _read(
             }
         )
     if not out:
-        raise CsvError(f"the {what} CSV has no {items}", [Issue("", "no data rows")])
+        raise CsvError(f"the {what} CSV has no {items}", [Issue((), "no data rows")])
     return out
 
 

@@ -1,10 +1,11 @@
 """The one place where errors become RFC 9457 problem documents (application/problem+json).
 
 Every error spanwright raises on purpose derives from
-:class:`workers.planning.errors.SpanwrightError` and carries its ``kind``, ``status`` and
-``title``; service-level errors below do the same. werkzeug's HTTP errors (unknown route,
-wrong method, body too large) and an unreachable Redis are mapped here too, so the app has
-exactly one error handler.
+:class:`workers.planning.errors.SpanwrightError` and carries its ``kind`` and ``title``;
+the HTTP status of each kind is decided here (:func:`http_status`: the core knows no HTTP),
+and the field paths of its issues become JSON Pointers (RFC 6901) here. werkzeug's HTTP
+errors (unknown route, wrong method, body too large) and an unreachable Redis are mapped
+here too, so the app has exactly one error handler.
 """
 
 from __future__ import annotations
@@ -19,7 +20,7 @@ from flask import Response, request
 from werkzeug.exceptions import HTTPException
 from werkzeug.wrappers import Response as BaseResponse
 
-from workers.planning.errors import Infeasible, InvalidInstance, Issue, SpanwrightError
+from workers.planning.errors import Infeasible, InvalidInstance, Issue, Path, SpanwrightError
 
 from .settings import SettingsError
 
@@ -147,18 +148,48 @@ _HTTP: dict[int, type[SpanwrightError]] = {
 }
 
 
+#: the HTTP status of the core's error kinds (the service's own errors carry theirs)
+CORE_STATUS: dict[type[SpanwrightError], int] = {
+    InvalidInstance: 422,
+    Infeasible: 422,
+    SpanwrightError: 500,
+}
+
+
+def http_status(exc: SpanwrightError | type[SpanwrightError]) -> int:
+    """The HTTP status of an error (or error class)."""
+    cls = exc if isinstance(exc, type) else type(exc)
+    for base in cls.__mro__:
+        if base in CORE_STATUS:
+            return CORE_STATUS[base]
+        own = base.__dict__.get("status")
+        if isinstance(own, int):
+            return own
+    return 500
+
+
+def json_pointer(path: Path) -> str:
+    """A field path as a JSON Pointer (RFC 6901: ``~`` as ``~0``, ``/`` as ``~1``)."""
+    return "".join("/" + str(p).replace("~", "~0").replace("/", "~1") for p in path)
+
+
+def issue_dict(issue: Issue) -> dict[str, str]:
+    """One entry of a problem document's ``errors``: where (a JSON Pointer) and what."""
+    return {"pointer": json_pointer(issue.path), "detail": issue.detail}
+
+
 def problem_dict(exc: SpanwrightError, instance: str | None = None) -> dict[str, Any]:
     """The problem document of ``exc`` (also stored as a failed plan's ``error``)."""
     out: dict[str, Any] = {
         "type": TYPE_BASE + exc.kind,
         "title": exc.title,
-        "status": exc.status,
+        "status": http_status(exc),
         "detail": exc.detail,
     }
     if instance is not None:
         out["instance"] = instance
     if exc.issues:
-        out["errors"] = [i.to_dict() for i in exc.issues]
+        out["errors"] = [issue_dict(i) for i in exc.issues]
     if isinstance(exc, Infeasible):
         out["jobs"] = list(exc.jobs)
     return out
@@ -167,10 +198,11 @@ def problem_dict(exc: SpanwrightError, instance: str | None = None) -> dict[str,
 def problem_response(exc: SpanwrightError, headers: dict[str, str] | None = None) -> Response:
     instance = quote(request.path, safe="/:@!$&'()*+,;=-._~")  # a URI reference
     body = json.dumps(problem_dict(exc, instance), allow_nan=False)
-    resp = Response(body, exc.status, mimetype=MEDIA_TYPE)
-    if exc.status == 405:
+    status = http_status(exc)
+    resp = Response(body, status, mimetype=MEDIA_TYPE)
+    if status == 405:
         resp.headers["Allow"] = ", ".join(sorted(getattr(exc, "allow", ())))
-    if exc.status == 503:
+    if status == 503:
         resp.headers["Retry-After"] = "1"
     for k, v in getattr(exc, "headers", {}).items():  # WWW-Authenticate, Retry-After
         resp.headers[k] = v
@@ -192,7 +224,7 @@ def to_spanwright(exc: BaseException) -> SpanwrightError:
         if exc.code == 413:
             out = PayloadTooLarge(
                 "the request body exceeds the limit of this service",
-                [Issue("", "body too large (limit: SPANWRIGHT_MAX_REQUEST_BYTES)")],
+                [Issue((), "body too large (limit: SPANWRIGHT_MAX_REQUEST_BYTES)")],
             )
         return out
     if isinstance(exc, redis.exceptions.OutOfMemoryError):
@@ -211,7 +243,7 @@ def handle(exc: BaseException) -> BaseResponse:
     err = to_spanwright(exc)
     if isinstance(exc, HTTPException) and exc.code == 304:  # pragma: no cover - not raised
         return exc.get_response()
-    if err.status >= 500:
+    if http_status(err) >= 500:
         log.error("%s %s failed: %s", request.method, request.path, exc, exc_info=exc)
     return problem_response(err)
 
@@ -222,4 +254,4 @@ def describe(kind: str) -> str | None:
     if cls is None:
         return None
     doc = (cls.__doc__ or "").strip()
-    return f"{cls.title}\n\nHTTP status: {cls.status}\n\n{doc}\n"
+    return f"{cls.title}\n\nHTTP status: {http_status(cls)}\n\n{doc}\n"

@@ -2,7 +2,7 @@
 
 They reject unknown fields, wrong types (a string where a number goes, a boolean where an
 integer goes), non-finite numbers and out-of-range values. Semantic checks (duplicate ids,
-a job no node can run) stay in ``Instance.from_request``; limits of this deployment (jobs
+a job no node can run) are the readers' of ``service/reading``; limits of this deployment (jobs
 per batch, nodes, time budget ceiling) are checked by :func:`check_plan_limits` first so a
 huge batch is refused before it is walked.
 
@@ -23,8 +23,7 @@ import numpy as np
 import numpy.typing as npt
 from marshmallow import RAISE, Schema, ValidationError, fields, validate, validates_schema
 
-from workers.planning.confidence import SpreadRequest
-from workers.planning.errors import InvalidInstance, Issue
+from workers.planning.errors import InvalidInstance, Issue, Path
 from workers.planning.model import CONTROL, CONTROL_WORDS, MAX_ID_LENGTH
 from workers.planning.solve import METHODS
 
@@ -244,24 +243,20 @@ class SizingRequestSchema(StrictSchema):
 SIZING_SCHEMA = SizingRequestSchema()
 
 
-def messages_to_issues(messages: Any, pointer: str = "") -> list[Issue]:
-    """Flatten marshmallow's nested error messages into JSON-Pointer issues."""
+def messages_to_issues(messages: Any, path: Path = ()) -> list[Issue]:
+    """Flatten marshmallow's nested error messages into issues with field paths (list
+    positions come back from marshmallow as ints)."""
     out: list[Issue] = []
     if isinstance(messages, Mapping):
         for key, sub in messages.items():
-            child = pointer if key == "_schema" else f"{pointer}/{_escape(str(key))}"
+            child = path if key == "_schema" else (*path, key)
             out.extend(messages_to_issues(sub, child))
     elif isinstance(messages, list | tuple):
         for m in messages:
-            out.extend(messages_to_issues(m, pointer))
+            out.extend(messages_to_issues(m, path))
     else:
-        out.append(Issue(pointer, str(messages)))
+        out.append(Issue(path, str(messages)))
     return out
-
-
-def _escape(token: str) -> str:
-    """RFC 6901 escaping of one reference token."""
-    return token.replace("~", "~0").replace("/", "~1")
 
 
 def check_plan_limits(body: Any, settings: Settings) -> None:
@@ -272,27 +267,26 @@ def check_plan_limits(body: Any, settings: Settings) -> None:
     jobs, nodes = body.get("jobs"), body.get("nodes")
     if isinstance(jobs, list) and len(jobs) > settings.max_jobs:
         issues.append(
-            Issue("/jobs", f"{len(jobs)} jobs; this service plans at most {settings.max_jobs}")
+            Issue(("jobs",), f"{len(jobs)} jobs; this service plans at most {settings.max_jobs}")
         )
     if isinstance(nodes, list) and len(nodes) > settings.max_nodes:
         issues.append(
             Issue(
-                "/nodes", f"{len(nodes)} nodes; this service plans for at most {settings.max_nodes}"
+                ("nodes",),
+                f"{len(nodes)} nodes; this service plans for at most {settings.max_nodes}",
             )
         )
     for key in ("node_count", "max_nodes"):
         count: Any = body.get(key)
         if _number(count) and count > settings.max_nodes:
             issues.append(
-                Issue(
-                    f"/{key}", f"{count} nodes; this service plans for at most {settings.max_nodes}"
-                )
+                Issue((key,), f"{count} nodes; this service plans for at most {settings.max_nodes}")
             )
     samples: Any = body.get("confidence_samples")
     if _number(samples) and isinstance(jobs, list) and samples * len(jobs) > MAX_DRAWS:
         issues.append(
             Issue(
-                "/confidence_samples",
+                ("confidence_samples",),
                 f"{samples} samples of {len(jobs)} jobs is above {MAX_DRAWS:.0e} draws",
             )
         )
@@ -300,7 +294,7 @@ def check_plan_limits(body: Any, settings: Settings) -> None:
     if _number(tb) and tb > settings.max_time_budget:
         issues.append(
             Issue(
-                "/time_budget",
+                ("time_budget",),
                 f"{tb} s is above this service's ceiling of {settings.max_time_budget} s",
             )
         )
@@ -404,20 +398,16 @@ def load_sizing_request(body: Any, settings: Settings) -> dict[str, Any]:
     """As :func:`load_plan_request`, for ``POST /v1/sizings``.
 
     With spread inputs, also the core's checks of them that need no sampling
-    (``SpreadRequest.check_body``: a target ``confidence`` the sample count cannot show,
-    or no node count can reach, is a 422 here rather than a failed sizing later).
+    (``service/reading``: a target ``confidence`` the sample count cannot show, or no node
+    count can reach, is a 422 here rather than a failed sizing later) are run by the route.
     """
-    data = _load(SIZING_SCHEMA, body, settings)
-    asked = SpreadRequest.from_body(data)
-    if asked is not None:
-        asked.check_body(data)
-    return data
+    return _load(SIZING_SCHEMA, body, settings)
 
 
 def _load(schema: Schema, body: Any, settings: Settings) -> dict[str, Any]:
     if not isinstance(body, Mapping):
         raise InvalidInstance(
-            "the request body must be a JSON object", [Issue("", "not an object")]
+            "the request body must be a JSON object", [Issue((), "not an object")]
         )
     check_plan_limits(body, settings)
     try:
@@ -460,7 +450,7 @@ def load_replan_request(body: Any) -> dict[str, Any]:
     """The shape of an events body: unknown fields, wrong types and out-of-range values are
     refused with :class:`InvalidInstance` (422), one JSON Pointer per problem."""
     if not isinstance(body, Mapping):
-        raise InvalidInstance("the events body must be a JSON object", [Issue("", "not an object")])
+        raise InvalidInstance("the events body must be a JSON object", [Issue((), "not an object")])
     try:
         data: dict[str, Any] = REPLAN_SCHEMA.load(body)
     except ValidationError as exc:

@@ -91,42 +91,43 @@ class Settings:
     def __post_init__(self) -> None:
         issues: list[Issue] = []
         if not re.fullmatch(r"[A-Za-z0-9_.{}-]{1,64}", self.key_prefix):
-            issues.append(Issue("SPANWRIGHT_KEY_PREFIX", "letters, digits, _ . - { } only"))
+            issues.append(Issue(("SPANWRIGHT_KEY_PREFIX",), "letters, digits, _ . - { } only"))
         if not re.fullmatch(r"[A-Za-z0-9_.-]{1,64}", self.queue_name):
-            issues.append(Issue("SPANWRIGHT_QUEUE_NAME", "letters, digits, _ . - only"))
+            issues.append(Issue(("SPANWRIGHT_QUEUE_NAME",), "letters, digits, _ . - only"))
         for f in fields(self):
             v = getattr(self, f.name)
             number = isinstance(v, int | float) and not isinstance(v, bool)
             if f.name in _MAY_BE_ZERO:
                 if number and not v >= 0:
-                    issues.append(Issue(PREFIX + f.name.upper(), "must be a whole number >= 0"))
+                    issues.append(Issue((PREFIX + f.name.upper(),), "must be a whole number >= 0"))
             elif number and not (math.isfinite(v) and v > 0):
-                issues.append(Issue(PREFIX + f.name.upper(), "must be a finite number > 0"))
+                issues.append(Issue((PREFIX + f.name.upper(),), "must be a finite number > 0"))
         if self.sentinels:
             try:
                 if not parse_sentinels(self.sentinels):
-                    issues.append(Issue("SPANWRIGHT_SENTINELS", "at least one host:port"))
+                    issues.append(Issue(("SPANWRIGHT_SENTINELS",), "at least one host:port"))
             except SettingsError as exc:
                 issues.extend(exc.issues)
             if not self.sentinel_master:
                 issues.append(
                     Issue(
-                        "SPANWRIGHT_SENTINEL_MASTER",
+                        ("SPANWRIGHT_SENTINEL_MASTER",),
                         "required with SPANWRIGHT_SENTINELS: the master name the Sentinels monitor",
                     )
                 )
         if not isinstance(logging.getLevelName(self.log_level.upper()), int):
             issues.append(
-                Issue("SPANWRIGHT_LOG_LEVEL", "one of DEBUG, INFO, WARNING, ERROR, CRITICAL")
+                Issue(("SPANWRIGHT_LOG_LEVEL",), "one of DEBUG, INFO, WARNING, ERROR, CRITICAL")
             )
         if self.default_time_budget > self.max_time_budget:
             issues.append(
                 Issue(
-                    "SPANWRIGHT_DEFAULT_TIME_BUDGET", "must not exceed SPANWRIGHT_MAX_TIME_BUDGET"
+                    ("SPANWRIGHT_DEFAULT_TIME_BUDGET",),
+                    "must not exceed SPANWRIGHT_MAX_TIME_BUDGET",
                 )
             )
         if issues:
-            raise SettingsError("invalid settings: " + "; ".join(i.pointer for i in issues), issues)
+            raise SettingsError("invalid settings: " + "; ".join(i.where for i in issues), issues)
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str]) -> Settings:
@@ -146,9 +147,9 @@ class Settings:
             try:
                 values[f.name] = conv(raw.strip())
             except ValueError:
-                issues.append(Issue(var, f"cannot read {raw!r} as {type(f.default).__name__}"))
+                issues.append(Issue((var,), f"cannot read {raw!r} as {type(f.default).__name__}"))
         if issues:
-            raise SettingsError("invalid settings: " + "; ".join(i.pointer for i in issues), issues)
+            raise SettingsError("invalid settings: " + "; ".join(i.where for i in issues), issues)
         return cls(**values)
 
     @property
@@ -176,7 +177,7 @@ def parse_sentinels(raw: str) -> list[tuple[str, int]]:
         if not sep or not host or not port.isdigit():
             raise SettingsError(
                 f"SPANWRIGHT_SENTINELS: {part!r} is not host:port",
-                [Issue("SPANWRIGHT_SENTINELS", "comma-separated host:port pairs")],
+                [Issue(("SPANWRIGHT_SENTINELS",), "comma-separated host:port pairs")],
             )
         out.append((host.strip("[]"), int(port)))
     return out

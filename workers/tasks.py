@@ -58,17 +58,18 @@ def solve_plan(
 
     ``body`` is the request body, or the API's copy of it with the jobs in columns.
     """
-    from workers.planning import Instance, usecases
+    from service import reading
+    from workers.planning import usecases
 
     if isinstance(body, payload.Columns):
-        inst = Instance.from_columns(body.envelope, body.ids, body.durations, body.groups)
-        options: Mapping[str, Any] = body.envelope  # everything but the jobs
+        inst = reading.read_columns(body.envelope, body.ids, body.durations, body.groups)
+        spread = reading.read_spread(body.envelope)  # plain jobs carry no duration_p90
     else:
-        inst = Instance.from_request(body)
-        options = body
+        inst = reading.read_instance(body)
+        spread = reading.read_spread(body)
     answer = usecases.plan(
         inst,
-        options,
+        spread=spread,
         method=method,
         time_budget=time_budget,
         progress=progress,
@@ -99,10 +100,15 @@ def size_farm(
     should_stop: Callable[[], bool],
 ) -> Outcome:
     """``POST /v1/sizings`` through the use-case the command line calls too."""
+    from service import reading
     from workers.planning import usecases
 
-    answer = usecases.size_body(
-        body, time_budget=time_budget, progress=progress, should_stop=should_stop
+    answer = usecases.size(
+        reading.read_sizing_request(body),
+        spread=reading.read_spread(body),
+        time_budget=time_budget,
+        progress=progress,
+        should_stop=should_stop,
     )
     d = answer.to_dict()
     cancelled = answer.result.stop_reason == "cancelled"

@@ -5,9 +5,12 @@ from __future__ import annotations
 import json
 import math
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from workers.planning.errors import InvalidInstance, Issue
+
+if TYPE_CHECKING:
+    from ..settings import Settings
 
 
 def _reject_constant(name: str) -> float:
@@ -21,11 +24,11 @@ def read_json(path: str) -> Any:
     try:
         text = sys.stdin.read() if path == "-" else Path(path).read_text(encoding="utf-8")
     except OSError as exc:
-        raise InvalidInstance(f"cannot read {path}: {exc.strerror}", [Issue("", str(exc))]) from exc
+        raise InvalidInstance(f"cannot read {path}: {exc.strerror}", [Issue((), str(exc))]) from exc
     try:
         return json.loads(text, parse_constant=_reject_constant)
     except (ValueError, RecursionError) as exc:
-        raise InvalidInstance(f"{path} is not valid JSON: {exc}", [Issue("", str(exc))]) from exc
+        raise InvalidInstance(f"{path} is not valid JSON: {exc}", [Issue((), str(exc))]) from exc
 
 
 def finite(x: float) -> float | None:
@@ -36,16 +39,22 @@ def load_request(path: str, kind: str) -> dict[str, Any]:
     """A request file read and checked exactly as the API checks its body (the same
     schemas, limits and messages; settings from the environment, as ``serve`` reads
     them): ``kind`` is ``plan`` or ``sizing``. Defaults are filled in (``time_budget``)."""
-    import os
-
     from ..schemas import load_plan_request, load_sizing_request
-    from ..settings import Settings
 
     body = read_json(path)
-    settings = Settings.from_env(os.environ)
+    settings = settings_from_env()
     if kind == "plan":
         return load_plan_request(body, settings)
     return load_sizing_request(body, settings)
+
+
+def settings_from_env() -> Settings:
+    """The service's settings from the environment, as ``serve`` reads them."""
+    import os
+
+    from ..settings import Settings
+
+    return Settings.from_env(os.environ)
 
 
 def time_budget(override: float | None, data: dict[str, Any]) -> float:
@@ -53,6 +62,6 @@ def time_budget(override: float | None, data: dict[str, Any]) -> float:
     budget = override if override is not None else data["time_budget"]
     if not 0 <= budget < math.inf:  # NaN and inf fail too
         raise InvalidInstance(
-            "bad time budget", [Issue("/time_budget", "must be a finite number >= 0")]
+            "bad time budget", [Issue(("time_budget",), "must be a finite number >= 0")]
         )
     return float(budget)

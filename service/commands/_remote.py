@@ -39,7 +39,7 @@ def read_batch(path: str) -> dict[str, Any]:
     if not isinstance(body, dict):
         from workers.planning.errors import InvalidInstance, Issue
 
-        raise InvalidInstance(f"{path} must hold a JSON object", [Issue("", "not an object")])
+        raise InvalidInstance(f"{path} must hold a JSON object", [Issue((), "not an object")])
     return body
 
 

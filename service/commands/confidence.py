@@ -29,20 +29,26 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from workers.planning import Instance, usecases
+    from workers.planning import usecases
+
+    from .. import reading
 
     data = load_request(args.file, "plan")  # the API's checks, its messages
     if args.samples is not None:
         if args.samples < 10:
             raise InvalidInstance(
-                "bad sample count", [Issue("/confidence_samples", "must be at least 10")]
+                "bad sample count", [Issue(("confidence_samples",), "must be at least 10")]
             )
         data["confidence_samples"] = args.samples
     data.setdefault("confidence_samples", 1000)  # what the API would draw with spread
     if args.seed is not None:
         data["confidence_seed"] = args.seed
-    inst = Instance.from_request(data)
-    answer = usecases.plan(inst, data, method=data["method"], time_budget=time_budget(None, data))
+    answer = usecases.plan(
+        reading.read_instance(data),
+        method=data["method"],
+        spread=reading.read_spread(data),
+        time_budget=time_budget(None, data),
+    )
     block = answer.extra["confidence"]
     if args.json:
         json.dump(block, sys.stdout, allow_nan=False)

@@ -31,21 +31,36 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def _object(path: str) -> dict[str, object]:
     body = read_json(path)
     if not isinstance(body, dict):
-        raise InvalidInstance(f"{path} must hold a JSON object", [Issue("", "not an object")])
+        raise InvalidInstance(f"{path} must hold a JSON object", [Issue((), "not an object")])
     return body
 
 
 def run(args: argparse.Namespace) -> int:
+    from workers.planning.budget import DEFAULT_SECONDS
     from workers.planning.replan import replan
 
-    from ..schemas import load_replan_request
+    from .. import reading
+    from ..schemas import load_plan_request, load_replan_request
+    from ._io import settings_from_env
 
     request = _object(args.request_file)
     result = _object(args.result_file)
     events = load_replan_request(_object(args.events_file))  # the API's checks of events
     if args.time_budget is not None and not args.time_budget >= 0:
-        raise InvalidInstance("bad time budget", [Issue("/time_budget", "must be >= 0")])
-    res = replan(request, result, events, method=args.method, time_budget=args.time_budget)
+        raise InvalidInstance("bad time budget", [Issue(("time_budget",), "must be >= 0")])
+    ev = reading.read_events(events)
+    method = args.method or ev.method or request.get("method") or "longest_first"
+    budget = args.time_budget
+    if budget is None:
+        budget = ev.time_budget if ev.time_budget is not None else request.get("time_budget")
+    inst = reading.read_instance(load_plan_request(request, settings_from_env()))
+    res = replan(
+        inst,
+        reading.planned_nodes(result),
+        ev,
+        method=str(method),
+        time_budget=DEFAULT_SECONDS if budget is None else float(budget),
+    )
     if args.json:
         json.dump(res.to_dict(), sys.stdout, allow_nan=False)
         sys.stdout.write("\n")

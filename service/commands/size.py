@@ -28,10 +28,14 @@ def run(args: argparse.Namespace) -> int:
     from workers.planning import usecases
     from workers.planning.warmup import warm_up_sizing as warm_up
 
+    from .. import reading
+
     data = load_request(args.file, "sizing")  # the API's checks, its messages
     budget = time_budget(args.time_budget, data)
     warm_up()  # load (or compile) the kernels before the clock starts
-    answer = usecases.size_body(data, time_budget=budget)
+    answer = usecases.size(
+        reading.read_sizing_request(data), spread=reading.read_spread(data), time_budget=budget
+    )
     if args.json:
         json.dump(answer.to_dict(with_plan=not args.no_plan), sys.stdout, allow_nan=False)
         sys.stdout.write("\n")

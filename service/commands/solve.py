@@ -24,6 +24,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     from workers.planning import usecases
 
+    from .. import reading
+
     data = load_request(args.file, "plan")  # the API's checks, its messages
     if args.method:
         data["method"] = args.method
@@ -32,7 +34,12 @@ def run(args: argparse.Namespace) -> int:
         from workers.planning.warmup import warm_up_exact as warm_up
 
         warm_up()  # load the compiled search before its clock starts, not out of the budget
-    answer = usecases.plan_body(data, time_budget=budget)
+    answer = usecases.plan(
+        reading.read_instance(data),
+        method=data["method"],
+        spread=reading.read_spread(data),
+        time_budget=budget,
+    )
     if args.json:
         json.dump(answer.to_dict(), sys.stdout, allow_nan=False)
         sys.stdout.write("\n")

@@ -123,7 +123,7 @@ def read_json_body() -> tuple[bytes, Any]:
     try:
         return raw, _loads(raw)
     except (ValueError, RecursionError) as exc:
-        raise BadRequest(f"the body is not valid JSON: {exc}", [Issue("", str(exc))]) from None
+        raise BadRequest(f"the body is not valid JSON: {exc}", [Issue((), str(exc))]) from None
 
 
 _STRING = re.compile(rb'"(?:[^"\\]|\\.)*"')
@@ -153,7 +153,7 @@ def _check_elements(raw: bytes, settings: Settings) -> None:
     raise LimitExceeded(
         f"the body holds more than {limit} JSON values; this service plans at most "
         f"{settings.max_jobs} jobs on {settings.max_nodes} nodes",
-        [Issue("", "too many JSON values")],
+        [Issue((), "too many JSON values")],
     )
 
 
@@ -263,7 +263,7 @@ def list_tenant(asked: str | None) -> str:
 def _key_reused() -> IdempotencyKeyReused:
     return IdempotencyKeyReused(
         "this Idempotency-Key was used with a different body; use a new key",
-        [Issue("", "body differs from the first request with this key")],
+        [Issue((), "body differs from the first request with this key")],
     )
 
 

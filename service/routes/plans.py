@@ -4,10 +4,10 @@ from __future__ import annotations
 
 from typing import Any
 
-from workers.planning import Instance
 from workers.planning.farm_bounds import eligibility
 
 from .. import payload
+from ..reading import read_columns, read_instance
 from ..schemas import load_plan_columns, load_plan_request
 from ..settings import Settings
 from .jobs import Resource, Validated, make_blueprint
@@ -17,20 +17,20 @@ def read_plan(body: Any, settings: Settings) -> Validated:
     """Limits and shape (marshmallow), then the core's semantic checks (422 either way).
 
     A body whose jobs are all plain ``{id, duration[, group]}`` objects is read once, in
-    columns (``load_plan_columns`` then ``Instance.from_columns``), and the worker gets
+    columns (``load_plan_columns`` then ``reading.read_columns``), and the worker gets
     those columns (``service/payload.py``); any other body, and every body with a
     problem, takes the per-job path (``load_plan_request`` then
-    ``Instance.from_request``), whose verdicts and messages both paths share.
+    ``reading.read_instance``), whose verdicts and messages both paths share.
     """
     fast = load_plan_columns(body, settings)
     if fast is None:
         data = load_plan_request(body, settings)
-        inst = Instance.from_request(data)
+        inst = read_instance(data)
         if inst.requires is not None:
             eligibility(inst)  # a job no node can run: 422 naming it, not a failed plan
         return Validated(data)
     data, cols = fast
-    Instance.from_columns(body, cols.ids, cols.durations, cols.groups)  # no tags in columns
+    read_columns(body, cols.ids, cols.durations, cols.groups)  # no tags in columns
     envelope = {k: v for k, v in body.items() if k != "jobs"}
     return Validated(data, payload.encode(envelope, cols.ids, cols.durations, cols.groups))
 

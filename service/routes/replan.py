@@ -3,11 +3,11 @@
 The events body (elapsed, finished, running, lost and added nodes) is checked for shape
 (``ReplanRequestSchema``: unknown fields refused, JSON Pointers), then it and the stored
 request and result go through the core's ``replan.remaining_work``; the remaining work
-becomes an ordinary plan request, validated like any other and queued through the same
-protocol as ``POST /v1/plans`` (:func:`.jobs.queue_record`: queue-depth admission,
-``Idempotency-Key``, ``Prefer: wait``; the per-tenant request rate is counted for every
-keyed request by ``service/auth.py``). Time 0 of the new plan is the re-planning moment;
-running jobs stay on their nodes (busy until they end).
+becomes an ordinary plan request (``reading.replan_body``), validated like any other and
+queued through the same protocol as ``POST /v1/plans`` (:func:`.jobs.queue_record`:
+queue-depth admission, ``Idempotency-Key``, ``Prefer: wait``; the per-tenant request rate
+is counted for every keyed request by ``service/auth.py``). Time 0 of the new plan is the
+re-planning moment; running jobs stay on their nodes (busy until they end).
 """
 
 from __future__ import annotations
@@ -18,9 +18,10 @@ from typing import Any
 
 from flask import Blueprint, Response
 
-from workers.planning.replan import read_events, remaining_work
+from workers.planning.replan import remaining_work
 
 from ..problems import NotFinished, NotFound
+from ..reading import planned_nodes, read_events, read_instance, replan_body
 from ..schemas import load_replan_request
 from ..services import services, tenant
 from .jobs import ID_RE, queue_record, read_json_body
@@ -44,10 +45,14 @@ def replan(rid: str) -> Response:
         raise NotFinished(f"plan {rid} is {old.status}; only a finished plan can be re-planned")
     raw_events, body = read_json_body()
     events = read_events(load_replan_request(body))
-    work = remaining_work(json.loads(raw_request), json.loads(old.result_json), events)
-    checked = read_plan(work.request, svc.settings)
+    original = json.loads(raw_request)
+    work = remaining_work(
+        read_instance(original), planned_nodes(json.loads(old.result_json)), events
+    )
+    request = replan_body(original, work, events)
+    checked = read_plan(request, svc.settings)
     data = checked.data
-    raw = json.dumps(work.request, allow_nan=False).encode()
+    raw = json.dumps(request, allow_nan=False).encode()
     meta: dict[str, Any] = {
         "method": data.get("method"),
         "time_budget": repr(float(data["time_budget"])),

@@ -1,8 +1,9 @@
 """``/v1/sizings``: the fewest nodes of one kind meeting a deadline; shared job machinery.
 
 Semantic checks (a job longer than the deadline is a 422 naming it, tags no node
-provides, more nodes than ``max_nodes`` by the lower bound, ...) are the core's
-``read_sizing_request`` and ``SizingArgs.check``: they read and check the request without
+provides, more nodes than ``max_nodes`` by the lower bound, a confidence target out of
+reach, ...) are ``reading.read_sizing_request`` and the core's ``SizingArgs.check`` and
+``SpreadRequest.check``: they read and check the request without
 sizing it; the search runs on the worker. (A batch whose lower bound fits ``max_nodes``
 but no plan found does ends ``failed`` with that reason.)
 """
@@ -11,6 +12,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from ..reading import read_sizing_request, read_spread
 from ..schemas import load_sizing_request
 from ..settings import Settings
 from .jobs import Resource, Validated, make_blueprint
@@ -18,10 +20,12 @@ from .jobs import Resource, Validated, make_blueprint
 
 def validate_sizing(body: Any, settings: Settings) -> dict[str, Any]:
     """Limits and shape (marshmallow), then the core's checks (422 either way)."""
-    from workers.planning.sizing_request import read_sizing_request
-
     data = load_sizing_request(body, settings)
-    read_sizing_request(data).check()
+    args = read_sizing_request(data)
+    args.check()
+    asked = read_spread(data)
+    if asked is not None:
+        asked.check(args.base, args.node.speed)
     return data
 
 

@@ -14,7 +14,8 @@ from typing import Any
 
 import pytest
 
-from workers.planning import Instance, solve
+from service.reading import read_instance
+from workers.planning import solve
 
 # Graham (1969), "Bounds on multiprocessing timing anomalies": 2 nodes, jobs 3,3,2,2,2.
 # Longest-first gives makespan 7 while 3+3 | 2+2+2 gives 6 = total/2, the mean-load bound.
@@ -75,7 +76,7 @@ def test_service_returns_what_the_library_returns(client: Any) -> None:
     """The HTTP result is the core's ``result`` object for the same body, field for field."""
     body = small(40, 4, deadline=900)
     doc = client.post("/v1/plans", json=body, headers={"Prefer": "wait=5"}).get_json()
-    lib = solve(Instance.from_request(body), "longest_first").to_dict()
+    lib = solve(read_instance(body), "longest_first").to_dict()
     got = dict(doc["result"])
     for volatile in ("solve_seconds",):
         got.pop(volatile), lib.pop(volatile)

@@ -15,9 +15,9 @@ import pytest
 
 from service.cli import main
 from service.demo import demo_files
+from service.reading import read_instance
 from service.schemas import load_plan_request
 from service.settings import Settings
-from workers.planning import Instance
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -44,7 +44,7 @@ def test_demo_batches_are_valid_requests() -> None:
     for path in files:
         body = json.loads(path.read_text())
         data = load_plan_request(body, Settings())
-        sizes.append(Instance.from_request(data).n)
+        sizes.append(read_instance(data).n)
         assert body["name"].startswith("Lantern Hill")
     assert max(sizes) >= 190
 

@@ -8,7 +8,8 @@ import io
 import pytest
 
 from service.csvio import CsvError, read_jobs_csv, read_nodes_csv, write_assignment_csv
-from workers.planning import Instance, solve
+from service.reading import read_instance
+from workers.planning import solve
 
 
 def test_batch_csv_reads_all_columns() -> None:
@@ -58,7 +59,7 @@ def test_assignment_csv_round_trip() -> None:
     """Plan a CSV batch and export it: every job appears exactly once with its times."""
     rows = "\n".join(f"f{i:03d},{60 + 7 * (i % 13)}" for i in range(120))
     jobs = read_jobs_csv("id,duration\n" + rows + "\n")
-    inst = Instance.from_request({"jobs": jobs, "node_count": 7})
+    inst = read_instance({"jobs": jobs, "node_count": 7})
     res = solve(inst, "longest_first").to_dict()
     out = list(csv.DictReader(io.StringIO(write_assignment_csv(res["assignment"]))))
     assert sorted(r["job"] for r in out) == sorted(j["id"] for j in jobs)

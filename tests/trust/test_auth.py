@@ -94,8 +94,8 @@ def test_keys_file_holds_hashes_only(tmp_path: Path) -> None:
     with pytest.raises(SettingsError) as err:
         KeyRing.parse("alpha my-secret-key-in-clear\n")
     assert "my-secret-key-in-clear" not in str(err.value.detail)
-    assert "my-secret-key-in-clear" not in repr([i.to_dict() for i in err.value.issues])
-    assert err.value.issues[0].pointer.endswith(":1")
+    assert "my-secret-key-in-clear" not in repr(err.value.issues)
+    assert err.value.issues[0].path[-1] == 1
     with pytest.raises(SettingsError):
         create_app(
             Settings(keys_file=str(tmp_path / "missing")),

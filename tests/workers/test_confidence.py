@@ -20,6 +20,9 @@ import pytest
 from scipy import stats
 
 from service.cli import main as cli_main
+from service.problems import json_pointer
+from service.reading import read_spread
+from tests.bodies import size_body
 from workers import tasks
 from workers.planning import Instance, Node
 from workers.planning import confidence as cf
@@ -28,7 +31,6 @@ from workers.planning.greedy import list_schedule, longest_first_schedule
 from workers.planning.kernels import earliest_finish
 from workers.planning.result import Schedule
 from workers.planning.sizing import SizingResult
-from workers.planning.sizing_request import size_from_request
 
 Z90 = stats.norm.ppf(0.9)
 
@@ -501,7 +503,7 @@ def test_bad_arguments_name_the_field(kwargs: dict[str, object], pointer: str) -
     sched = longest_first_schedule(Instance.build([10, 20, 30], 2))
     with pytest.raises(InvalidInstance) as exc:
         cf.simulate(sched, **kwargs)  # type: ignore[arg-type]
-    assert exc.value.issues[0].pointer == pointer
+    assert json_pointer(exc.value.issues[0].path) == pointer
 
 
 def test_zero_estimate_with_positive_p90_is_refused() -> None:
@@ -509,7 +511,7 @@ def test_zero_estimate_with_positive_p90_is_refused() -> None:
     inst = with_p90(Instance.build([0.0, 10.0], 1), [5.0, None])
     with pytest.raises(InvalidInstance) as exc:
         cf.simulate(longest_first_schedule(inst))
-    assert exc.value.issues[0].pointer == "/jobs/0/duration_p90"
+    assert json_pointer(exc.value.issues[0].path) == "/jobs/0/duration_p90"
 
 
 # -- sizing to a confidence ----------------------------------------------------------------
@@ -551,7 +553,7 @@ def test_sizing_refuses_a_confidence_the_sample_count_cannot_show() -> None:
     """With N samples the Wilson lower limit is at most N/(N + z^2): q above it is refused."""
     with pytest.raises(InvalidInstance) as exc:
         cf.nodes_for_confidence([100.0] * 10, 500.0, 0.999, spread=0.2, samples=500)
-    assert exc.value.issues[0].pointer == "/confidence_samples"
+    assert json_pointer(exc.value.issues[0].path) == "/confidence_samples"
 
 
 def test_sizing_names_jobs_no_node_count_can_carry() -> None:
@@ -613,8 +615,8 @@ def sizing_body(d: np.ndarray, deadline: float, **extra: object) -> dict[str, ob
 
 def sized(body: dict[str, object]) -> tuple[SizingResult, dict[str, object]]:
     """The sizing of ``body`` and the confidence fields the service adds to it."""
-    res = size_from_request(body, time_budget=0.3)
-    asked = cf.SpreadRequest.from_body(body)
+    res = size_body(body, time_budget=0.3)
+    asked = read_spread(body)
     assert asked is not None
     return res, cf.sizing_confidence(res.schedule, asked)
 
@@ -740,7 +742,7 @@ def test_sizing_to_a_confidence_beyond_max_nodes_names_max_nodes() -> None:
     assert isinstance(ans, dict) and ans["nodes_needed"] > res.nodes_needed
     with pytest.raises(Infeasible) as exc:
         sized({**body, "max_nodes": res.nodes_needed})
-    assert [i.pointer for i in exc.value.issues] == ["/max_nodes"]
+    assert [json_pointer(i.path) for i in exc.value.issues] == ["/max_nodes"]
 
 
 @pytest.mark.parametrize(
@@ -757,17 +759,17 @@ def test_sizing_to_a_confidence_beyond_max_nodes_names_max_nodes() -> None:
 def test_spread_request_names_a_bad_input(extra: dict[str, object], pointer: str) -> None:
     """A body that skipped the API's schema (the command line) gets the same pointers."""
     with pytest.raises(InvalidInstance) as exc:
-        cf.SpreadRequest.from_body(sizing_body(np.array([60.0]), 100.0, **extra))
-    assert [i.pointer for i in exc.value.issues] == [pointer]
+        read_spread(sizing_body(np.array([60.0]), 100.0, **extra))
+    assert [json_pointer(i.path) for i in exc.value.issues] == [pointer]
 
 
 def test_spread_request_only_when_asked() -> None:
     """No p90, spread, confidence_samples or confidence: no simulation (None); a job's
     p90 alone asks for one, with the defaults 1000 samples and seed 0."""
     body = sizing_body(np.array([60.0, 90.0]), 100.0)
-    assert cf.SpreadRequest.from_body(body) is None
+    assert read_spread(body) is None
     body["jobs"][1]["duration_p90"] = 120.0  # type: ignore[index]
-    assert cf.SpreadRequest.from_body(body) == cf.SpreadRequest(None, 1000, 0)
+    assert read_spread(body) == cf.SpreadRequest(None, 1000, 0)
 
 
 def test_cli_size_prints_the_confidence_lines(tmp_path, capsys) -> None:  # type: ignore[no-untyped-def]

@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 from scipy.optimize import Bounds, LinearConstraint, milp
 
+from service.problems import json_pointer
 from workers.planning import Infeasible, Instance, Node, solve
 from workers.planning.farm import KOVACS_2010, node_classes
 from workers.planning.farm_bounds import eligibility, farm_lower_bounds
@@ -257,7 +258,10 @@ def test_infeasible_named_job_by_job() -> None:
     with pytest.raises(Infeasible) as err:
         solve(inst, "longest_first")
     assert err.value.jobs == ["ep1_b", "ep1_d"]
-    assert [i.pointer for i in err.value.issues] == ["/jobs/1/requires", "/jobs/3/requires"]
+    assert [json_pointer(i.path) for i in err.value.issues] == [
+        "/jobs/1/requires",
+        "/jobs/3/requires",
+    ]
 
 
 def test_large_instance_local_search_never_worse_than_lpt() -> None:

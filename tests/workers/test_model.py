@@ -9,13 +9,15 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from workers.planning import Instance, InvalidInstance
+from service.problems import json_pointer
+from service.reading import read_columns, read_instance
+from workers.planning import InvalidInstance
 
 
 def pointers(body: dict) -> list[str]:
     with pytest.raises(InvalidInstance) as err:
-        Instance.from_request(body)
-    return [i.pointer for i in err.value.issues]
+        read_instance(body)
+    return [json_pointer(i.path) for i in err.value.issues]
 
 
 def job(i: int, d: object = 10) -> dict:
@@ -59,7 +61,7 @@ def test_all_problems_reported_together() -> None:
 
 def test_good_request_round_trips() -> None:
     """A valid body keeps ids, durations, groups and the deadline as given."""
-    inst = Instance.from_request(
+    inst = read_instance(
         {
             "jobs": [{"id": "sh010_f0001", "duration": 1840.5, "group": "sh010"}],
             "node_count": 3,
@@ -73,7 +75,7 @@ def test_good_request_round_trips() -> None:
 
 def test_unicode_ids_are_accepted() -> None:
     """Printable unicode in ids is fine (studios name shots in many scripts)."""
-    inst = Instance.from_request({"jobs": [{"id": "場面_07", "duration": 1}], "node_count": 1})
+    inst = read_instance({"jobs": [{"id": "場面_07", "duration": 1}], "node_count": 1})
     assert inst.job_ids == ("場面_07",)
 
 
@@ -82,7 +84,7 @@ def _outcome(build: Any) -> Any:
     try:
         inst = build()
     except InvalidInstance as exc:
-        return ("invalid", exc.detail, [(i.pointer, i.detail) for i in exc.issues])
+        return ("invalid", exc.detail, [(json_pointer(i.path), i.detail) for i in exc.issues])
     return (
         inst.job_ids,
         inst.durations.tolist(),
@@ -141,6 +143,6 @@ def test_columns_read_exactly_like_the_request(
         for i, d, g in zip(ids, durations, groups, strict=True)
     ]
     body = {**envelope, "jobs": objects}
-    want = _outcome(lambda: Instance.from_request(body))
-    got = _outcome(lambda: Instance.from_columns(envelope, ids, durations, groups))
+    want = _outcome(lambda: read_instance(body))
+    got = _outcome(lambda: read_columns(envelope, ids, durations, groups))
     assert got == want

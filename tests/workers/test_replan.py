@@ -14,8 +14,10 @@ import numpy as np
 import pytest
 
 from service.cli import main
-from workers.planning import Infeasible, Instance, InvalidInstance, solve
-from workers.planning.replan import read_events, remaining_work, replan, replan_from_request
+from service.problems import json_pointer
+from service.reading import read_events, read_instance
+from tests.bodies import remaining_of, replan_bodies, replan_request
+from workers.planning import Infeasible, InvalidInstance, solve
 
 
 def studio_request(seed: int, n: int = 40) -> dict[str, Any]:
@@ -59,10 +61,10 @@ def test_lost_node_jobs_replanned_none_lost_or_duplicated(seed: int) -> None:
     """Every job planned on a lost node (running or queued) is planned again; finished,
     kept-running and re-planned jobs partition the original batch (none lost or twice)."""
     req = studio_request(seed)
-    res = solve(Instance.from_request(req), "longest_first").to_dict()
+    res = solve(read_instance(req), "longest_first").to_dict()
     lost = f"blade-{2 + seed % 6:02d}"
     ev = events_at(req, res, elapsed=0.35 * res["makespan"], lost=[lost])
-    out = replan(req, res, ev)
+    out = replan_bodies(req, res, ev)
     out.schedule.check()
     new_jobs = [j["id"] for row in out.to_dict()["assignment"] for j in row["jobs"]]
     kept = [r["job"] for r in out.extras["replan"]["running"]]
@@ -79,10 +81,10 @@ def test_running_jobs_keep_their_node() -> None:
     """A running job is not planned again; its node is busy until started_at +
     duration/speed (shifted to the re-planning moment) and nothing else runs there before."""
     req = studio_request(1)
-    res = solve(Instance.from_request(req), "longest_first").to_dict()
+    res = solve(read_instance(req), "longest_first").to_dict()
     ev = events_at(req, res, elapsed=0.5 * res["makespan"], lost=[])
     assert ev["running"]
-    out = replan(req, res, ev)
+    out = replan_bodies(req, res, ev)
     inst = out.schedule.instance
     speed = {nd["id"]: nd["speed"] for nd in req["nodes"]}
     dur = {j["id"]: j["duration"] for j in req["jobs"]}
@@ -105,7 +107,7 @@ def test_running_job_on_lost_node_is_planned_again_and_added_node_used() -> None
     """A job running on a node that is lost is planned again; added nodes join the farm
     with their free_at shifted to the re-planning moment; the deadline shifts too."""
     req = studio_request(2, n=12)
-    res = solve(Instance.from_request(req), "longest_first").to_dict()
+    res = solve(read_instance(req), "longest_first").to_dict()
     row = next(r for r in res["assignment"] if r["jobs"])
     job = row["jobs"][0]
     ev = {
@@ -114,21 +116,21 @@ def test_running_job_on_lost_node_is_planned_again_and_added_node_used() -> None
         "lost_nodes": [row["node"]],
         "added_nodes": [{"id": "blade-new", "speed": 2.0, "provides": ["gpu"], "free_at": 5000}],
     }
-    body = replan_from_request(req, res, ev)
+    body = replan_request(req, res, ev)
     assert job["id"] in [j["id"] for j in body["jobs"]]
     new = {nd["id"]: nd for nd in body["nodes"]}
     assert row["node"] not in new
     assert new["blade-new"]["free_at"] == pytest.approx(5000 - ev["elapsed"])
     assert body["deadline"] == pytest.approx(20000 - ev["elapsed"])
-    Instance.from_request(body)  # a valid POST /v1/plans body
+    read_instance(body)  # a valid POST /v1/plans body
 
 
 def test_no_events_at_time_zero_gives_the_original_problem() -> None:
     """Property: re-planning at elapsed 0 with nothing reported plans the same batch on the
     same farm, so the plan equals the original one."""
     req = studio_request(3)
-    orig = solve(Instance.from_request(req), "longest_first")
-    out = replan(req, orig.to_dict(), {"elapsed": 0})
+    orig = solve(read_instance(req), "longest_first")
+    out = replan_bodies(req, orig.to_dict(), {"elapsed": 0})
     assert out.makespan == orig.makespan
     assert np.array_equal(out.schedule.node_of, orig.schedule.node_of)
 
@@ -137,7 +139,7 @@ def test_bad_events_are_named_by_pointer() -> None:
     """Unknown jobs, a job running twice, two jobs on one node and a finished job also
     running are refused with JSON Pointers into the events body."""
     req = studio_request(4, n=6)
-    res = solve(Instance.from_request(req), "longest_first").to_dict()
+    res = solve(read_instance(req), "longest_first").to_dict()
     ev = {
         "elapsed": 100,
         "finished": ["nope", "ep4_sh000"],
@@ -150,8 +152,8 @@ def test_bad_events_are_named_by_pointer() -> None:
         ],
     }
     with pytest.raises(InvalidInstance) as err:
-        replan_from_request(req, res, ev)
-    pointers = {i.pointer for i in err.value.issues}
+        replan_request(req, res, ev)
+    pointers = {json_pointer(i.path) for i in err.value.issues}
     assert pointers == {
         "/finished/0",
         "/running/0/job",
@@ -161,20 +163,20 @@ def test_bad_events_are_named_by_pointer() -> None:
     }
     with pytest.raises(InvalidInstance) as err:
         read_events({"elapsed": -1, "running": [{"job": "a", "node": "b", "started_at": 5}]})
-    assert {i.pointer for i in err.value.issues} == {"/elapsed", "/running/0/started_at"}
+    assert {json_pointer(i.path) for i in err.value.issues} == {"/elapsed", "/running/0/started_at"}
 
 
 def test_losing_every_gpu_node_names_the_gpu_jobs() -> None:
     """When the lost nodes were the only ones providing a tag, the jobs left that need it
     are named (Infeasible, 422) at re-planning time."""
     req = studio_request(7, n=20)
-    res = solve(Instance.from_request(req), "longest_first").to_dict()
+    res = solve(read_instance(req), "longest_first").to_dict()
     gpu_jobs = sorted(j["id"] for j in req["jobs"] if j.get("requires"))
     assert gpu_jobs
     with pytest.raises(Infeasible) as err:
-        replan_from_request(req, res, {"elapsed": 0, "lost_nodes": ["blade-00", "blade-01"]})
+        replan_request(req, res, {"elapsed": 0, "lost_nodes": ["blade-00", "blade-01"]})
     assert sorted(err.value.jobs) == gpu_jobs
-    assert err.value.issues[0].pointer == "/lost_nodes"
+    assert json_pointer(err.value.issues[0].path) == "/lost_nodes"
 
 
 def test_nothing_left_is_a_clear_error() -> None:
@@ -182,14 +184,14 @@ def test_nothing_left_is_a_clear_error() -> None:
     req = studio_request(5, n=4)
     ev = {"elapsed": 10, "finished": [j["id"] for j in req["jobs"]]}
     with pytest.raises(InvalidInstance, match="nothing is left"):
-        remaining_work(req, None, read_events(ev))
+        remaining_of(req, None, ev)
 
 
 def test_cli_replan(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     """``spanwright replan`` prints the result object with --json (exit 0) and exits 2
     naming the field on bad events."""
     req = studio_request(6)
-    res = solve(Instance.from_request(req), "longest_first").to_dict()
+    res = solve(read_instance(req), "longest_first").to_dict()
     ev = events_at(req, res, 0.3 * res["makespan"], ["blade-05"])
     paths = []
     for name, obj in (("req", req), ("res", {"result": res}), ("ev", ev)):

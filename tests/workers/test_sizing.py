@@ -14,6 +14,8 @@ from hypothesis import strategies as st
 from scipy.optimize import Bounds, LinearConstraint, milp
 
 from service.cli import main as cli_main
+from service.problems import json_pointer
+from tests.bodies import size_body
 from workers.planning.errors import Infeasible, InvalidInstance
 from workers.planning.model import Node
 from workers.planning.sizing import (
@@ -24,7 +26,6 @@ from workers.planning.sizing import (
     size,
     work_ticks,
 )
-from workers.planning.sizing_request import size_from_request
 from workers.planning.warmup import warm_up_sizing as warm_up
 
 
@@ -156,11 +157,14 @@ def test_job_longer_than_deadline_is_named() -> None:
         "deadline": 7200,
     }
     with pytest.raises(Infeasible) as exc:
-        size_from_request(body, time_budget=1.0)
+        size_body(body, time_budget=1.0)
     assert exc.value.jobs == ["ep4_sh010_sim", "ep4_sh030_sim"]
-    assert {i.pointer for i in exc.value.issues} == {"/jobs/0/duration", "/jobs/2/duration"}
+    assert {json_pointer(i.path) for i in exc.value.issues} == {
+        "/jobs/0/duration",
+        "/jobs/2/duration",
+    }
     body["node"] = {"speed": 1.5}  # 9000 / 1.5 = 6000 s now fits
-    assert size_from_request(body, time_budget=1.0).nodes_needed >= 2
+    assert size_body(body, time_budget=1.0).nodes_needed >= 2
 
 
 def test_missing_tag_is_named() -> None:
@@ -171,10 +175,10 @@ def test_missing_tag_is_named() -> None:
         "node": {"provides": ["cpu"]},
     }
     with pytest.raises(Infeasible) as exc:
-        size_from_request(body, time_budget=0.5)
+        size_body(body, time_budget=0.5)
     assert exc.value.jobs == ["fx"]
     body["node"] = {"provides": ["gpu"]}
-    assert size_from_request(body, time_budget=0.5).nodes_needed == 2
+    assert size_body(body, time_budget=0.5).nodes_needed == 2
 
 
 def test_invalid_fields_are_pointed_at() -> None:
@@ -188,8 +192,8 @@ def test_invalid_fields_are_pointed_at() -> None:
         "node_hour_cost": -2,
     }
     with pytest.raises(InvalidInstance) as exc:
-        size_from_request(body, time_budget=1.0)
-    pointers = {i.pointer for i in exc.value.issues}
+        size_body(body, time_budget=1.0)
+    pointers = {json_pointer(i.path) for i in exc.value.issues}
     assert {
         "/deadline",
         "/max_nodes",
@@ -200,18 +204,18 @@ def test_invalid_fields_are_pointed_at() -> None:
     } <= pointers
     # the node is checked once the jobs are well formed (model validation order)
     with pytest.raises(InvalidInstance) as exc:
-        size_from_request(
+        size_body(
             {"jobs": [{"id": "a", "duration": 1}], "deadline": 10, "node": {"speed": 0}},
             time_budget=1.0,
         )
-    assert [i.pointer for i in exc.value.issues] == ["/node/speed"]
+    assert [json_pointer(i.path) for i in exc.value.issues] == ["/node/speed"]
 
 
 def test_more_than_max_nodes_is_an_error() -> None:
     """When even the lower bound exceeds max_nodes the request is refused, naming the field."""
     with pytest.raises(Infeasible) as exc:
         size([100.0] * 50, 100.0, max_nodes=10)
-    assert [i.pointer for i in exc.value.issues] == ["/max_nodes"]
+    assert [json_pointer(i.path) for i in exc.value.issues] == ["/max_nodes"]
 
 
 def test_curve_is_monotone_and_bounded() -> None:

@@ -20,9 +20,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from service.problems import json_pointer
+from tests.bodies import size_body
 from workers.planning import InvalidInstance, Node
 from workers.planning.sizing import _tick_limit, cost_of, size
-from workers.planning.sizing_request import size_from_request
 
 LIMIT = 2**53
 AUDIT_BODY: dict[str, Any] = {
@@ -121,12 +122,12 @@ def test_audit_overflow_body_is_refused_at_resolution() -> None:
     request is refused with InvalidInstance pointing at /resolution and naming the limit,
     from size_from_request and from size(), never an OverflowError."""
     for call in (
-        lambda: size_from_request(AUDIT_BODY, time_budget=0.2),
+        lambda: size_body(AUDIT_BODY, time_budget=0.2),
         lambda: size([1e10, 5e9], 1e10, Node("node", speed=1000.0), resolution=1e-6),
     ):
         with pytest.raises(InvalidInstance) as info:
             call()
-        pointers = [i.pointer for i in info.value.issues]
+        pointers = [json_pointer(i.path) for i in info.value.issues]
         text = " ".join(i.detail for i in info.value.issues)
         assert "/resolution" in pointers, pointers
         assert "2**53" in text, text
@@ -140,7 +141,7 @@ def test_refusal_names_a_resolution_that_works() -> None:
     d = [1e10, 5e9]
     room = Fraction(1e10) * Fraction(1000)
     issues = _tick_limit(np.array(d), room, 1e-6)
-    assert [i.pointer for i in issues] == ["/resolution"]
+    assert [json_pointer(i.path) for i in issues] == ["/resolution"]
     found = re.search(r"at least ([0-9.e+-]+) s", issues[0].detail)
     assert found is not None and "2**53" in issues[0].detail, issues[0].detail
     x = Fraction(float(found.group(1)))

@@ -118,7 +118,7 @@ def eligibility(inst: Instance) -> Eligibility:
             missing = sorted(tags[job_type[j]] - provided) or sorted(tags[job_type[j]])
             issues.append(
                 Issue(
-                    f"/jobs/{j}/requires",
+                    ("jobs", j, "requires"),
                     f"no node provides all of {sorted(tags[job_type[j]])} (missing: {missing})",
                 )
             )

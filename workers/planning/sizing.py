@@ -164,7 +164,7 @@ def _tick_limit(durations: F64, limit: Fraction, resolution: float) -> list[Issu
     shown = decimal_up(finest)
     return [
         Issue(
-            "/resolution",
+            ("resolution",),
             f"too fine: at {resolution:g} s a node holds {cap} ticks and the jobs need "
             f"{work}, above the limit of 2**53 ({MAX_TICKS}) ticks; use a resolution of at "
             f"least {shown} s",
@@ -208,11 +208,11 @@ def size(
     job requires a tag the node does not provide, or more than ``max_nodes`` are needed.
     """
     node = node if node is not None else Node("node")
-    issues = _check_options(max_nodes, node_hour_cost, billing, curve_nodes, time_budget)
+    issues = check_options(max_nodes, node_hour_cost, billing, curve_nodes, time_budget)
     if issues:
         raise InvalidInstance(f"{len(issues)} problem(s) in the sizing options", issues)
     if not (isinstance(deadline, int | float) and math.isfinite(deadline) and deadline > 0):
-        raise InvalidInstance("bad deadline", [Issue("/deadline", "must be a finite number > 0")])
+        raise InvalidInstance("bad deadline", [Issue(("deadline",), "must be a finite number > 0")])
     base = Instance.build(
         durations,
         [node],
@@ -240,7 +240,7 @@ def _check_lower(lower: int, source: str, max_nodes: int) -> None:
         raise Infeasible(
             f"at least {lower} nodes are needed ({source}), above max_nodes ({max_nodes})",
             jobs=[],
-            issues=[Issue("/max_nodes", f"at least {lower} nodes are needed")],
+            issues=[Issue(("max_nodes",), f"at least {lower} nodes are needed")],
         )
 
 
@@ -248,7 +248,7 @@ def _is_int(x: object) -> bool:
     return isinstance(x, int | float) and not isinstance(x, bool) and float(x).is_integer()
 
 
-def _check_options(
+def check_options(
     max_nodes: object,
     node_hour_cost: object,
     billing: object,
@@ -257,31 +257,31 @@ def _check_options(
 ) -> list[Issue]:
     issues: list[Issue] = []
     if not _is_int(max_nodes) or int(max_nodes) < 1:  # type: ignore[call-overload]
-        issues.append(Issue("/max_nodes", "must be a whole number >= 1"))
+        issues.append(Issue(("max_nodes",), "must be a whole number >= 1"))
     if node_hour_cost is not None and not (
         isinstance(node_hour_cost, int | float)
         and not isinstance(node_hour_cost, bool)
         and math.isfinite(node_hour_cost)
         and node_hour_cost >= 0
     ):
-        issues.append(Issue("/node_hour_cost", "must be a finite number >= 0"))
+        issues.append(Issue(("node_hour_cost",), "must be a finite number >= 0"))
     if billing not in BILLING:
-        issues.append(Issue("/billing", f"must be one of {', '.join(BILLING)}"))
+        issues.append(Issue(("billing",), f"must be one of {', '.join(BILLING)}"))
     if not isinstance(curve_nodes, list | tuple):
-        issues.append(Issue("/curve_nodes", "must be a list of whole numbers >= 1"))
+        issues.append(Issue(("curve_nodes",), "must be a list of whole numbers >= 1"))
     else:
         if len(curve_nodes) > MAX_CURVE_NODES:
-            issues.append(Issue("/curve_nodes", f"at most {MAX_CURVE_NODES} node counts"))
+            issues.append(Issue(("curve_nodes",), f"at most {MAX_CURVE_NODES} node counts"))
         for i, k in enumerate(curve_nodes[:MAX_CURVE_NODES]):
             if not _is_int(k) or not 1 <= int(k) <= 10**6:
-                issues.append(Issue(f"/curve_nodes/{i}", "must be a whole number in 1..1000000"))
+                issues.append(Issue(("curve_nodes", i), "must be a whole number in 1..1000000"))
     if time_budget is not None and not (
         isinstance(time_budget, int | float)
         and not isinstance(time_budget, bool)
         and math.isfinite(time_budget)
         and time_budget >= 0
     ):
-        issues.append(Issue("/time_budget", "must be a finite number >= 0"))
+        issues.append(Issue(("time_budget",), "must be a finite number >= 0"))
     return issues
 
 
@@ -296,7 +296,9 @@ def _check_feasible(base: Instance, node: Node, times: F64, deadline: float) -> 
                 + ", ".join(names[:10])
                 + (" ..." if len(bad) > 10 else ""),
                 jobs=names,
-                issues=[Issue(f"/jobs/{j}/requires", "not provided by the node") for j in bad[:20]],
+                issues=[
+                    Issue(("jobs", j, "requires"), "not provided by the node") for j in bad[:20]
+                ],
             )
     # exactly: duration > deadline * speed; floats settle all but the jobs within a few
     # units in the last place of the deadline
@@ -315,7 +317,7 @@ def _check_feasible(base: Instance, node: Node, times: F64, deadline: float) -> 
             + (" ..." if len(bad_idx) > 10 else ""),
             jobs=names,
             issues=[
-                Issue(f"/jobs/{j}/duration", f"{times[j]:g} s on this node > deadline")
+                Issue(("jobs", j, "duration"), f"{times[j]:g} s on this node > deadline")
                 for j in bad_idx[:20]
             ],
         )
@@ -543,7 +545,7 @@ def _size(
             f"no plan with at most max_nodes ({max_nodes}) nodes was found: the best has "
             f"{state.upper}, the lower bound is {state.lower}",
             jobs=[],
-            issues=[Issue("/max_nodes", f"the best plan found needs {state.upper} nodes")],
+            issues=[Issue(("max_nodes",), f"the best plan found needs {state.upper} nodes")],
         )
     budget.cancelled = budget.cancelled or cancelled
     stop = budget.stop_reason(

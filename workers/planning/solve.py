@@ -34,10 +34,10 @@ def solve(
     if method not in METHODS:
         raise InvalidInstance(
             f"unknown method {method!r}",
-            [Issue("/method", f"must be one of {', '.join(METHODS)}")],
+            [Issue(("method",), f"must be one of {', '.join(METHODS)}")],
         )
     if not (time_budget >= 0):
-        raise InvalidInstance("bad time budget", [Issue("/time_budget", "must be >= 0")])
+        raise InvalidInstance("bad time budget", [Issue(("time_budget",), "must be >= 0")])
     budget = Budget(time_budget, should_stop)
     if inst.identical:
         return _solve_identical(inst, method, budget, progress)

@@ -11,8 +11,8 @@ import pytest
 
 from service.web.pages import certificate_sentence, plan_context, sizing_context
 from service.web.svg import INK, PALETTE, contrast, fmt_duration, label_ink, line_chart, timeline
+from tests.bodies import size_body
 from workers.planning import Instance, solve
-from workers.planning.sizing_request import size_from_request
 
 NS = {"s": "http://www.w3.org/2000/svg"}
 
@@ -230,7 +230,7 @@ def test_a_tiny_gap_never_reads_as_zero() -> None:
 
 
 def sizing_doc(body: dict) -> dict:
-    res = size_from_request(body, time_budget=1.0).to_dict(with_plan=False)
+    res = size_body(body, time_budget=1.0).to_dict(with_plan=False)
     return {"id": "y", "status": "done", "result": res}
 
 

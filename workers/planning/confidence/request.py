@@ -1,14 +1,14 @@
-"""The confidence fields of a request: what a body asks the simulation for.
+"""What a request asks the simulation for, and the confidence fields of a sizing.
 
-:class:`SpreadRequest` reads ``spread``, ``confidence_samples``, ``confidence_seed``,
-``confidence`` and ``max_nodes`` from a request body; :func:`sizing_confidence` gives the
-``confidence`` and ``confidence_sizing`` fields of a sizing result.
+:class:`SpreadRequest` holds ``spread``, ``confidence_samples``, ``confidence_seed``,
+``confidence`` and ``max_nodes`` (the service reads them from a body:
+``service/reading/spread.py``); :func:`sizing_confidence` gives the ``confidence`` and
+``confidence_sizing`` fields of a sizing result.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -45,47 +45,6 @@ class SpreadRequest:
     #: most nodes the sizing to ``target`` may answer (None: the sizing's default)
     max_nodes: int | None = None
 
-    @classmethod
-    def from_body(cls, body: Mapping[str, Any]) -> SpreadRequest | None:
-        """Read ``spread``, ``confidence_samples``, ``confidence_seed`` and ``confidence``.
-
-        None when the body asks for no simulation: no job has ``duration_p90`` and none of
-        ``spread``, ``confidence_samples`` or ``confidence`` is given (as for plans, plus
-        the target). Types and ranges are checked here, so that a body that skipped the
-        API's schema (the command line) gets the same pointers.
-        """
-        jobs = body.get("jobs")
-        with_p90 = isinstance(jobs, list) and any(
-            isinstance(job, Mapping) and job.get("duration_p90") is not None for job in jobs
-        )
-        if not with_p90 and not any(key in body for key in SIMULATION_KEYS):
-            return None
-        issues: list[Issue] = []
-        spread = body.get("spread")
-        if spread is not None and not (_finite_number(spread) and spread >= 0):
-            issues.append(Issue("/spread", "must be a finite number >= 0"))
-        samples = body.get("confidence_samples", DEFAULT_SAMPLES)
-        if not (_whole_number(samples) and samples >= 1):
-            issues.append(Issue("/confidence_samples", "must be a whole number >= 1"))
-        seed = body.get("confidence_seed", 0)
-        if not (_whole_number(seed) and 0 <= seed <= MAX_SEED):
-            issues.append(Issue("/confidence_seed", f"must be a whole number in 0..{MAX_SEED}"))
-        target = body.get("confidence")
-        if target is not None and not (_finite_number(target) and 0 < target < 1):
-            issues.append(Issue("/confidence", "must be a number strictly between 0 and 1"))
-        max_nodes = body.get("max_nodes")
-        if max_nodes is not None and not (_whole_number(max_nodes) and max_nodes >= 1):
-            issues.append(Issue("/max_nodes", "must be a whole number >= 1"))
-        if issues:
-            raise InvalidInstance(f"{len(issues)} problem(s) with the spread inputs", issues)
-        return cls(
-            spread=None if spread is None else float(spread),
-            samples=int(samples),
-            seed=int(seed),
-            target=None if target is None else float(target),
-            max_nodes=None if max_nodes is None else int(max_nodes),
-        )
-
     def check(self, inst: Instance, speed: float) -> None:
         """The checks that need no sampling, for the jobs and deadline of ``inst``.
 
@@ -98,7 +57,7 @@ class SpreadRequest:
             return
         if inst.deadline is None:
             raise InvalidInstance(
-                "sizing to a confidence needs a deadline", [Issue("/deadline", "required")]
+                "sizing to a confidence needs a deadline", [Issue(("deadline",), "required")]
             )
         confidence_target(
             inst.durations,
@@ -110,19 +69,6 @@ class SpreadRequest:
             samples=self.samples,
             job_ids=inst.job_ids,
         )
-
-    def check_body(self, body: Mapping[str, Any]) -> None:
-        """:meth:`check` on a ``POST /v1/sizings`` body whose shape was already checked."""
-        jobs = body["jobs"]
-        node = body.get("node") or {}
-        one = Instance.build(
-            [float(job["duration"]) for job in jobs],
-            1,
-            job_ids=[str(job["id"]) for job in jobs],
-            deadline=float(body["deadline"]),
-            duration_p90=[job.get("duration_p90") for job in jobs],
-        )
-        self.check(one, float(node.get("speed", 1.0)))
 
 
 def sizing_confidence(

@@ -184,14 +184,14 @@ class ConfidenceResult:
 def _check_args(samples: int, policy: str, deadline: float | None) -> None:
     if isinstance(samples, bool) or not isinstance(samples, int | np.integer) or samples < 1:
         raise InvalidInstance(
-            "bad sample count", [Issue("/confidence_samples", "must be a whole number >= 1")]
+            "bad sample count", [Issue(("confidence_samples",), "must be a whole number >= 1")]
         )
     if policy not in POLICIES:
         raise InvalidInstance(
-            f"unknown policy {policy!r}", [Issue("/policy", f"must be one of {POLICIES}")]
+            f"unknown policy {policy!r}", [Issue(("policy",), f"must be one of {POLICIES}")]
         )
     if deadline is not None and not (math.isfinite(deadline) and deadline > 0):
-        raise InvalidInstance("bad deadline", [Issue("/deadline", "must be a finite number > 0")])
+        raise InvalidInstance("bad deadline", [Issue(("deadline",), "must be a finite number > 0")])
 
 
 def plan_order(schedule: Schedule) -> npt.NDArray[np.int64]:

@@ -61,7 +61,9 @@ class SpreadModel:
         if spread is not None and not (
             isinstance(spread, int | float) and math.isfinite(spread) and spread >= 0
         ):
-            raise InvalidInstance("bad spread", [Issue("/spread", "must be a finite number >= 0")])
+            raise InvalidInstance(
+                "bad spread", [Issue(("spread",), "must be a finite number >= 0")]
+            )
         n = inst.n
         sigma = np.zeros(n, dtype=np.float64)
         shift = np.zeros(n, dtype=np.float64)
@@ -74,12 +76,12 @@ class SpreadModel:
                 d = float(inst.durations[j])
                 has_p90[j] = True
                 if not (math.isfinite(q) and q >= d):
-                    issues.append(Issue(f"/jobs/{j}/duration_p90", "must be >= duration"))
+                    issues.append(Issue(("jobs", j, "duration_p90"), "must be >= duration"))
                 elif d == 0.0:
                     if q > 0.0:
                         issues.append(
                             Issue(
-                                f"/jobs/{j}/duration_p90",
+                                ("jobs", j, "duration_p90"),
                                 "a job estimated at 0 s cannot have a positive p90 "
                                 "(the lognormal median would be 0)",
                             )
@@ -94,7 +96,7 @@ class SpreadModel:
             shift[~has_p90] = 0.5 * s * s
         if sigma.size and float(sigma.max()) > MAX_SIGMA:
             j = int(sigma.argmax())
-            ptr = f"/jobs/{j}/duration_p90" if has_p90[j] else "/spread"
+            ptr = ("jobs", j, "duration_p90") if has_p90[j] else ("spread",)
             raise InvalidInstance(
                 "spread too wide to simulate", [Issue(ptr, f"log-sd above {MAX_SIGMA}")]
             )
@@ -150,6 +152,6 @@ def _with_p90(inst: Instance, p90: Sequence[float | None]) -> Instance:
     """``inst`` (built by ``Instance.build`` from durations alone) with per-job p90s."""
     if len(p90) != inst.n:
         raise InvalidInstance(
-            "duration_p90 and durations differ in number", [Issue("/jobs", "length mismatch")]
+            "duration_p90 and durations differ in number", [Issue(("jobs",), "length mismatch")]
         )
     return replace(inst, duration_p90=tuple(None if v is None else float(v) for v in p90))

@@ -92,11 +92,11 @@ def confidence_target(
     d = np.asarray(durations, dtype=np.float64)
     issues: list[Issue] = []
     if not (isinstance(q, int | float) and not isinstance(q, bool) and 0 < q < 1):
-        issues.append(Issue("/confidence", "must be a number strictly between 0 and 1"))
+        issues.append(Issue(("confidence",), "must be a number strictly between 0 and 1"))
     if not (isinstance(speed, int | float) and math.isfinite(speed) and speed > 0):
-        issues.append(Issue("/node/speed", "must be a finite number > 0"))
+        issues.append(Issue(("node", "speed"), "must be a finite number > 0"))
     if not (isinstance(deadline, int | float) and math.isfinite(deadline) and deadline > 0):
-        issues.append(Issue("/deadline", "must be a finite number > 0"))
+        issues.append(Issue(("deadline",), "must be a finite number > 0"))
     if issues:
         raise InvalidInstance(f"{len(issues)} problem(s) in the sizing request", issues)
     _check_args(samples, policy, float(deadline))
@@ -109,7 +109,7 @@ def confidence_target(
         need = math.ceil(Z95 * Z95 * q / (1 - q))
         raise InvalidInstance(
             f"with {samples} samples the 95% lower limit cannot reach {q}",
-            [Issue("/confidence_samples", f"need at least about {need} samples for q = {q}")],
+            [Issue(("confidence_samples",), f"need at least about {need} samples for q = {q}")],
         )
     reach = job_probabilities(model, one.durations / speed, float(deadline))
     alone = float(np.prod(reach))
@@ -119,11 +119,9 @@ def confidence_target(
             f"no node count can meet the deadline with confidence {q}: even alone on a node, "
             f"the jobs together make it with probability {alone:.4g}",
             jobs=[one.job_ids[j] for j in worst],
-            issues=[Issue("/confidence", f"at most {alone:.4g} can be reached")]
+            issues=[Issue(("confidence",), f"at most {alone:.4g} can be reached")]
             + [
-                Issue(
-                    f"/jobs/{j}", f"alone on a node it meets the deadline with P = {reach[j]:.4g}"
-                )
+                Issue(("jobs", j), f"alone on a node it meets the deadline with P = {reach[j]:.4g}")
                 for j in worst
             ],
         )
@@ -176,7 +174,7 @@ def nodes_for_confidence(
     if lower > upper:
         raise InvalidInstance(
             f"max_nodes {upper} is below the {lower} node(s) the work needs by the deadline",
-            [Issue("/max_nodes", f"at least {lower} node(s) are needed")],
+            [Issue(("max_nodes",), f"at least {lower} node(s) are needed")],
         )
     rows: dict[int, dict[str, Any]] = {}
     plans: dict[int, Schedule] = {}
@@ -212,9 +210,9 @@ def nodes_for_confidence(
                 f"(best lower limit {best:.4f})",
                 jobs=[],
                 issues=[
-                    Issue("/max_nodes", f"no count up to {upper} passes")
+                    Issue(("max_nodes",), f"no count up to {upper} passes")
                     if max_nodes is not None and upper == int(max_nodes)
-                    else Issue("/confidence", f"the best 95% lower limit is {best:.4f}")
+                    else Issue(("confidence",), f"the best 95% lower limit is {best:.4f}")
                 ],
             )
         c = min(upper, c + step)

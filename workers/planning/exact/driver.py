@@ -194,7 +194,7 @@ def solve_exact(
     if not inst.identical:
         raise InvalidInstance(
             "the exact search needs identical nodes",
-            [Issue("/nodes", "speeds, free_at or required tags differ")],
+            [Issue(("nodes",), "speeds, free_at or required tags differ")],
         )
     m, res = inst.m, inst.resolution
     ratio = greedy.lpt_ratio(m)

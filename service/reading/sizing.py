@@ -1,0 +1,83 @@
+"""Reading a ``POST /v1/sizings`` body into the core's :class:`SizingArgs`."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Any
+
+from workers.planning.errors import InvalidInstance, Issue, Path
+from workers.planning.sizing import DEFAULT_BILLING, DEFAULT_MAX_NODES, check_options
+from workers.planning.sizing_request import SizingArgs
+
+from .plan import read_instance
+
+
+def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs:
+    """Read a ``POST /v1/sizings`` body (fields: ``openapi/openapi.yaml``) without sizing.
+
+    Every problem found is raised together as one :class:`InvalidInstance` whose issues
+    carry field paths into ``body``.
+    """
+    if not isinstance(body, Mapping):
+        raise InvalidInstance(
+            "the request body must be a JSON object", [Issue((), "not an object")]
+        )
+    issues: list[Issue] = []
+    raw_node = body.get("node", {})
+    if raw_node is None:
+        raw_node = {}
+    if not isinstance(raw_node, Mapping):
+        issues.append(Issue(("node",), "must be an object"))
+        raw_node = {}
+    if "id" in raw_node and not isinstance(raw_node["id"], str):
+        issues.append(Issue(("node", "id"), "must be a string"))
+    if "free_at" in raw_node:
+        issues.append(Issue(("node", "free_at"), "not used by sizing: every node starts at 0"))
+    if body.get("deadline") is None:
+        issues.append(Issue(("deadline",), "required: the time by which every job must be done"))
+    for key in ("nodes", "node_count"):
+        if key in body:
+            issues.append(Issue((key,), "not used by sizing: the answer is the node count"))
+    max_nodes = body.get("max_nodes", DEFAULT_MAX_NODES)
+    node_hour_cost = body.get("node_hour_cost")
+    billing = body.get("billing", DEFAULT_BILLING)
+    curve_nodes = body.get("curve_nodes", [])
+    issues.extend(
+        check_options(max_nodes, node_hour_cost, billing, curve_nodes, body.get("time_budget"))
+    )
+    node_id = raw_node.get("id") if isinstance(raw_node.get("id"), str) else "node"
+    plan_body = {
+        "jobs": body.get("jobs"),
+        "nodes": [
+            {
+                "id": node_id or "node",
+                "speed": raw_node.get("speed", 1.0),
+                "provides": raw_node.get("provides"),
+            }
+        ],
+        "deadline": body.get("deadline"),
+        "resolution": body.get("resolution"),
+    }
+    try:
+        base = read_instance(plan_body)
+    except InvalidInstance as exc:
+        moved = [Issue(_node_path(i.path), i.detail) for i in exc.issues]
+        raise InvalidInstance(
+            f"{len(issues) + len(moved)} problem(s) in the request", issues + moved
+        ) from None
+    if issues:
+        raise InvalidInstance(f"{len(issues)} problem(s) in the request", issues)
+    return SizingArgs(
+        base=base,
+        max_nodes=int(max_nodes),
+        node_hour_cost=None if node_hour_cost is None else float(node_hour_cost),
+        billing=str(billing),
+        curve_nodes=tuple(int(k) for k in curve_nodes),
+    )
+
+
+def _node_path(path: Path) -> Path:
+    """Issues about the one node of the plan body point at ``node`` of the sizing body."""
+    if path[:2] == ("nodes", 0):
+        return ("node", *path[2:])
+    return path
