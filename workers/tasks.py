@@ -27,6 +27,7 @@ from service.metrics import failed_counters, finish_counters
 from service.problems import InternalError, problem_dict
 from service.store import Store
 from workers.planning.errors import SpanwrightError
+from workers.planning.progress import Report
 
 
 @dataclass(frozen=True, slots=True)
@@ -145,16 +146,8 @@ def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 
     last = [t0]  # the first progress write waits one interval: quick solves write none
     best: dict[str, Any] = {}
 
-    def progress(p: Any) -> None:
-        if hasattr(p, "to_dict"):  # a sizing's interval so far
-            best.update(p.to_dict(), time_budget=time_budget)
-        else:  # solve.Progress of a plan
-            best.update(
-                elapsed=round(p.elapsed, 4),
-                time_budget=time_budget,
-                best_makespan=p.best_makespan,
-                best_lower_bound=p.best_lower_bound,
-            )
+    def progress(p: Report) -> None:  # a plan's best so far, or a sizing's interval
+        best.update(p.to_dict(), time_budget=time_budget)
         now = time.perf_counter()
         if now - last[0] >= progress_interval:
             last[0] = now

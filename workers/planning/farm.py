@@ -296,7 +296,7 @@ def solve_farm(
             method=method,
             certificate=cert,
             worst_case_ratio=ratio,
-            stop_reason="proved_optimal" if _closed(sched, cert.exact_value) else "heuristic",
+            stop_reason=budget.stop_reason(proven=_closed(sched, cert.exact_value), ran_out=False),
             solve_seconds=budget.elapsed(),
             extras={"worst_case_ratio_source": why},
         )
@@ -380,16 +380,10 @@ def _search(
             }
     cert = Certificate(value=value, source=source, bounds=bounds, evidence=evidence, exact=exact)
     extras["auto" if method == "auto" else "exact"] = info
-    closed = _closed(best, exact)
-    if closed:
-        stop = "proved_optimal"
-    elif budget.cancelled:
-        stop = "cancelled"
-    elif budget.expired() or budget.remaining() <= _reserve(inst):
-        stop = "time_budget"
-    else:
-        # the search ended before the budget: a local optimum no move or swap improves
-        stop = "heuristic"
+    # ran out: the budget ended the search; otherwise it ended by itself (a local
+    # optimum no move or swap improves)
+    ran_out = budget.expired() or budget.remaining() <= _reserve(inst)
+    stop = budget.stop_reason(proven=_closed(best, exact), ran_out=ran_out)
     if progress is not None:
         progress(Progress(budget.elapsed(), best.makespan, value))
     return PlanResult(

@@ -21,6 +21,7 @@ import numpy as np
 import numpy.typing as npt
 
 from .budget import StopReason
+from .certified import Certified
 from .kernels import chain_starts, pure
 from .model import FloatArray, Instance
 from .rational import exact_sum
@@ -28,7 +29,6 @@ from .rational import exact_sum
 IntArray = npt.NDArray[np.int32]
 
 #: why a solver stopped (the values of :class:`budget.StopReason`)
-STOP_REASONS = tuple(StopReason)
 
 #: one job of :meth:`Schedule.assignment_json` (``%r`` of a float is ``float.__repr__``,
 #: which is how ``json.dumps`` writes floats)
@@ -243,24 +243,35 @@ class Certificate:
 
 
 @dataclass(frozen=True, eq=False)
-class PlanResult:
-    """A plan and how far it may be from the best possible one, for the given estimates."""
+class PlanResult(Certified):
+    """A plan and how far it may be from the best possible one, for the given estimates.
+
+    The value is the makespan; :class:`~.certified.Certified` decides ``proven_optimal``
+    and ``gap`` from it and the certificate's bound, exactly."""
 
     schedule: Schedule
     method: str
     certificate: Certificate
     worst_case_ratio: float | None
-    stop_reason: str
+    stop_reason: StopReason
     solve_seconds: float
     extras: dict[str, Any] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
-        if self.stop_reason not in STOP_REASONS:
-            raise ValueError(f"stop_reason {self.stop_reason!r} not understood")
-        if self.solve_seconds < 0:
-            raise ValueError("negative solve time not understood")
-        if self.certificate.exact_value > self.schedule.makespan_exact:
-            raise ValueError("lower bound above the makespan: a bound is wrong")
+        object.__setattr__(self, "stop_reason", StopReason(self.stop_reason))
+        self.check_certificate()
+
+    @property
+    def exact_value(self) -> Fraction:
+        return self.schedule.makespan_exact
+
+    @property
+    def exact_lower_bound(self) -> Fraction:
+        return self.certificate.exact_value
+
+    @property
+    def bound_source(self) -> str:  # type: ignore[override]
+        return self.certificate.source
 
     @cached_property
     def makespan(self) -> float:
@@ -271,23 +282,6 @@ class PlanResult:
     def lower_bound(self) -> float:
         """The best proven bound: never above the optimum, in exact arithmetic."""
         return self.certificate.value
-
-    @property
-    def gap(self) -> float:
-        """(makespan - lower_bound) / lower_bound in exact arithmetic, then rounded; 0
-        exactly when the plan is proven optimal, and never 0 otherwise."""
-        if self.proven_optimal:
-            return 0.0
-        lb = self.certificate.exact_value
-        if lb <= 0:
-            return float("inf")
-        g = (self.schedule.makespan_exact - lb) / lb
-        return max(float(g), math.ulp(0.0))
-
-    @property
-    def proven_optimal(self) -> bool:
-        """The proven bound equals the plan's makespan exactly (no tolerance)."""
-        return self.certificate.exact_value >= self.schedule.makespan_exact
 
     def deadline_dict(self) -> dict[str, Any] | None:
         d = self.schedule.instance.deadline

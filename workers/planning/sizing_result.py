@@ -10,6 +10,8 @@ from dataclasses import dataclass, field
 from fractions import Fraction
 from typing import Any
 
+from .budget import StopReason
+from .certified import Certified
 from .rational import ceil_div
 from .result import Schedule
 
@@ -33,7 +35,7 @@ class SizingProgress:
 
     def to_dict(self) -> dict[str, Any]:
         return {
-            "elapsed": self.elapsed,
+            "elapsed": round(self.elapsed, 4),
             "nodes_needed": self.nodes_needed,
             "nodes_lower_bound": self.nodes_lower_bound,
         }
@@ -66,8 +68,11 @@ class CurveRow:
 
 
 @dataclass(frozen=True, eq=False)
-class SizingResult:
-    """The fewest nodes that meet the deadline, proven from both sides, and the curve."""
+class SizingResult(Certified):
+    """The fewest nodes that meet the deadline, proven from both sides, and the curve.
+
+    The value is the node count; :class:`~.certified.Certified` decides
+    ``proven_optimal`` and ``gap`` from it and the node lower bound."""
 
     schedule: Schedule
     deadline: float
@@ -76,7 +81,7 @@ class SizingResult:
     bound_source: str
     bounds: dict[str, int]
     evidence: dict[str, Any]
-    stop_reason: str
+    stop_reason: StopReason
     solve_seconds: float
     first_answer_seconds: float
     method: str
@@ -87,14 +92,18 @@ class SizingResult:
     curve: tuple[CurveRow, ...] = field(default=())
 
     def __post_init__(self) -> None:
-        if self.nodes_lower_bound > self.nodes_needed:
-            raise ValueError("node lower bound above the nodes of a plan: a bound is wrong")
+        object.__setattr__(self, "stop_reason", StopReason(self.stop_reason))
+        self.check_certificate()
         if self.schedule.instance.m != self.nodes_needed:
             raise ValueError("the plan does not use nodes_needed nodes")
 
     @property
-    def proven_optimal(self) -> bool:
-        return self.nodes_lower_bound == self.nodes_needed
+    def exact_value(self) -> Fraction:
+        return Fraction(self.nodes_needed)
+
+    @property
+    def exact_lower_bound(self) -> Fraction:
+        return Fraction(self.nodes_lower_bound)
 
     @property
     def makespan(self) -> float:
@@ -119,6 +128,7 @@ class SizingResult:
             "bound_source": self.bound_source,
             "bounds": dict(self.bounds),
             "proven_optimal": self.proven_optimal,
+            "gap": self.gap if self.gap != float("inf") else None,
             "stop_reason": self.stop_reason,
             "solve_seconds": self.solve_seconds,
             "first_answer_seconds": self.first_answer_seconds,

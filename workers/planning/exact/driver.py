@@ -58,7 +58,7 @@ import numpy as np
 import numpy.typing as npt
 
 from .. import bounds, greedy
-from ..budget import Budget
+from ..budget import Budget, StopReason
 from ..errors import InvalidInstance, Issue
 from ..model import Instance
 from ..rational import ticks_to_seconds_down
@@ -214,7 +214,7 @@ def solve_exact(
             "longest_first" if auto else "exact",
             cert0,
             ratio,
-            "proved_optimal",
+            StopReason.PROVED_OPTIMAL,
             budget.elapsed(),
             extras,
         )
@@ -275,15 +275,10 @@ def solve_exact(
     sched = inc.schedule
     cert = Certificate(value=value, source=source, bounds=cert_bounds, evidence=evidence)
     proven = Fraction(value) >= sched.makespan_exact
-    if proven:
-        stop = "proved_optimal"
-    elif budget.cancelled:
-        stop = "cancelled"
-    elif lb_ticks >= inc.ub_ticks:
-        stop = "heuristic"
+    closed = lb_ticks >= inc.ub_ticks  # the search has nothing left at this resolution
+    stop = budget.stop_reason(proven=proven, ran_out=not closed)
+    if closed and stop is StopReason.HEURISTIC:
         extras["closed_at_resolution"] = True
-    else:
-        stop = "time_budget"
     extras["search"] = {
         "nodes": int(stats["nodes"]),
         "capacity_probes": int(stats["probes"]),
