@@ -142,3 +142,32 @@ def test_version_and_one_clean_error_line(
     assert main(["solve", str(f)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and err[0].startswith("spanwright: ")
+
+
+def test_replan_same_through_cli_and_api(
+    client: Any, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """A re-plan after a lost node: the API's queued re-plan and ``spanwright replan`` give
+    the same plan and the same accounting of kept and moved jobs."""
+    body = {
+        "jobs": [{"id": f"lh_reef_{i}", "duration": d} for i, d in enumerate([9, 7, 6, 5, 4, 3])],
+        "nodes": [{"id": f"tern-{k}"} for k in range(3)],
+        "method": "longest_first",
+    }
+    done = client.post("/v1/plans", json=body, headers={"Prefer": "wait=10"}).get_json()
+    events = {"elapsed": 2, "lost_nodes": ["tern-1"]}
+    r = client.post(
+        f"/v1/plans/{done['id']}/replan", json=events, headers={"Prefer": "wait=10"}
+    ).get_json()
+    assert r["status"] == "done"
+    files = []
+    for name, doc in (("req", body), ("res", done["result"]), ("ev", events)):
+        f = tmp_path / f"{name}.json"
+        f.write_text(json.dumps(doc))
+        files.append(str(f))
+    assert main(["replan", *files, "--json"]) == 0
+    cli = json.loads(capsys.readouterr().out)
+    api = r["result"]
+    assert _stable(cli["assignment"]) == _stable(api["assignment"])
+    assert cli["makespan"] == api["makespan"] and cli["lower_bound"] == api["lower_bound"]
+    assert cli["replan"] == {k: v for k, v in r["replan"].items() if k != "of"}
