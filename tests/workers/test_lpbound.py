@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 from reference import brute_force_makespan, milp_makespan
 
-from workers.planning.exact import lpbound
+from workers.planning.exact import pricing
 from workers.planning.exact.lpbound import (
     DIVE_FAILED,
     NOT_REFUTED,
@@ -73,7 +73,7 @@ def test_knapsack_is_exact_for_every_capacity() -> None:
         cap = int(rng.integers(int(s[0]), dpcap + 1))
         own = np.zeros(64, dtype=np.int32)
         cnt = np.zeros(64, dtype=np.int32)
-        nch = lpbound._chunks(s, d, dpcap, own, cnt)
+        nch = pricing._chunks(s, d, dpcap, own, cnt)
         every = patterns(s, d, dpcap)
 
         def value(p: tuple[int, ...], val: np.ndarray = val) -> int:
@@ -82,7 +82,7 @@ def test_knapsack_is_exact_for_every_capacity() -> None:
         def size(p: tuple[int, ...], s: np.ndarray = s) -> int:
             return sum(a * int(x) for a, x in zip(p, s, strict=True))
 
-        for fn in (lpbound._knapsack, pure(lpbound._knapsack)):
+        for fn in (pricing._knapsack, pure(pricing._knapsack)):
             dp = np.zeros(dpcap + 1, dtype=np.int64)
             take = np.zeros((max(nch, 1), dpcap + 1), dtype=np.uint8)
             pat = np.zeros(s.size, dtype=np.int64)
