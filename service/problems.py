@@ -31,54 +31,64 @@ MEDIA_TYPE = "application/problem+json"
 TYPE_BASE = "/problems/"
 
 
-class BadRequest(SpanwrightError):
-    """The request cannot be read at all (not JSON, a malformed header)."""
-
-    kind, status, title = "bad-request", 400, "The request cannot be read"
-
-
-class UnsupportedMediaType(SpanwrightError):
-    kind, status, title = "unsupported-media-type", 415, "Send the body as application/json"
+def _problem(name: str, kind: str, status: int, title: str, doc: str = "") -> type[SpanwrightError]:
+    """An error class of the service that differs from the others only in its kind, HTTP
+    status, title and documentation (served at ``GET /problems/{kind}``)."""
+    attrs = {"kind": kind, "status": status, "title": title, "__module__": __name__}
+    return type(name, (SpanwrightError,), {**attrs, "__doc__": doc or None})
 
 
-class PayloadTooLarge(SpanwrightError):
-    kind, status, title = "payload-too-large", 413, "The request body is too large"
-
-
-class LimitExceeded(SpanwrightError):
-    """A configured limit (jobs per batch, nodes, time budget) is exceeded."""
-
-    kind, status, title = "limit-exceeded", 422, "The request exceeds a limit of this service"
-
-
-class NotFound(SpanwrightError):
-    kind, status, title = "not-found", 404, "No such resource"
-
-
-class MethodNotAllowed(SpanwrightError):
-    kind, status, title = "method-not-allowed", 405, "Method not allowed on this resource"
-
-
-class AlreadyFinished(SpanwrightError):
-    """Cancelling a plan that has already finished."""
-
-    kind, status, title = "already-finished", 409, "The plan has already finished"
-
-
-class NotFinished(SpanwrightError):
-    """Re-planning a plan that has not finished (there is no plan to start from yet)."""
-
-    kind, status, title = "not-finished", 409, "The plan has not finished"
-
-
-class IdempotencyKeyInFlight(SpanwrightError):
-    kind, status, title = "idempotency-key-in-flight", 409, "A request with this key is in flight"
-
-
-class IdempotencyKeyReused(SpanwrightError):
-    """The same Idempotency-Key was sent before with a different body."""
-
-    kind, status, title = "idempotency-key-reused", 422, "Idempotency-Key reused with another body"
+BadRequest = _problem(
+    "BadRequest",
+    "bad-request",
+    400,
+    "The request cannot be read",
+    "The request cannot be read at all (not JSON, a malformed header).",
+)
+UnsupportedMediaType = _problem(
+    "UnsupportedMediaType", "unsupported-media-type", 415, "Send the body as application/json"
+)
+PayloadTooLarge = _problem(
+    "PayloadTooLarge", "payload-too-large", 413, "The request body is too large"
+)
+LimitExceeded = _problem(
+    "LimitExceeded",
+    "limit-exceeded",
+    422,
+    "The request exceeds a limit of this service",
+    "A configured limit (jobs per batch, nodes, time budget) is exceeded.",
+)
+NotFound = _problem("NotFound", "not-found", 404, "No such resource")
+MethodNotAllowed = _problem(
+    "MethodNotAllowed", "method-not-allowed", 405, "Method not allowed on this resource"
+)
+AlreadyFinished = _problem(
+    "AlreadyFinished",
+    "already-finished",
+    409,
+    "The plan has already finished",
+    "Cancelling a plan that has already finished.",
+)
+NotFinished = _problem(
+    "NotFinished",
+    "not-finished",
+    409,
+    "The plan has not finished",
+    "Re-planning a plan that has not finished (there is no plan to start from yet).",
+)
+IdempotencyKeyInFlight = _problem(
+    "IdempotencyKeyInFlight",
+    "idempotency-key-in-flight",
+    409,
+    "A request with this key is in flight",
+)
+IdempotencyKeyReused = _problem(
+    "IdempotencyKeyReused",
+    "idempotency-key-reused",
+    422,
+    "Idempotency-Key reused with another body",
+    "The same Idempotency-Key was sent before with a different body.",
+)
 
 
 class Unauthorized(SpanwrightError):
@@ -107,12 +117,10 @@ class TooManyRequests(SpanwrightError):
         self.headers = {"Retry-After": str(self.retry_after)}
 
 
-class StoreUnavailable(SpanwrightError):
-    kind, status, title = "store-unavailable", 503, "The plan store is unavailable"
-
-
-class InternalError(SpanwrightError):
-    kind, status, title = "internal-error", 500, "Internal error"
+StoreUnavailable = _problem(
+    "StoreUnavailable", "store-unavailable", 503, "The plan store is unavailable"
+)
+InternalError = _problem("InternalError", "internal-error", 500, "Internal error")
 
 
 #: every problem kind the API can answer with, for ``GET /problems/{kind}`` and the spec

@@ -10,6 +10,8 @@ from typing import TYPE_CHECKING, Any
 from workers.planning.errors import InvalidInstance, Issue
 
 if TYPE_CHECKING:
+    from workers.planning.usecases import PlanAnswer
+
     from ..settings import Settings
 
 
@@ -29,6 +31,28 @@ def read_json(path: str) -> Any:
         return json.loads(text, parse_constant=_reject_constant)
     except (ValueError, RecursionError) as exc:
         raise InvalidInstance(f"{path} is not valid JSON: {exc}", [Issue((), str(exc))]) from exc
+
+
+def print_json(doc: Any, *, allow_nan: bool = False) -> None:
+    """``doc`` as one line of JSON on standard output (NaN refused unless ``allow_nan``)."""
+    import sys
+
+    json.dump(doc, sys.stdout, allow_nan=allow_nan)
+    sys.stdout.write("\n")
+
+
+def plan_request(data: dict[str, Any], budget: float) -> PlanAnswer:
+    """The plan of a checked plan body (:func:`load_request`), as the worker makes it."""
+    from workers.planning import usecases
+
+    from .. import reading
+
+    return usecases.plan(
+        reading.read_instance(data),
+        method=data["method"],
+        spread=reading.read_spread(data),
+        time_budget=budget,
+    )
 
 
 def finite(x: float) -> float | None:

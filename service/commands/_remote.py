@@ -24,6 +24,14 @@ def client(args: argparse.Namespace) -> Client:
     return Client(args.server, args.key)
 
 
+def fetch(args: argparse.Namespace) -> dict[str, Any] | int:
+    """The record ``args.id`` on the server, or the exit code of the error (reported)."""
+    try:
+        return client(args).get(args.id)
+    except ClientError as err:
+        return report_client_error(err)
+
+
 def report_client_error(err: ClientError) -> int:
     print(f"spanwright: {err}", file=sys.stderr)
     if err.status == 0:

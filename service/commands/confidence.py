@@ -9,13 +9,11 @@ with the body's ``method`` by the planning core, then simulated under both polic
 from __future__ import annotations
 
 import argparse
-import json
-import sys
 from typing import Any
 
 from workers.planning.errors import InvalidInstance, Issue
 
-from ._io import load_request, time_budget
+from ._io import load_request, plan_request, print_json, time_budget
 
 NAME = "confidence"
 HELP = "plan a batch file and estimate by simulation how likely it makes its deadline"
@@ -29,10 +27,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from workers.planning import usecases
-
-    from .. import reading
-
     data = load_request(args.file, "plan")  # the API's checks, its messages
     if args.samples is not None:
         if args.samples < 10:
@@ -43,16 +37,10 @@ def run(args: argparse.Namespace) -> int:
     data.setdefault("confidence_samples", 1000)  # what the API would draw with spread
     if args.seed is not None:
         data["confidence_seed"] = args.seed
-    answer = usecases.plan(
-        reading.read_instance(data),
-        method=data["method"],
-        spread=reading.read_spread(data),
-        time_budget=time_budget(None, data),
-    )
+    answer = plan_request(data, time_budget(None, data))
     block = answer.extra["confidence"]
     if args.json:
-        json.dump(block, sys.stdout, allow_nan=False)
-        sys.stdout.write("\n")
+        print_json(block)
         return 0
     print(answer.result.summary())
     print(block_lines(block))

@@ -7,7 +7,6 @@ import json
 import sys
 from pathlib import Path
 
-from ..client import ClientError
 from ..csvio import write_assignment_csv
 from . import _remote
 
@@ -23,10 +22,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    try:
-        doc = _remote.client(args).get(args.id)
-    except ClientError as err:
-        return _remote.report_client_error(err)
+    doc = _remote.fetch(args)
+    if isinstance(doc, int):
+        return doc  # the server's error, reported
     result = doc.get("result")
     if doc.get("status") != "done" or not result:
         print(f"spanwright: plan {args.id} is {doc.get('status')}, not done", file=sys.stderr)

@@ -3,13 +3,11 @@
 from __future__ import annotations
 
 import argparse
-import json
-import sys
 
 from workers.planning.errors import InvalidInstance, Issue
 from workers.planning.solve import METHODS
 
-from ._io import read_json
+from ._io import print_json, read_json
 
 NAME = "replan"
 HELP = (
@@ -62,8 +60,7 @@ def run(args: argparse.Namespace) -> int:
         time_budget=DEFAULT_SECONDS if budget is None else float(budget),
     )
     if args.json:
-        json.dump(res.to_dict(), sys.stdout, allow_nan=False)
-        sys.stdout.write("\n")
+        print_json(res.to_dict())
     else:
         print(res.summary())
         info = res.extras["replan"]

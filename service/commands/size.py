@@ -3,10 +3,8 @@
 from __future__ import annotations
 
 import argparse
-import json
-import sys
 
-from ._io import load_request, time_budget
+from ._io import load_request, print_json, time_budget
 from .confidence import block_lines, target_lines
 
 NAME = "size"
@@ -37,8 +35,7 @@ def run(args: argparse.Namespace) -> int:
         reading.read_sizing_request(data), spread=reading.read_spread(data), time_budget=budget
     )
     if args.json:
-        json.dump(answer.to_dict(with_plan=not args.no_plan), sys.stdout, allow_nan=False)
-        sys.stdout.write("\n")
+        print_json(answer.to_dict(with_plan=not args.no_plan))
     else:
         print(answer.result.summary())
         if "confidence" in answer.extra:

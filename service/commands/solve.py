@@ -3,12 +3,10 @@
 from __future__ import annotations
 
 import argparse
-import json
-import sys
 
 from workers.planning.solve import METHODS
 
-from ._io import load_request, time_budget
+from ._io import load_request, plan_request, print_json, time_budget
 
 NAME = "solve"
 HELP = "solve a batch file (the JSON body of POST /v1/plans) locally and print the plan"
@@ -22,10 +20,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from workers.planning import usecases
-
-    from .. import reading
-
     data = load_request(args.file, "plan")  # the API's checks, its messages
     if args.method:
         data["method"] = args.method
@@ -34,15 +28,9 @@ def run(args: argparse.Namespace) -> int:
         from workers.planning.warmup import warm_up_exact as warm_up
 
         warm_up()  # load the compiled search before its clock starts, not out of the budget
-    answer = usecases.plan(
-        reading.read_instance(data),
-        method=data["method"],
-        spread=reading.read_spread(data),
-        time_budget=budget,
-    )
+    answer = plan_request(data, budget)
     if args.json:
-        json.dump(answer.to_dict(), sys.stdout, allow_nan=False)
-        sys.stdout.write("\n")
+        print_json(answer.to_dict())
     else:
         from .confidence import block_lines
 

@@ -3,12 +3,10 @@
 from __future__ import annotations
 
 import argparse
-import json
-import sys
 
-from ..client import ClientError
 from ..web.pages import certificate_sentence
 from . import _remote
+from ._io import print_json
 
 NAME = "status"
 HELP = "show the status (and certificate, when done) of a plan on a server"
@@ -21,13 +19,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    try:
-        doc = _remote.client(args).get(args.id)
-    except ClientError as err:
-        return _remote.report_client_error(err)
+    doc = _remote.fetch(args)
+    if isinstance(doc, int):
+        return doc  # the server's error, reported
     if args.json:
-        json.dump(doc, sys.stdout)
-        sys.stdout.write("\n")
+        print_json(doc, allow_nan=True)
     else:
         print(_remote.ProgressLine.render(doc))
         if doc.get("result"):

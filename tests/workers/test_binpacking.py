@@ -20,15 +20,8 @@ from workers.planning.binpacking import (
     min_bin_slack,
     pack_search,
     reduce_bins,
-    warm_up,
 )
 from workers.planning.bounds import BinPackingBound
-
-
-@pytest.fixture(autouse=True, scope="module")
-def _compiled_kernels() -> None:
-    """Compile the kernels before any timed sizing (a cold compile would eat its budget)."""
-    warm_up()
 
 
 def brute_force_bins(items: list[int], cap: int) -> int:

@@ -10,6 +10,7 @@ errors), never tuned to the output.
 
 from __future__ import annotations
 
+import dataclasses
 import heapq
 import itertools
 import json
@@ -23,6 +24,7 @@ from service.cli import main as cli_main
 from service.problems import json_pointer
 from service.reading import read_spread
 from tests.bodies import size_body
+from tests.service.conftest import PRICED_SIZING
 from workers import tasks
 from workers.planning import Instance, Node
 from workers.planning import confidence as cf
@@ -37,14 +39,7 @@ Z90 = stats.norm.ppf(0.9)
 
 def with_p90(inst: Instance, p90: list[float | None]) -> Instance:
     """The same instance with per-job p90 values."""
-    return Instance(
-        job_ids=inst.job_ids,
-        durations=inst.durations,
-        nodes=inst.nodes,
-        requires=inst.requires,
-        deadline=inst.deadline,
-        duration_p90=tuple(p90),
-    )
+    return dataclasses.replace(inst, duration_p90=tuple(p90))
 
 
 def studio_batch(n: int, seed: int) -> np.ndarray:
@@ -777,12 +772,8 @@ def test_cli_size_prints_the_confidence_lines(tmp_path, capsys) -> None:  # type
     --json carries both objects; zero spread: P = 1 and, by hand, 2 nodes for q = 0.9
     (3600 + 1800 + 1800 s, 3600 s deadline: one node takes 7200 s; LPT on two is 3600 s)."""
     body = {
-        "jobs": [
-            {"id": "lh_sq010_beauty", "duration": 3600},
-            {"id": "lh_sq010_fx", "duration": 1800},
-            {"id": "lh_sq020_fx", "duration": 1800},
-        ],
-        "deadline": 3600,
+        "jobs": PRICED_SIZING["jobs"],  # the hand-checked batch of tests/service/conftest.py
+        "deadline": PRICED_SIZING["deadline"],
         "spread": 0.0,
         "confidence": 0.9,
         "confidence_samples": 50,

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import itertools
 import time
+from collections.abc import Sequence
 
 import numpy as np
 import pytest
@@ -20,8 +21,9 @@ from workers.planning.greedy import longest_first_schedule, lpt_ratio
 from workers.planning.solve import Progress
 
 
-def brute_force(p: list[int], m: int) -> int:
-    """Optimum makespan over every assignment of jobs to nodes (node of job 0 fixed)."""
+def brute_force(p: Sequence[float], m: int) -> float:
+    """Optimum makespan over every assignment of jobs to nodes (node of job 0 fixed), on
+    whole or real durations (all m**(n-1) assignments)."""
     n = len(p)
     best = sum(p)
     for rest in itertools.product(range(m), repeat=n - 1):
@@ -220,22 +222,10 @@ def test_real_durations_bound_valid_and_makespan_from_true_durations() -> None:
             loads = np.zeros(3)
             np.add.at(loads, out.schedule.node_of, inst.durations)
             assert out.makespan == pytest.approx(loads.max())
-            opt = brute_force_real(p, 3)
+            opt = brute_force(p, 3)
             assert out.lower_bound <= opt + 1e-9
             assert out.makespan >= opt - 1e-9
             out.schedule.check()
-
-
-def brute_force_real(p: list[float], m: int) -> float:
-    """Brute force on real durations (all m**(n-1) assignments)."""
-    best = float("inf")
-    for rest in itertools.product(range(m), repeat=len(p) - 1):
-        loads = [0.0] * m
-        loads[0] = p[0]
-        for j, k in enumerate(rest, start=1):
-            loads[k] += p[j]
-        best = min(best, max(loads))
-    return best
 
 
 def test_auto_returns_lpt_when_the_bounds_prove_it() -> None:

@@ -8,8 +8,10 @@ the pattern LP solved by scipy.optimize.linprog (HiGHS), brute-force optima
 from __future__ import annotations
 
 import itertools
+from collections.abc import Iterator
 
 import numpy as np
+import numpy.typing as npt
 import pytest
 from reference import brute_force_makespan, milp_makespan
 
@@ -187,14 +189,22 @@ def test_dive_packs_planted_instances_validly() -> None:
     assert packed >= 8
 
 
+def random_batches(
+    seed: int, count: int, lengths: tuple[int, int], *, more: int
+) -> Iterator[tuple[int, list[int], int, npt.NDArray[np.int64]]]:
+    """``count`` random batches: m of 2 or 3 nodes, m + ``more`` to 8 whole lengths drawn
+    from ``lengths`` (half open); each with its optimum (brute force) and its lengths
+    longest first."""
+    rng = np.random.default_rng(seed)
+    for _ in range(count):
+        m = int(rng.integers(2, 4))
+        p = [int(x) for x in rng.integers(*lengths, size=int(rng.integers(m + more, 9)))]
+        yield m, p, brute_opt(p, m), np.array(sorted(p, reverse=True), dtype=np.int64)
+
+
 def test_dive_never_claims_an_infeasible_capacity() -> None:
     """Below the optimum (brute force) a dive fails or is refuted, never packs."""
-    rng = np.random.default_rng(7)
-    for _ in range(40):
-        m = int(rng.integers(2, 4))
-        p = [int(x) for x in rng.integers(1, 40, size=int(rng.integers(m + 1, 9)))]
-        opt = brute_opt(p, m)
-        q = np.array(sorted(p, reverse=True), dtype=np.int64)
+    for m, _, opt, q in random_batches(7, 40, (1, 40), more=1):
         lp = LPBound(q, m, opt - 1)
         assert lp.dive(10**6) in (DIVE_FAILED, REFUTED)
 
@@ -269,12 +279,7 @@ def test_not_refuted_reports_the_capacity_where_the_lp_fits() -> None:
 def test_a_copy_moved_up_agrees_with_a_fresh_start() -> None:
     """The driver's secant probes copy a refuted probe and move it to a larger capacity:
     the verdict there matches a fresh column generation, never beyond the optimum."""
-    rng = np.random.default_rng(12)
-    for _ in range(12):
-        m = int(rng.integers(2, 4))
-        p = [int(x) for x in rng.integers(10, 60, size=int(rng.integers(m + 2, 9)))]
-        opt = brute_opt(p, m)
-        q = np.array(sorted(p, reverse=True), dtype=np.int64)
+    for m, p, opt, q in random_batches(12, 12, (10, 60), more=2):
         low = max(max(p), -(-sum(p) // m))
         base = LPBound(q, m, low, dpcap=opt + 2)
         finish(base)

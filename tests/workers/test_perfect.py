@@ -9,18 +9,12 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from tests.workers.test_binpacking import brute_force_bins
-from workers.planning.perfect import perfect_fill, warm_up
+from workers.planning.perfect import perfect_fill
 from workers.planning.perfect_exact_fill import exact_fill
 from workers.planning.perfect_walk import S_MOVES, S_POOL, eject_walk, walk_start
 
 #: generous: every case here finishes in milliseconds; the limit only guards a hang
 SECONDS = 30.0
-
-
-@pytest.fixture(autouse=True, scope="module")
-def _compiled_kernels() -> None:
-    """Compile the kernels once before the tests."""
-    warm_up()
 
 
 def planted(bins: int, cap: int, rng: np.random.Generator, shave: int = 0) -> np.ndarray:

@@ -26,13 +26,6 @@ from workers.planning.sizing import (
     size,
     work_ticks,
 )
-from workers.planning.warmup import warm_up_sizing as warm_up
-
-
-@pytest.fixture(autouse=True, scope="module")
-def _compiled_kernels() -> None:
-    """Compile the kernels before any timed sizing (a cold compile would eat its budget)."""
-    warm_up()
 
 
 def milp_bins(durations: list[float], cap: float, upper: int) -> int:

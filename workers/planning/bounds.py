@@ -27,8 +27,9 @@ Ticks are used only while the whole batch stays within ``rational.MAX_TICKS`` ti
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping, Sequence
 from fractions import Fraction
-from typing import Any
+from typing import Any, TypeVar
 
 import numpy as np
 import numpy.typing as npt
@@ -55,12 +56,14 @@ MAX_CARD_ALPHAS = 48
 MAX_WINDOW_CANDIDATES = 8
 
 I64 = npt.NDArray[np.int64]
+#: a bound's value: a float (identical nodes) or an exact Fraction (farms)
+V = TypeVar("V", float, Fraction)
 
 
-def pick(bounds: dict[str, float]) -> tuple[str, float]:
-    """The largest bound and its name (the simplest rule wins ties)."""
+def pick(bounds: Mapping[str, V], order: Sequence[str] = BOUND_ORDER) -> tuple[str, V]:
+    """The largest bound and its name (the simplest rule in ``order`` wins ties)."""
     best = max(bounds.values())
-    for name in BOUND_ORDER:
+    for name in order:
         if name in bounds and bounds[name] >= best:
             return name, best
     name = max(bounds, key=lambda k: bounds[k])

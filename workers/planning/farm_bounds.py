@@ -41,7 +41,6 @@ for round-off, and its final refutation is checked again in fractions.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
 from dataclasses import dataclass
 from fractions import Fraction
 from typing import Any
@@ -128,16 +127,6 @@ def eligibility(inst: Instance) -> Eligibility:
             issues=issues,
         )
     return Eligibility(job_type, eligible, tags)
-
-
-def pick(bounds: Mapping[str, Fraction]) -> tuple[str, Fraction]:
-    """The largest bound and its name (the simplest rule wins ties)."""
-    best = max(bounds.values())
-    for name in FARM_BOUND_ORDER:
-        if name in bounds and bounds[name] >= best:
-            return name, best
-    name = max(bounds, key=lambda k: bounds[k])
-    return name, bounds[name]
 
 
 def work_bound(total: Fraction | float, s: FloatArray, f: FloatArray) -> Fraction:
@@ -303,7 +292,7 @@ def farm_lower_bounds(inst: Instance, elig: Eligibility, upper: float) -> Certif
     if bp_group is not None and ("bin_packing" not in out or bp_group[0] > out["bin_packing"]):
         out["bin_packing"] = bp_group[0]
         evidence["bin_packing"] = bp_group[1]
-    source, exact = pick(out)
+    source, exact = ident_bounds.pick(out, FARM_BOUND_ORDER)
     evidence["resolution"] = inst.resolution
     reported = {name: down(x) for name, x in out.items()}
     return Certificate(

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 from typing import Any, Protocol
 
 
@@ -17,19 +17,22 @@ class Report(Protocol):
 
 
 @dataclass(frozen=True, slots=True)
-class Progress:
-    """The best plan and the best proven bound so far, ``elapsed`` seconds in."""
+class Reported:
+    """What every report of a running search starts with: ``elapsed`` seconds in. Its
+    :meth:`to_dict` publishes every field of the report, in order (``elapsed`` to 0.1 ms)."""
 
     elapsed: float
-    best_makespan: float
-    best_lower_bound: float
 
     def to_dict(self) -> dict[str, Any]:
-        return {
-            "elapsed": round(self.elapsed, 4),
-            "best_makespan": self.best_makespan,
-            "best_lower_bound": self.best_lower_bound,
-        }
+        return {**asdict(self), "elapsed": round(self.elapsed, 4)}
+
+
+@dataclass(frozen=True, slots=True)
+class Progress(Reported):
+    """The best plan and the best proven bound so far, ``elapsed`` seconds in."""
+
+    best_makespan: float
+    best_lower_bound: float
 
 
 ProgressHook = Callable[[Progress], None]

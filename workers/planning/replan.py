@@ -35,7 +35,7 @@ and what was moved in ``extras["replan"]``. The events body is read by the servi
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, TypeVar
 
 import numpy as np
@@ -133,23 +133,23 @@ def remaining_work(inst: Instance, planned_on: Mapping[str, str], events: Events
     kept_ids: set[str] = set()
     from_lost: list[str] = []
     for i, r in enumerate(events.running):
-        if r.job not in index:
-            issues.append(Issue(("running", i, "job"), f"no job {r.job!r} in the original batch"))
-            continue
-        if r.job in finished:
-            issues.append(Issue(("running", i, "job"), f"{r.job!r} is also listed as finished"))
-            continue
-        if r.job in kept_ids or r.job in from_lost:
-            issues.append(Issue(("running", i, "job"), f"{r.job!r} is listed as running twice"))
+        bad_job = _first_failed(
+            (r.job not in index, f"no job {r.job!r} in the original batch"),
+            (r.job in finished, f"{r.job!r} is also listed as finished"),
+            (r.job in kept_ids or r.job in from_lost, f"{r.job!r} is listed as running twice"),
+        )
+        if bad_job is not None:
+            issues.append(Issue(("running", i, "job"), bad_job))
             continue
         if r.node in lost:
             from_lost.append(r.job)  # its run is lost with the node: plan it again
             continue
-        if r.node not in nodes:
-            issues.append(Issue(("running", i, "node"), f"no node {r.node!r} in the farm"))
-            continue
-        if r.node in busy_until:
-            issues.append(Issue(("running", i, "node"), f"node {r.node!r} already runs a job"))
+        bad_node = _first_failed(
+            (r.node not in nodes, f"no node {r.node!r} in the farm"),
+            (r.node in busy_until, f"node {r.node!r} already runs a job"),
+        )
+        if bad_node is not None:
+            issues.append(Issue(("running", i, "node"), bad_node))
             continue
         end = r.started_at + float(inst.durations[index[r.job]]) / nodes[r.node].speed
         busy_until[r.node] = end
@@ -241,15 +241,12 @@ def replan(
     )
     extras = dict(res.extras)
     extras["replan"] = work.info()
-    return PlanResult(
-        schedule=res.schedule,
-        method=res.method,
-        certificate=res.certificate,
-        worst_case_ratio=res.worst_case_ratio,
-        stop_reason=res.stop_reason,
-        solve_seconds=res.solve_seconds,
-        extras=extras,
-    )
+    return replace(res, extras=extras)
+
+
+def _first_failed(*checks: tuple[bool, str]) -> str | None:
+    """The message of the first check that failed (``True``), if any."""
+    return next((message for failed, message in checks if failed), None)
 
 
 def _subset(column: tuple[T, ...] | None, keep: list[int]) -> tuple[T, ...] | None:

@@ -248,6 +248,10 @@ def _is_int(x: object) -> bool:
     return isinstance(x, int | float) and not isinstance(x, bool) and float(x).is_integer()
 
 
+def _is_finite_nonneg(x: object) -> bool:
+    return isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x) and x >= 0
+
+
 def check_options(
     max_nodes: object,
     node_hour_cost: object,
@@ -258,12 +262,7 @@ def check_options(
     issues: list[Issue] = []
     if not _is_int(max_nodes) or int(max_nodes) < 1:  # type: ignore[call-overload]
         issues.append(Issue(("max_nodes",), "must be a whole number >= 1"))
-    if node_hour_cost is not None and not (
-        isinstance(node_hour_cost, int | float)
-        and not isinstance(node_hour_cost, bool)
-        and math.isfinite(node_hour_cost)
-        and node_hour_cost >= 0
-    ):
+    if node_hour_cost is not None and not _is_finite_nonneg(node_hour_cost):
         issues.append(Issue(("node_hour_cost",), "must be a finite number >= 0"))
     if billing not in BILLING:
         issues.append(Issue(("billing",), f"must be one of {', '.join(BILLING)}"))
@@ -275,12 +274,7 @@ def check_options(
         for i, k in enumerate(curve_nodes[:MAX_CURVE_NODES]):
             if not _is_int(k) or not 1 <= int(k) <= 10**6:
                 issues.append(Issue(("curve_nodes", i), "must be a whole number in 1..1000000"))
-    if time_budget is not None and not (
-        isinstance(time_budget, int | float)
-        and not isinstance(time_budget, bool)
-        and math.isfinite(time_budget)
-        and time_budget >= 0
-    ):
+    if time_budget is not None and not _is_finite_nonneg(time_budget):
         issues.append(Issue(("time_budget",), "must be a finite number >= 0"))
     return issues
 

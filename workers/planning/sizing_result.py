@@ -6,12 +6,13 @@ See :mod:`.sizing` for how the answer is found.
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
 from fractions import Fraction
 from typing import Any
 
 from .budget import StopReason
 from .certified import Certified
+from .progress import Reported
 from .rational import ceil_div
 from .result import Schedule
 
@@ -26,19 +27,11 @@ COST_MODEL = (
 
 
 @dataclass(frozen=True, slots=True)
-class SizingProgress:
-    """What a running sizing reports: the interval so far."""
+class SizingProgress(Reported):
+    """What a running sizing reports: the interval so far, ``elapsed`` seconds in."""
 
-    elapsed: float
     nodes_needed: int
     nodes_lower_bound: int
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "elapsed": round(self.elapsed, 4),
-            "nodes_needed": self.nodes_needed,
-            "nodes_lower_bound": self.nodes_lower_bound,
-        }
 
 
 SizingProgressHook = Callable[[SizingProgress], None]
@@ -57,14 +50,7 @@ class CurveRow:
     provably_misses: bool
 
     def to_dict(self) -> dict[str, Any]:
-        return {
-            "nodes": self.nodes,
-            "makespan": self.makespan,
-            "lower_bound": self.lower_bound,
-            "cost": self.cost,
-            "meets_deadline": self.meets_deadline,
-            "provably_misses": self.provably_misses,
-        }
+        return asdict(self)
 
 
 @dataclass(frozen=True, eq=False)

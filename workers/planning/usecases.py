@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Generic, TypeVar
 
 from .confidence.request import SpreadRequest
 from .model import Instance
@@ -19,36 +19,36 @@ from .result import PlanResult
 from .sizing import SizingProgressHook, SizingResult
 from .sizing_request import SizingArgs
 
+#: what an answer wraps: a plan or a sizing
+R = TypeVar("R", PlanResult, SizingResult)
+
 
 @dataclass(frozen=True, eq=False)
-class PlanAnswer:
-    """A plan and, when the request gave estimate spread, its ``confidence`` block."""
+class Answer(Generic[R]):
+    """A result and, when the request gave estimate spread, its ``confidence`` block (a
+    sizing's ``confidence_sizing`` too)."""
 
-    result: PlanResult
+    result: R
     extra: dict[str, Any] = field(default_factory=dict)
 
-    def to_dict(self, *, with_assignment: bool = True) -> dict[str, Any]:
-        """The ``result`` object of the API contract."""
-        out = self.result.to_dict(with_assignment=with_assignment)
+    def to_dict(self, **options: bool) -> dict[str, Any]:
+        """The ``result`` object of the API contract (``options``: the result's own, such
+        as ``with_assignment`` of a plan or ``with_plan`` of a sizing)."""
+        out = self.result.to_dict(**options)
         out.update(self.extra)
         return out
+
+
+class PlanAnswer(Answer[PlanResult]):
+    """A plan and, when the request gave estimate spread, its ``confidence`` block."""
 
     def to_json(self) -> str:
         """:meth:`to_dict` as compact JSON, written fast (``PlanResult.to_json``)."""
         return self.result.to_json(self.extra)
 
 
-@dataclass(frozen=True, eq=False)
-class SizingAnswer:
+class SizingAnswer(Answer[SizingResult]):
     """A sizing and, with estimate spread, its ``confidence`` (and ``confidence_sizing``)."""
-
-    result: SizingResult
-    extra: dict[str, Any] = field(default_factory=dict)
-
-    def to_dict(self, *, with_plan: bool = True) -> dict[str, Any]:
-        out = self.result.to_dict(with_plan=with_plan)
-        out.update(self.extra)
-        return out
 
 
 def plan(

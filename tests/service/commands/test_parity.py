@@ -29,10 +29,18 @@ def _stable(x: Any) -> Any:
     return x
 
 
+def _json_files(tmp_path: Path, **docs: Any) -> list[str]:
+    """Each document written as JSON to ``<name>.json`` in ``tmp_path``; the paths."""
+    paths = []
+    for name, doc in docs.items():
+        f = tmp_path / f"{name}.json"
+        f.write_text(json.dumps(doc))
+        paths.append(str(f))
+    return paths
+
+
 def _cli(tmp_path: Path, capsys: pytest.CaptureFixture[str], cmd: str, body: Any) -> Any:
-    f = tmp_path / "body.json"
-    f.write_text(json.dumps(body))
-    assert main([cmd, str(f), "--json"]) == 0
+    assert main([cmd, *_json_files(tmp_path, body=body), "--json"]) == 0
     return json.loads(capsys.readouterr().out)
 
 
@@ -117,11 +125,7 @@ def test_replan_events_refused_alike(
     r = client.post(f"/v1/plans/{done['id']}/replan", json=events)
     assert r.status_code == 422
     assert [e["pointer"] for e in r.get_json()["errors"]] == ["/finised"]
-    files = []
-    for name, doc in (("req", body), ("res", done["result"]), ("ev", events)):
-        f = tmp_path / f"{name}.json"
-        f.write_text(json.dumps(doc))
-        files.append(str(f))
+    files = _json_files(tmp_path, req=body, res=done["result"], ev=events)
     assert main(["replan", *files, "--json"]) == 2
     assert "/finised" in capsys.readouterr().err
 
@@ -160,11 +164,7 @@ def test_replan_same_through_cli_and_api(
         f"/v1/plans/{done['id']}/replan", json=events, headers={"Prefer": "wait=10"}
     ).get_json()
     assert r["status"] == "done"
-    files = []
-    for name, doc in (("req", body), ("res", done["result"]), ("ev", events)):
-        f = tmp_path / f"{name}.json"
-        f.write_text(json.dumps(doc))
-        files.append(str(f))
+    files = _json_files(tmp_path, req=body, res=done["result"], ev=events)
     assert main(["replan", *files, "--json"]) == 0
     cli = json.loads(capsys.readouterr().out)
     api = r["result"]

@@ -17,7 +17,7 @@ from ..model import Instance
 from ..result import Schedule
 from .simulation import confidence_block
 from .spread import SpreadModel
-from .target import confidence_target, nodes_for_confidence
+from .target import confidence_target, fewest_nodes
 
 #: request keys that ask for a simulation (as does any job's ``duration_p90``)
 SIMULATION_KEYS = ("spread", "confidence_samples", "confidence")
@@ -45,21 +45,22 @@ class SpreadRequest:
     #: most nodes the sizing to ``target`` may answer (None: the sizing's default)
     max_nodes: int | None = None
 
-    def check(self, inst: Instance, speed: float) -> None:
+    def check(self, inst: Instance, speed: float) -> tuple[Instance, SpreadModel] | None:
         """The checks that need no sampling, for the jobs and deadline of ``inst``.
 
         The spread model (a p90 on a zero estimate, a spread too wide to simulate) and,
         with a target, :func:`confidence_target` on nodes of ``speed`` (q out of reach of
-        the sample count, or of any node count). Cheap: closed forms, no sampling.
+        the sample count, or of any node count). Cheap: closed forms, no sampling. With a
+        target, returns what :func:`confidence_target` returns (for :func:`fewest_nodes`).
         """
         if self.target is None:
             SpreadModel.from_instance(inst, self.spread)
-            return
+            return None
         if inst.deadline is None:
             raise InvalidInstance(
                 "sizing to a confidence needs a deadline", [Issue(("deadline",), "required")]
             )
-        confidence_target(
+        return confidence_target(
             inst.durations,
             inst.deadline,
             self.target,
@@ -88,7 +89,7 @@ def sizing_confidence(
     """
     inst = schedule.instance
     speed = inst.nodes[0].speed
-    asked.check(inst, speed)
+    checked = asked.check(inst, speed)
     out: dict[str, Any] = {
         "confidence": confidence_block(
             schedule,
@@ -99,22 +100,22 @@ def sizing_confidence(
             threads=threads,
         )
     }
-    if asked.target is not None:
+    if checked is not None:  # a target q: check() returned the jobs it checked
         from ..sizing import DEFAULT_MAX_NODES  # the sizing's own cap on the answer
 
-        assert inst.deadline is not None  # check() refused a target without a deadline
-        answer = nodes_for_confidence(
-            inst.durations,
+        assert inst.deadline is not None and asked.target is not None  # as check() found
+        one, model = checked
+        answer = fewest_nodes(
+            one,
+            model,
             inst.deadline,
             asked.target,
             speed=speed,
-            duration_p90=inst.duration_p90,
-            spread=asked.spread,
             samples=asked.samples,
             seed=asked.seed,
-            max_nodes=DEFAULT_MAX_NODES if asked.max_nodes is None else asked.max_nodes,
+            policy="static",
             threads=threads,
-            job_ids=inst.job_ids,
+            max_nodes=DEFAULT_MAX_NODES if asked.max_nodes is None else asked.max_nodes,
         )
         out["confidence_sizing"] = answer.to_dict()
     return out

@@ -167,6 +167,35 @@ def nodes_for_confidence(
         policy=policy,
         job_ids=job_ids,
     )
+    return fewest_nodes(
+        one,
+        model,
+        deadline,
+        q,
+        speed=speed,
+        samples=samples,
+        seed=seed,
+        policy=policy,
+        max_nodes=max_nodes,
+        threads=threads,
+    )
+
+
+def fewest_nodes(
+    one: Instance,
+    model: SpreadModel,
+    deadline: float,
+    q: float,
+    *,
+    speed: float,
+    samples: int,
+    seed: int,
+    policy: Policy,
+    max_nodes: int | None,
+    threads: int | None,
+) -> ConfidenceSizing:
+    """The search of :func:`nodes_for_confidence` on what :func:`confidence_target`
+    returned for the same arguments (the jobs on one node and their spread model)."""
     n = one.n
     upper = n if max_nodes is None else min(int(max_nodes), max(n, 1))
     # the work needs this many nodes by the deadline, in exact arithmetic

@@ -59,7 +59,6 @@ import copy
 from typing import Any
 
 import numpy as np
-import numpy.typing as npt
 
 from ..kernels import pure
 from .colgen import (
@@ -76,6 +75,8 @@ from .colgen import (
     _RNG,
     _YMAX,
     DIVE_NOISE,
+    I32,
+    I64,
     ST_SIZE,
     CGState,
     _add_column,
@@ -95,11 +96,6 @@ from .simplex import (
     Columns,
     diagonal_basis,
 )
-
-I64 = npt.NDArray[np.int64]
-I32 = npt.NDArray[np.int32]
-F64 = npt.NDArray[np.float64]
-
 
 #: the knapsack table (binary-split items x capacity) must stay below this many cells
 MAX_DP_CELLS = 12_000_000
