@@ -1,8 +1,10 @@
 """CSV in and out: batches and farms from spreadsheets, assignments back to them.
 
 Batch CSV (header row required; columns in any order, unknown columns refused):
-``id,duration[,group][,requires][,duration_p90]``, with ``requires`` a list of tags
-separated by spaces or semicolons. Farm CSV: ``id[,speed][,provides][,free_at]``.
+``id,duration[,group][,requires][,duration_p90][,after][,uses]``, with ``requires`` (tags),
+``after`` (ids of the jobs this one waits for) and ``uses`` (names of the limits it uses)
+lists separated by spaces or semicolons. Farm CSV: ``id[,speed][,provides][,free_at]
+[,slots]``.
 Assignment CSV: ``node,job,start,end`` (seconds), one row per job, in node then start order.
 """
 
@@ -75,6 +77,22 @@ def _tags(value: str, line: int, header: list[str], name: str) -> list[str]:
     return [t for t in value.replace(";", " ").split() if t]
 
 
+def _ids(value: str, line: int, header: list[str], name: str) -> list[str]:
+    """A list of ids (``after``): like tags, each read back as :func:`neutral` wrote it."""
+    return [restored(t) for t in _tags(value, line, header, name)]
+
+
+def _whole(value: str, line: int, header: list[str], name: str) -> int:
+    x = _number(value, line, header, name, low=1.0)
+    if not x.is_integer():
+        col = header.index(name) + 1
+        raise CsvError(
+            f"line {line}, column {col} ({name}): {value!r} is not a whole number >= 1",
+            [Issue((), f"line {line}, column {col}: bad {name}")],
+        )
+    return int(x)
+
+
 #: a cell starting with one of these is a formula to a spreadsheet (OWASP, "CSV Injection")
 FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
 
@@ -112,12 +130,15 @@ JOB_READERS: dict[str, Reader] = {
     "group": _text,
     "requires": _tags,
     "duration_p90": _number,
+    "after": _ids,
+    "uses": _tags,
 }
 NODE_READERS: dict[str, Reader] = {
     "id": _text,
     "speed": _speed,
     "provides": _tags,
     "free_at": _number,
+    "slots": _whole,
 }
 
 

@@ -107,12 +107,26 @@ class StrictSchema(Schema):
         unknown = RAISE
 
 
+def _names() -> fields.List:  # type: ignore[type-arg]
+    """A list of ids or limit names (what a job waits for, what it uses)."""
+    return fields.List(fields.String(validate=_text(1, MAX_ID_LENGTH)))
+
+
+#: most jobs of one limit that may run at once, and most slots of one node (sanity caps)
+MAX_CAPACITY = 1_000_000
+MAX_SLOTS = 1_024
+
+
 class JobSchema(StrictSchema):
     id = _ident()
     duration = FiniteNumber(required=True, validate=_seconds())
     duration_p90 = FiniteNumber(validate=_seconds())
     requires = _tags()
     group = fields.String(allow_none=True, validate=_text(0, MAX_ID_LENGTH))
+    #: the ids of the jobs this one waits for (finish-to-start)
+    after = _names()
+    #: the names of the shared limits this job uses while it runs
+    uses = _names()
 
 
 _JOB_KEYS = frozenset(JobSchema().fields)
@@ -180,6 +194,16 @@ class NodeSchema(StrictSchema):
     speed = FiniteNumber(validate=validate.Range(*SPEEDS))
     provides = _tags()
     free_at = FiniteNumber(validate=_seconds())
+    #: how many jobs the node runs at once, each at its speed
+    slots = WholeNumber(validate=validate.Range(min=1, max=MAX_SLOTS))
+
+
+def _limits() -> fields.Dict:
+    """Limit name -> how many jobs using it may run at once."""
+    return fields.Dict(
+        keys=fields.String(validate=_text(1, MAX_ID_LENGTH)),
+        values=WholeNumber(validate=validate.Range(min=1, max=MAX_CAPACITY)),
+    )
 
 
 class PlanRequestSchema(StrictSchema):
@@ -196,6 +220,7 @@ class PlanRequestSchema(StrictSchema):
     spread = FiniteNumber(validate=validate.Range(0, MAX_SPREAD))
     confidence_samples = WholeNumber(validate=validate.Range(min=10, max=MAX_SAMPLES))
     confidence_seed = WholeNumber(validate=validate.Range(min=0, max=2**32 - 1))
+    limits = _limits()
 
     @validates_schema
     def _nodes_xor_count(self, data: Mapping[str, Any], **kwargs: Any) -> None:

@@ -62,12 +62,13 @@ def solve_plan(
     from service import reading
     from workers.planning import usecases
 
+    inst: reading.Problem
     if isinstance(body, payload.Columns):
-        inst = reading.read_columns(body.envelope, body.ids, body.durations, body.groups)
+        plain = reading.read_columns(body.envelope, body.ids, body.durations, body.groups)
+        inst = reading.with_stages(plain, body.envelope)  # limits or slots, if any
         spread = reading.read_spread(body.envelope)  # plain jobs carry no duration_p90
     else:
-        inst = reading.read_instance(body)
-        spread = reading.read_spread(body)
+        inst, spread = reading.read_plan_body(body)
     answer = usecases.plan(
         inst,
         spread=spread,

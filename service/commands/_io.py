@@ -47,12 +47,8 @@ def plan_request(data: dict[str, Any], budget: float) -> PlanAnswer:
 
     from .. import reading
 
-    return usecases.plan(
-        reading.read_instance(data),
-        method=data["method"],
-        spread=reading.read_spread(data),
-        time_budget=budget,
-    )
+    problem, spread = reading.read_plan_body(data)
+    return usecases.plan(problem, method=data["method"], spread=spread, time_budget=budget)
 
 
 def finite(x: float) -> float | None:

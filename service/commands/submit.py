@@ -22,6 +22,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--method", choices=("list", "longest_first", "exact", "auto"))
     p.add_argument("--time-budget", type=float, help="seconds of search")
     p.add_argument("--deadline", type=float, help="deadline in seconds from the start")
+    p.add_argument(
+        "--limit",
+        action="append",
+        default=[],
+        metavar="NAME=COUNT",
+        help="a shared limit: at most COUNT jobs that use NAME run at once (repeatable)",
+    )
     p.add_argument("--wait", action="store_true", help="follow progress until the plan is done")
     p.add_argument("--json", action="store_true", help="print the final status body as JSON")
     _remote.add_server_arguments(p)
@@ -42,6 +49,12 @@ def run(args: argparse.Namespace) -> int:
     ):
         if value is not None:
             body[key] = value
+    for item in args.limit:
+        name, sep, count = item.partition("=")
+        if not sep or not name or not count.strip().isdigit():
+            print(f"spanwright: --limit {item!r}: write NAME=COUNT", file=sys.stderr)
+            return _remote.EXIT_INVALID
+        body.setdefault("limits", {})[name] = int(count)
     if "nodes" not in body and "node_count" not in body:
         print("spanwright: give --nodes N or --farm FILE (or nodes in the JSON)", file=sys.stderr)
         return _remote.EXIT_INVALID

@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from workers.planning.confidence.request import SpreadRequest
 from workers.planning.errors import InvalidInstance, Issue, Path
 from workers.planning.model import (
     CONTROL,
@@ -26,6 +27,10 @@ from workers.planning.model import (
     duplicates,
     identical_nodes,
 )
+from workers.planning.stages.problem import StageProblem
+
+from .spread import read_spread
+from .stages import Problem, refuse_stages, with_stages
 
 
 def read_instance(body: Mapping[str, Any]) -> Instance:
@@ -35,6 +40,23 @@ def read_instance(body: Mapping[str, Any]) -> Instance:
     :class:`InvalidInstance` whose issues carry JSON Pointers into ``body``.
     """
     return PlanReader(body).read()
+
+
+def read_problem(body: Mapping[str, Any]) -> Problem:
+    """:func:`read_instance`, as a :class:`StageProblem` when the body uses ``after``,
+    ``uses``, ``limits`` or ``slots`` (``service/reading/stages.py``)."""
+    return with_stages(read_instance(body), body)
+
+
+def read_plan_body(body: Mapping[str, Any]) -> tuple[Problem, SpreadRequest | None]:
+    """What a ``POST /v1/plans`` body asks for: the batch (or stage graph) and, with
+    estimate spread, what to simulate. A stage graph with spread inputs is refused (the
+    simulation does not follow waits, limits and slots yet)."""
+    problem = read_problem(body)
+    spread = read_spread(body)
+    if spread is not None and isinstance(problem, StageProblem):
+        refuse_stages(body, "the confidence simulation")
+    return problem, spread
 
 
 def read_columns(

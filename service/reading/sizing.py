@@ -10,6 +10,7 @@ from workers.planning.sizing import DEFAULT_BILLING, DEFAULT_MAX_NODES, check_op
 from workers.planning.sizing_request import SizingArgs
 
 from .plan import read_instance
+from .stages import refuse_stages
 
 
 def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs:
@@ -22,6 +23,7 @@ def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs:
         raise InvalidInstance(
             "the request body must be a JSON object", [Issue((), "not an object")]
         )
+    refuse_stages(body, "sizing")
     issues: list[Issue] = []
     raw_node = body.get("node", {})
     if raw_node is None:

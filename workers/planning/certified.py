@@ -13,6 +13,7 @@ from __future__ import annotations
 import math
 from abc import ABC, abstractmethod
 from fractions import Fraction
+from typing import Any
 
 from .budget import StopReason
 
@@ -64,3 +65,66 @@ class Certified(ABC):
             raise ValueError("negative solve time not understood")
         if self.exact_lower_bound > self.exact_value:
             raise ValueError("lower bound above the value: a bound is wrong")
+
+
+class MakespanAnswer(Certified):
+    """A :class:`Certified` plan: its value is a makespan in seconds. Holds what every plan
+    says the same way (the deadline verdict, the summary for people); subclasses give
+    ``method``, ``worst_case_ratio``, :attr:`deadline` and :meth:`scale`."""
+
+    method: str
+    worst_case_ratio: float | None
+
+    @property
+    @abstractmethod
+    def deadline(self) -> float | None:
+        """The request's deadline in seconds, if any."""
+
+    @abstractmethod
+    def scale(self) -> str:
+        """What was planned, for people: ``3 node(s), 40 job(s)``."""
+
+    @property
+    def makespan(self) -> float:
+        """The plan's makespan: its exact value, rounded to the nearest float."""
+        return float(self.exact_value)
+
+    @property
+    def lower_bound(self) -> float:
+        """The best proven bound, rounded down (never above the proof)."""
+        f = float(self.exact_lower_bound)
+        return f if Fraction(f) <= self.exact_lower_bound else math.nextafter(f, -math.inf)
+
+    def deadline_dict(self) -> dict[str, Any] | None:
+        """The contract's ``deadline`` object: met, slack, provably unreachable (exact)."""
+        d = self.deadline
+        if d is None:
+            return None
+        return {
+            "deadline": d,
+            "met": self.exact_value <= Fraction(d),
+            "slack": float(Fraction(d) - self.exact_value),
+            "provably_unreachable": self.exact_lower_bound > Fraction(d),
+        }
+
+    def summary(self) -> str:
+        """A few human-readable lines."""
+        lines = [
+            f"method          {self.method} (stopped: {self.stop_reason})",
+            f"makespan        {self.makespan:.6g} s on {self.scale()}",
+            f"lower bound     {self.lower_bound:.6g} s ({self.bound_source})",
+            "gap             "
+            + ("0 (proven optimal)" if self.proven_optimal else f"{100 * self.gap:.3f} %"),
+        ]
+        if self.worst_case_ratio is not None:
+            lines.append(f"a-priori ratio  {self.worst_case_ratio:.6g}")
+        dl = self.deadline_dict()
+        if dl is not None:
+            verdict = "met" if dl["met"] else "missed"
+            if dl["provably_unreachable"]:
+                verdict += " (no plan can meet it)"
+            lines.append(
+                f"deadline        {dl['deadline']:.6g} s: {verdict}, slack {dl['slack']:.6g} s"
+            )
+        lines.append(f"solve time      {self.solve_seconds:.4f} s")
+        return "\n".join(lines)

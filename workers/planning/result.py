@@ -21,7 +21,7 @@ import numpy as np
 import numpy.typing as npt
 
 from .budget import StopReason
-from .certified import Certified
+from .certified import MakespanAnswer
 from .kernels import chain_starts, pure
 from .model import FloatArray, Instance
 from .rational import exact_sum
@@ -243,7 +243,7 @@ class Certificate:
 
 
 @dataclass(frozen=True, eq=False)
-class PlanResult(Certified):
+class PlanResult(MakespanAnswer):
     """A plan and how far it may be from the best possible one, for the given estimates.
 
     The value is the makespan; :class:`~.certified.Certified` decides ``proven_optimal``
@@ -283,17 +283,13 @@ class PlanResult(Certified):
         """The best proven bound: never above the optimum, in exact arithmetic."""
         return self.certificate.value
 
-    def deadline_dict(self) -> dict[str, Any] | None:
-        d = self.schedule.instance.deadline
-        if d is None:
-            return None
-        ms = self.schedule.makespan_exact
-        return {
-            "deadline": d,
-            "met": ms <= Fraction(d),
-            "slack": float(Fraction(d) - ms),
-            "provably_unreachable": self.certificate.exact_value > Fraction(d),
-        }
+    @property
+    def deadline(self) -> float | None:
+        return self.schedule.instance.deadline
+
+    def scale(self) -> str:
+        inst = self.schedule.instance
+        return f"{inst.m} node(s), {inst.n} job(s)"
 
     def to_dict(self, *, with_assignment: bool = True) -> dict[str, Any]:
         """The contract's ``result`` object."""
@@ -333,26 +329,3 @@ class PlanResult(Certified):
         if tail:
             out += "," + json.dumps(tail, allow_nan=False, separators=(",", ":"))[1:-1]
         return out + "}"
-
-    def summary(self) -> str:
-        """A few human-readable lines."""
-        lines = [
-            f"method          {self.method} (stopped: {self.stop_reason})",
-            f"makespan        {self.makespan:.6g} s on {self.schedule.instance.m} node(s), "
-            f"{self.schedule.instance.n} job(s)",
-            f"lower bound     {self.lower_bound:.6g} s ({self.certificate.source})",
-            "gap             "
-            + ("0 (proven optimal)" if self.proven_optimal else f"{100 * self.gap:.3f} %"),
-        ]
-        if self.worst_case_ratio is not None:
-            lines.append(f"a-priori ratio  {self.worst_case_ratio:.6g}")
-        dl = self.deadline_dict()
-        if dl is not None:
-            verdict = "met" if dl["met"] else "missed"
-            if dl["provably_unreachable"]:
-                verdict += " (no plan can meet it)"
-            lines.append(
-                f"deadline        {dl['deadline']:.6g} s: {verdict}, slack {dl['slack']:.6g} s"
-            )
-        lines.append(f"solve time      {self.solve_seconds:.4f} s")
-        return "\n".join(lines)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import dataclasses
 import time
 from collections.abc import Callable
-from typing import Any
+from typing import Any, overload
 
 from . import bounds, greedy
 from .budget import DEFAULT_SECONDS, Budget
@@ -14,22 +14,47 @@ from .model import Instance
 from .progress import Progress as Progress
 from .progress import ProgressHook
 from .result import PlanResult, Schedule
+from .stages.problem import StageProblem
+from .stages.result import StageResult
 
 METHODS = ("list", "longest_first", "exact", "auto")
 
 
+@overload
 def solve(
     inst: Instance,
+    method: str = ...,
+    *,
+    time_budget: float = ...,
+    progress: ProgressHook | None = ...,
+    should_stop: Callable[[], bool] | None = ...,
+) -> PlanResult: ...
+
+
+@overload
+def solve(
+    inst: StageProblem,
+    method: str = ...,
+    *,
+    time_budget: float = ...,
+    progress: ProgressHook | None = ...,
+    should_stop: Callable[[], bool] | None = ...,
+) -> PlanResult | StageResult: ...
+
+
+def solve(
+    inst: Instance | StageProblem,
     method: str = "longest_first",
     *,
     time_budget: float = DEFAULT_SECONDS,
     progress: ProgressHook | None = None,
     should_stop: Callable[[], bool] | None = None,
-) -> PlanResult:
+) -> PlanResult | StageResult:
     """Plan ``inst`` with ``method`` and certify how far the plan may be from optimal.
 
     ``time_budget`` (seconds) and ``should_stop`` (a cancel check) only matter to the
-    search methods; the greedy ones take milliseconds.
+    search methods; the greedy ones take milliseconds. A stage graph whose jobs wait for
+    none, use no limit and run on single-slot nodes is planned as its plain batch.
     """
     if method not in METHODS:
         raise InvalidInstance(
@@ -39,6 +64,12 @@ def solve(
     if not (time_budget >= 0):
         raise InvalidInstance("bad time budget", [Issue(("time_budget",), "must be >= 0")])
     budget = Budget(time_budget, should_stop)
+    if isinstance(inst, StageProblem):
+        if inst.arcs or inst.has_limits or not inst.single_slot:
+            from .stages.search import solve_stages
+
+            return solve_stages(inst, method, budget)
+        inst = inst.instance
     if inst.identical:
         return _solve_identical(inst, method, budget, progress)
     from . import farm  # heterogeneous farms: speeds, tags, nodes still busy

@@ -13,14 +13,17 @@ from dataclasses import dataclass, field
 from typing import Any, Generic, TypeVar
 
 from .confidence.request import SpreadRequest
+from .errors import InvalidInstance, Issue
 from .model import Instance
 from .progress import ProgressHook
 from .result import PlanResult
 from .sizing import SizingProgressHook, SizingResult
 from .sizing_request import SizingArgs
+from .stages.problem import StageProblem
+from .stages.result import StageResult
 
-#: what an answer wraps: a plan or a sizing
-R = TypeVar("R", PlanResult, SizingResult)
+#: what an answer wraps: a plan (of a batch or of a stage graph) or a sizing
+R = TypeVar("R", PlanResult, PlanResult | StageResult, SizingResult)
 
 
 @dataclass(frozen=True, eq=False)
@@ -39,7 +42,7 @@ class Answer(Generic[R]):
         return out
 
 
-class PlanAnswer(Answer[PlanResult]):
+class PlanAnswer(Answer[PlanResult | StageResult]):
     """A plan and, when the request gave estimate spread, its ``confidence`` block."""
 
     def to_json(self) -> str:
@@ -52,7 +55,7 @@ class SizingAnswer(Answer[SizingResult]):
 
 
 def plan(
-    inst: Instance,
+    inst: Instance | StageProblem,
     *,
     method: str,
     time_budget: float,
@@ -69,12 +72,17 @@ def plan(
     if spread is not None:
         from .confidence import confidence_block
 
+        if not isinstance(res, PlanResult):
+            raise InvalidInstance(
+                "the confidence simulation does not handle stage graphs yet",
+                [Issue(("spread",), "not supported with after, uses, limits or slots yet")],
+            )
         extra["confidence"] = confidence_block(
             res.schedule,
             spread=spread.spread,
             samples=spread.samples,
             seed=spread.seed,
-            deadline=inst.deadline,
+            deadline=res.schedule.instance.deadline,
         )
     return PlanAnswer(res, extra)
 

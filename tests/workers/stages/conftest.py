@@ -1,0 +1,8 @@
+"""Makes ``stage_helpers`` (beside this file) importable by the stage-graph tests."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).parent))

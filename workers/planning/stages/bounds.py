@@ -1,0 +1,367 @@
+"""Lower bounds on the optimum makespan of a stage graph, each with its name and evidence.
+
+Every bound is a theorem about **the tick-rounded problem** of :mod:`.timing` (running
+times ``d_jk = ceil(p_j / (s_k res))`` ticks, node ``k``'s ``c_k`` slots free from
+``F_k = ceil(free_at_k / res)``, makespan ``max(max_j end_j, max_k F_k)``), computed in
+integers or fractions, so none exceeds that problem's optimum ``C*`` (the plans of this
+package solve that problem). Notation: ``d_j`` is job ``j``'s running time on its fastest
+eligible node, ``r_j`` / ``q_j`` its head / tail (:mod:`.paths`), ``M = sum_k c_k`` the
+slots, ``c_L`` a limit's capacity. Since ``C*`` is a whole number, each bound is rounded
+up to whole ticks.
+
+``busy_nodes``     ``max_k F_k``: the makespan counts every node's start time.
+``critical_path``  ``max_j r_j + d_j + q_j``: along any chain of waits the jobs run one
+                   after another, the first no earlier than an eligible node is free,
+                   each for at least its fastest time (evidence: the ids on the path).
+``mean_load``      all work fits in the slots: node ``k`` offers ``c_k (C - F_k)``
+                   slot-ticks by ``C`` (``C >= F_k`` by the makespan's definition). On
+                   one speed each job takes ``d_j`` slot-ticks, so
+                   ``C* >= (sum_j d_j + sum_k c_k F_k) / M``; with several speeds, a job on
+                   node ``k`` does ``s_k d_jk`` speed-1 ticks of work (at least
+                   ``w_j = min`` of that over its eligible nodes) and node ``k`` offers
+                   ``c_k s_k (C - F_k)``, so
+                   ``C* >= (sum_j w_j + sum_k c_k s_k F_k) / sum_k c_k s_k``.
+``limit_load``     per limit L: its jobs all run inside ``[min r, C* - min q]`` (over the
+                   jobs J_L using L), at most ``min(c_L, M)`` at a time, each for at least
+                   ``d_j``: ``C* >= min r + sum_{J_L} d_j / min(c_L, M) + min q``.
+``heads_tails``    the same for any set S of jobs (graphs-and-rentals.md item 4: the
+                   relaxation to parallel machines with release and delivery times,
+                   Carlier 1982 for one machine): ``C* >= min_S r + sum_S d_j / cap +
+                   min_S q``, over the sets ``{j : r_j >= a, q_j >= b}`` for thresholds
+                   ``a`` (heads) and ``b`` (tails); for all jobs (``cap = M``) and for each
+                   limit's jobs (``cap = min(c_L, M)``).
+``energetic``      energetic reasoning (Lopez, Erschler and Esquirol 1992; Baptiste, Le
+                   Pape and Nuijten 2001): in a plan ending by ``C`` job ``j`` runs inside
+                   ``[r_j, C - q_j]`` for at least ``d_j``, so inside any ``[t1, t2)`` for
+                   at least ``max(0, min(d_j, t2 - t1, r_j + d_j - t1, t2 - C + q_j +
+                   d_j))`` (the least of its overlaps when started first or last: the
+                   overlap is concave in the start). If the jobs' sum exceeds the slot-ticks
+                   the nodes offer in ``[t1, t2)`` (``sum_k c_k (t2 - max(t1, F_k))^+``;
+                   for a limit's jobs also ``c_L (t2 - t1)``), no plan ends by ``C``:
+                   ``C* >= C + 1``. Each refuted ``C`` is a proof on its own, so a search
+                   over ``C`` needs no monotonicity. Run for up to
+                   :data:`ENERGETIC_MAX_JOBS` jobs (O(n^2 log n) per ``C``), skipped above.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from fractions import Fraction
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+from ..rational import down
+from .paths import Paths
+from .problem import StageProblem
+
+I64 = npt.NDArray[np.int64]
+
+#: energetic reasoning is tried on instances with at most this many jobs
+ENERGETIC_MAX_JOBS = 500
+#: heads_tails tries every distinct head as a threshold up to this many jobs, else this
+#: many (spread over the sorted distinct heads)
+HEADS_TAILS_ALL_UP_TO = 2_000
+HEADS_TAILS_THRESHOLDS = 48
+#: integers handled by the vectorised energetic test stay below this
+INT64_ROOM = 2**62
+
+
+@dataclass(frozen=True)
+class Bound:
+    """A proven lower bound on the optimum, in whole ticks, with the argument's data."""
+
+    name: str
+    ticks: int
+    evidence: dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class StageBounds:
+    """Every bound computed (several ``limit_load`` entries, one per limit) and the best."""
+
+    bounds: tuple[Bound, ...]
+    resolution: float
+
+    @property
+    def best(self) -> Bound:
+        """The largest bound (the first computed among equals)."""
+        return max(self.bounds, key=lambda b: b.ticks)
+
+    @property
+    def ticks(self) -> int:
+        """The best bound in ticks."""
+        return self.best.ticks
+
+    @property
+    def exact(self) -> Fraction:
+        """The best bound in seconds, exactly."""
+        return self.ticks * Fraction(self.resolution)
+
+    @property
+    def seconds(self) -> float:
+        """The best bound in seconds, rounded down to a float (never above the proof)."""
+        return down(self.exact)
+
+
+def _ceil_div(a: int, b: int) -> int:
+    return -(-a // b)
+
+
+def busy_nodes(problem: StageProblem) -> Bound:
+    """``max_k F_k``."""
+    free = problem.timing.free
+    k = int(np.argmax(free))
+    return Bound("busy_nodes", int(free[k]), {"node": problem.instance.nodes[k].id})
+
+
+def critical_path(paths: Paths) -> Bound:
+    """``max_j r_j + d_j + q_j`` with the ids of one path that attains it."""
+    value, path = paths.critical_path()
+    ids = paths.problem.instance.job_ids
+    return Bound("critical_path", value, {"jobs": [ids[j] for j in path]})
+
+
+def mean_load(problem: StageProblem) -> Bound:
+    """All work fits in the slots by ``C*`` (see the module docstring)."""
+    t = problem.timing
+    c = problem.slots
+    if len(t.speeds) == 1:
+        need = int(t.dmin.sum()) + int((c * t.free).sum())
+        total = int(c.sum())
+        return Bound(
+            "mean_load",
+            _ceil_div(need, total),
+            {"work_ticks": int(t.dmin.sum()), "slots": total},
+        )
+    work = _least_work(problem)
+    cap = Fraction(0)
+    busy = Fraction(0)
+    for k, nd in enumerate(problem.instance.nodes):
+        w = int(c[k]) * Fraction(nd.speed)
+        cap += w
+        busy += w * int(t.free[k])
+    value = (work + busy) / cap
+    return Bound(
+        "mean_load",
+        -((-value.numerator) // value.denominator),
+        {"work_ticks_speed_1": str(work), "slot_speed_sum": str(cap)},
+    )
+
+
+def _least_work(problem: StageProblem) -> Fraction:
+    """``sum_j min_k s_k d_jk`` over each job's eligible speeds, exactly: the least
+    speed-1 work (in ticks) a job does wherever it runs, from the timing's own tables, so
+    the bound holds for whichever problem they describe (rounded up, or down). Float
+    products pick each job's cheapest speed; near ties are settled in fractions."""
+    t = problem.timing
+    speeds = [Fraction(x) for x in t.speeds]
+    ncol = len(speeds)
+    ok = np.zeros((t.eligible.shape[0], ncol), dtype=bool)
+    for k in range(problem.m):
+        ok[:, t.speed_col[k]] |= t.eligible[:, k]
+    mask = ok[t.job_type]
+    prod = t.run * np.asarray(t.speeds, dtype=np.float64)
+    prod[~mask] = np.inf
+    col = np.argmin(prod, axis=1)
+    if ncol > 1:
+        two = np.partition(prod, 1, axis=1)
+        for j in np.flatnonzero(two[:, 1] <= two[:, 0] * (1 + 1e-9)).tolist():
+            cands = [c for c in range(ncol) if mask[j, c]]
+            col[j] = min(cands, key=lambda c: speeds[c] * int(t.run[j, c]))
+    rows = np.arange(problem.n)
+    chosen = t.run[rows, col]
+    return sum((speeds[c] * int(chosen[col == c].sum()) for c in range(ncol)), start=Fraction(0))
+
+
+def _users(problem: StageProblem) -> list[I64]:
+    """The jobs using each limit."""
+    jobs = np.repeat(np.arange(problem.n, dtype=np.int64), np.diff(problem.uses_ptr))
+    order = np.argsort(problem.uses_idx, kind="stable")
+    cuts = np.searchsorted(problem.uses_idx[order], np.arange(len(problem.limit_names) + 1))
+    return [jobs[order[cuts[i] : cuts[i + 1]]] for i in range(len(problem.limit_names))]
+
+
+def limit_load(paths: Paths) -> list[Bound]:
+    """Per limit: ``min r + sum d / min(c_L, M) + min q`` over the jobs using it."""
+    p = paths.problem
+    slots = int(p.slots.sum())
+    out: list[Bound] = []
+    for lim, jobs in enumerate(_users(p)):
+        if not jobs.size:
+            continue
+        cap = min(int(p.capacities[lim]), slots)
+        work = int(paths.d[jobs].sum())
+        lo, hi = int(paths.head[jobs].min()), int(paths.tail[jobs].min())
+        out.append(
+            Bound(
+                "limit_load",
+                lo + _ceil_div(work, cap) + hi,
+                {
+                    "limit": p.limit_names[lim],
+                    "jobs": int(jobs.size),
+                    "work_ticks": work,
+                    "capacity": cap,
+                    "min_head": lo,
+                    "min_tail": hi,
+                },
+            )
+        )
+    return out
+
+
+def _heads_tails_on(paths: Paths, jobs: I64, cap: int) -> tuple[int, dict[str, Any]]:
+    """Best ``a + ceil(W(a, b) / cap) + b`` over the head thresholds tried (every
+    distinct head for small sets) and, for each, every tail threshold."""
+    r = paths.head[jobs]
+    q = paths.tail[jobs]
+    d = paths.d[jobs]
+    by_tail = np.argsort(-q, kind="stable")
+    rs, qs, ds = r[by_tail], q[by_tail], d[by_tail]
+    heads = np.unique(r)
+    if heads.size > HEADS_TAILS_ALL_UP_TO or (
+        jobs.size > HEADS_TAILS_ALL_UP_TO and heads.size > HEADS_TAILS_THRESHOLDS
+    ):
+        pick = np.linspace(0, heads.size - 1, HEADS_TAILS_THRESHOLDS).round().astype(np.int64)
+        heads = np.unique(heads[pick])
+    best, ev = -1, {}
+    for a in heads.tolist():
+        take = rs >= a
+        work = np.cumsum(np.where(take, ds, 0))
+        # the set {r >= a, q >= qs[i]} holds at least the first i + 1 of the sorted jobs
+        val = a + qs + (work + cap - 1) // cap
+        val = np.where(take, val, -1)
+        i = int(np.argmax(val))
+        if int(val[i]) > best:
+            best = int(val[i])
+            ev = {"min_head": a, "min_tail": int(qs[i]), "work_ticks": int(work[i])}
+    ev["capacity"] = cap
+    ev["head_thresholds"] = int(heads.size)
+    return best, ev
+
+
+def heads_tails(paths: Paths) -> Bound:
+    """The parallel-machines relaxation with release and delivery times (module doc)."""
+    p = paths.problem
+    slots = int(p.slots.sum())
+    best, ev = _heads_tails_on(paths, np.arange(p.n, dtype=np.int64), slots)
+    ev["jobs"] = "all"
+    for lim, jobs in enumerate(_users(p)):
+        if jobs.size:
+            val, e = _heads_tails_on(paths, jobs, min(int(p.capacities[lim]), slots))
+            if val > best:
+                best, ev = val, {**e, "limit": p.limit_names[lim]}
+    return Bound("heads_tails", best, ev)
+
+
+def _slot_capacity(t1: int, t2s: I64, free: I64, slots: I64) -> I64:
+    """``sum_k c_k (t2 - max(t1, F_k))^+`` for each ``t2``."""
+    u = np.maximum(free, t1)
+    order = np.argsort(u)
+    us, cs = u[order], slots[order]
+    cc = np.concatenate(([0], np.cumsum(cs)))
+    cu = np.concatenate(([0], np.cumsum(cs * us)))
+    i = np.searchsorted(us, t2s, side="right")
+    out: I64 = cc[i] * t2s - cu[i]
+    return out
+
+
+def refute(
+    r: I64, d: I64, q: I64, c: int, free: I64, slots: I64, limit_cap: int | None
+) -> tuple[int, int] | None:
+    """An interval ``(t1, t2)`` in which the jobs' least work exceeds what the slots (and a
+    limit of capacity ``limit_cap``) offer when the plan must end by ``c``; ``None`` if
+    none of the intervals tried refutes ``c``. Every window must already fit
+    (``r + d <= c - q``).
+
+    For fixed ``t1`` a job's least work in ``[t1, t2)`` is ``clamp(t2 - b, 0, A)`` with
+    ``b = max(t1, lct - d)`` and ``A = max(0, min(d, r + d - t1))`` (``lct = c - q``), i.e.
+    ``(t2 - b)^+ - (t2 - b - A)^+``: summed over jobs by sorting and prefix sums.
+    """
+    lct = c - q
+    t1s = np.unique(np.concatenate((r, lct - d)))
+    t2all = np.unique(np.concatenate((lct, r + d)))
+    for t1 in t1s.tolist():
+        t2s = t2all[t2all > t1]
+        if not t2s.size:
+            continue
+        a = np.maximum(0, np.minimum(d, r + d - t1))
+        b = np.maximum(t1, lct - d)
+        e = np.sort(b + a)
+        b = np.sort(b)
+        cb = np.concatenate(([0], np.cumsum(b)))
+        ce = np.concatenate(([0], np.cumsum(e)))
+        ib = np.searchsorted(b, t2s, side="right")
+        ie = np.searchsorted(e, t2s, side="right")
+        need = (ib * t2s - cb[ib]) - (ie * t2s - ce[ie])
+        have = _slot_capacity(t1, t2s, free, slots)
+        if limit_cap is not None:
+            have = np.minimum(have, limit_cap * (t2s - t1))
+        bad = np.flatnonzero(need > have)
+        if bad.size:
+            return t1, int(t2s[bad[0]])
+    return None
+
+
+def energetic(paths: Paths, floor: int, upper: int) -> Bound:
+    """The largest ``C + 1`` for a ``C`` in ``[floor, upper)`` refuted by energetic
+    reasoning (module doc), found by bisection; ``floor`` must itself be a proven
+    bound (it is the value when nothing is refuted)."""
+    p = paths.problem
+    t = p.timing
+    ev: dict[str, Any] = {}
+    if p.n > ENERGETIC_MAX_JOBS:
+        return Bound("energetic", floor, {"skipped": f"more than {ENERGETIC_MAX_JOBS} jobs"})
+    if upper * (2 * p.n + int(p.slots.sum()) + 1) >= INT64_ROOM:
+        return Bound("energetic", floor, {"skipped": "times too large for int64 sums"})
+    groups: list[tuple[str | None, I64, int | None]] = [
+        (None, np.arange(p.n, dtype=np.int64), None)
+    ]
+    groups += [
+        (p.limit_names[lim], jobs, int(p.capacities[lim]))
+        for lim, jobs in enumerate(_users(p))
+        if jobs.size
+    ]
+
+    def refuted(c: int) -> dict[str, Any] | None:
+        for name, jobs, cap in groups:
+            r, d, q = paths.head[jobs], paths.d[jobs], paths.tail[jobs]
+            if (r + d + q > c).any():
+                return {"refuted": c, "by": "a window too short", "limit": name}
+            got = refute(r, d, q, c, t.free, p.slots, cap)
+            if got is not None:
+                return {"refuted": c, "interval": list(got), "limit": name}
+        return None
+
+    best = floor
+    lo, hi = floor, upper - 1
+    if lo <= hi:  # the common case is no refutation at all: one test settles it
+        why = refuted(lo)
+        if why is None:
+            return Bound("energetic", floor, {"refuted": None})
+        best, ev, lo = lo + 1, why, lo + 1
+    while lo <= hi:
+        mid = (lo + hi) // 2
+        why = refuted(mid)
+        if why is not None:
+            best, ev = mid + 1, why
+            lo = mid + 1
+        else:
+            hi = mid - 1
+    return Bound("energetic", best, ev)
+
+
+def stage_bounds(
+    problem: StageProblem, paths: Paths, *, upper: int | None = None, energetic_on: bool = True
+) -> StageBounds:
+    """Every bound of the module docstring; ``upper`` (a plan's makespan in ticks) caps
+    the energetic search, which runs only with ``energetic_on``."""
+    found = [busy_nodes(problem), critical_path(paths), mean_load(problem)]
+    found += limit_load(paths)
+    found.append(heads_tails(paths))
+    if energetic_on:
+        floor = max(b.ticks for b in found)
+        top = upper if upper is not None else floor + int(paths.problem.timing.dmax.sum()) + 1
+        found.append(energetic(paths, floor, top))
+    return StageBounds(tuple(found), problem.instance.resolution)
