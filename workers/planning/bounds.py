@@ -242,7 +242,7 @@ def lower_bounds(inst: Instance, upper: float | None = None) -> Certificate:
     """
     m = inst.m
     p = inst.sorted_desc
-    total = array_sum(p)
+    total = inst.total_exact
     simple = simple_bounds(p, m, total)
     k = simple.pop("_k", None)
     bounds: dict[str, float] = dict(simple)

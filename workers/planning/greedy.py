@@ -33,10 +33,12 @@ def coffman_sethi_ratio(k: int, m: int) -> float:
 
 
 def longest_first_assign(
-    durations: npt.NDArray[np.float64], m: int
+    durations: npt.NDArray[np.float64], m: int, order: npt.NDArray[np.intp] | None = None
 ) -> tuple[npt.NDArray[np.int32], npt.NDArray[np.float64]]:
-    """LPT on raw durations: (node of each job, start of each job), indexed by job."""
-    order = longest_first_order(durations)
+    """LPT on raw durations: (node of each job, start of each job), indexed by job;
+    ``order``: the jobs longest first, when already known."""
+    if order is None:
+        order = longest_first_order(durations)
     node_sorted, start_sorted = assign_in_order(durations[order], m)
     node_of = np.empty_like(node_sorted)
     node_of[order] = node_sorted
@@ -53,7 +55,7 @@ def list_schedule(inst: Instance) -> Schedule:
 
 def longest_first_schedule(inst: Instance) -> Schedule:
     """LPT: jobs longest first, each onto the node that is free first."""
-    node_of, start = longest_first_assign(inst.durations, inst.m)
+    node_of, start = longest_first_assign(inst.durations, inst.m, inst.order_longest_first)
     return Schedule(inst, node_of, start)
 
 

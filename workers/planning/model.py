@@ -7,6 +7,7 @@ each. All times are seconds; a job's ``duration`` is its run time on a node of s
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import re
 from collections.abc import Iterable, Sequence
@@ -18,12 +19,15 @@ import numpy as np
 import numpy.typing as npt
 
 from .errors import InvalidInstance, Issue, Path
-from .rational import MAX_TICKS, decimal_up
+from .rational import MAX_TICKS, array_sum, decimal_up
 
 #: longest id we accept for a job or node (characters)
 MAX_ID_LENGTH = 200
 
 FloatArray = npt.NDArray[np.float64]
+
+#: the cached views of an Instance that depend on its jobs alone (Instance.with_nodes)
+JOB_CACHES = ("total", "order_longest_first", "sorted_desc", "total_exact")
 
 #: what no id, tag or group may hold: control characters (C0, DEL, C1), unpaired UTF-16
 #: surrogates (not text: a page cannot even encode them) and the bidirectional controls of
@@ -136,6 +140,20 @@ class Instance:
     def sorted_desc(self) -> FloatArray:
         """Durations sorted longest first."""
         return self.durations[self.order_longest_first]
+
+    @cached_property
+    def total_exact(self) -> Fraction:
+        """Total work in seconds, exactly (no rounding)."""
+        return array_sum(self.durations)
+
+    def with_nodes(self, nodes: Sequence[Node]) -> Instance:
+        """The same jobs on ``nodes``, keeping what was derived from the jobs alone (the
+        longest-first order, the sorted durations, the exact total): a sizing asks the
+        same batch on many node counts."""
+        out = dataclasses.replace(self, nodes=tuple(nodes))
+        for key in JOB_CACHES:
+            out.__dict__[key] = getattr(self, key)  # computed once, on self
+        return out
 
     # -- validation -------------------------------------------------------------------
     def validate(self) -> None:

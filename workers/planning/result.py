@@ -63,6 +63,13 @@ class Schedule:
     node_of: IntArray
     start: FloatArray
 
+    def __post_init__(self) -> None:
+        # arrays made by a compiled kernel carry dtype objects of their own, on which
+        # numpy's ufunc.at (:attr:`loads`) leaves its fast path: ten times slower. A view
+        # with numpy's own dtype costs nothing.
+        object.__setattr__(self, "start", np.asarray(self.start, dtype=np.float64).view(np.float64))
+        object.__setattr__(self, "node_of", np.asarray(self.node_of).view(self.node_of.dtype.type))
+
     @classmethod
     def sequenced(
         cls,

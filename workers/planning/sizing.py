@@ -624,6 +624,9 @@ def _curve(
     counts.update(range(max(1, state.upper - CURVE_BELOW), state.upper + CURVE_ABOVE + 1))
     counts.update(int(k) for k in curve_nodes)
     plain = Node("n")  # lower_bounds only counts the nodes
+    jobs_only = Instance(  # the batch as the bounds see it (no tags, no deadline)
+        job_ids=base.job_ids, durations=base.durations, nodes=(plain,), resolution=base.resolution
+    )
     rows: list[CurveRow] = []
     best, best_meets = math.inf, False
     for k in sorted(counts):
@@ -637,12 +640,7 @@ def _curve(
         if k >= state.upper:
             own, own_meets = min(own, plan_makespan), True
         best, best_meets = min(best, own), best_meets or own_meets
-        inst_k = Instance(
-            job_ids=base.job_ids,
-            durations=base.durations,
-            nodes=(plain,) * k,
-            resolution=base.resolution,
-        )
+        inst_k = jobs_only.with_nodes((plain,) * k)
         # the lifted bin-packing bound (given an upper end) costs O(n) per probe: only for
         # batches where it can still add something to the mean load
         upper = up(Fraction(best) * Fraction(speed)) if n <= CURVE_LIFT_MAX_JOBS else None
