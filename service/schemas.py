@@ -239,6 +239,7 @@ class SizingNodeSchema(StrictSchema):
     id = fields.String(validate=_text(1, MAX_ID_LENGTH))
     speed = FiniteNumber(validate=validate.Range(*SPEEDS))
     provides = _tags()
+    slots = NodeSchema._declared_fields["slots"]
 
 
 class SizingRequestSchema(StrictSchema):
@@ -248,6 +249,7 @@ class SizingRequestSchema(StrictSchema):
     jobs = JobList(required=True)
     deadline = FiniteNumber(required=True, validate=_seconds(MIN_DEADLINE))
     node = fields.Nested(SizingNodeSchema)
+    limits = _limits()
     max_nodes = WholeNumber(validate=validate.Range(min=1))
     time_budget = FiniteNumber(validate=validate.Range(min=0))
     node_hour_cost = FiniteNumber(allow_none=True, validate=validate.Range(min=0, max=1e9))

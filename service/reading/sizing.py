@@ -8,12 +8,14 @@ from typing import Any
 from workers.planning.errors import InvalidInstance, Issue, Path
 from workers.planning.sizing import DEFAULT_BILLING, DEFAULT_MAX_NODES, check_options
 from workers.planning.sizing_request import SizingArgs
+from workers.planning.stage_sizing import StageSizingArgs
+from workers.planning.stages.problem import StageProblem
 
 from .plan import read_instance
-from .stages import refuse_stages
+from .stages import is_staged, names_of
 
 
-def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs:
+def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs | StageSizingArgs:
     """Read a ``POST /v1/sizings`` body (fields: ``openapi/openapi.yaml``) without sizing.
 
     Every problem found is raised together as one :class:`InvalidInstance` whose issues
@@ -23,7 +25,6 @@ def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs:
         raise InvalidInstance(
             "the request body must be a JSON object", [Issue((), "not an object")]
         )
-    refuse_stages(body, "sizing")
     issues: list[Issue] = []
     raw_node = body.get("node", {})
     if raw_node is None:
@@ -69,6 +70,22 @@ def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs:
         ) from None
     if issues:
         raise InvalidInstance(f"{len(issues)} problem(s) in the request", issues)
+    slots = raw_node.get("slots", 1)
+    if is_staged(body) or slots != 1:
+        jobs = body.get("jobs") or []
+        template = StageProblem.build(
+            base,
+            after=[names_of(job, "after") for job in jobs],
+            uses=[names_of(job, "uses") for job in jobs],
+            limits=dict(body.get("limits") or {}),
+            slots=[int(slots)],
+        )
+        return StageSizingArgs(
+            template=template,
+            max_nodes=int(max_nodes),
+            node_hour_cost=None if node_hour_cost is None else float(node_hour_cost),
+            billing=str(billing),
+        )
     return SizingArgs(
         base=base,
         max_nodes=int(max_nodes),

@@ -47,8 +47,8 @@ def with_stages(inst: Instance, body: Mapping[str, Any]) -> Problem:
     if not is_staged(body):
         return inst
     jobs = body.get("jobs")  # None: the jobs came as columns, plain ones
-    after = [_names(job, "after") for job in jobs] if isinstance(jobs, list) else None
-    uses = [_names(job, "uses") for job in jobs] if isinstance(jobs, list) else None
+    after = [names_of(job, "after") for job in jobs] if isinstance(jobs, list) else None
+    uses = [names_of(job, "uses") for job in jobs] if isinstance(jobs, list) else None
     limits = body.get("limits") or {}
     if not isinstance(limits, Mapping):
         raise InvalidInstance("limits must be an object", [Issue(("limits",), "name -> capacity")])
@@ -84,7 +84,7 @@ def refuse_stages(body: Mapping[str, Any], what: str) -> None:
     )
 
 
-def _names(job: Any, key: str) -> Sequence[str] | None:
+def names_of(job: Any, key: str) -> Sequence[str] | None:
     if not isinstance(job, Mapping):
         return None
     x = job.get(key)

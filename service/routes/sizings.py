@@ -12,7 +12,9 @@ from __future__ import annotations
 
 from typing import Any
 
-from ..reading import read_sizing_request, read_spread
+from workers.planning.stage_sizing import StageSizingArgs
+
+from ..reading import read_sizing_request, read_spread, refuse_stages
 from ..schemas import load_sizing_request
 from ..settings import Settings
 from .jobs import Resource, Validated, make_blueprint
@@ -25,7 +27,10 @@ def validate_sizing(body: Any, settings: Settings) -> dict[str, Any]:
     args.check()
     asked = read_spread(data)
     if asked is not None:
-        asked.check(args.base, args.node.speed)
+        if isinstance(args, StageSizingArgs):
+            refuse_stages(data, "the confidence simulation")
+        else:
+            asked.check(args.base, args.node.speed)
     return data
 
 

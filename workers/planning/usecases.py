@@ -12,6 +12,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any, Generic, TypeVar
 
+from .budget import Budget
 from .confidence.request import SpreadRequest
 from .errors import InvalidInstance, Issue
 from .model import Instance
@@ -19,11 +20,14 @@ from .progress import ProgressHook
 from .result import PlanResult
 from .sizing import SizingProgressHook, SizingResult
 from .sizing_request import SizingArgs
+from .stage_sizing import StageSizingArgs, StageSizingResult, size_stages
 from .stages.problem import StageProblem
 from .stages.result import StageResult
 
 #: what an answer wraps: a plan (of a batch or of a stage graph) or a sizing
-R = TypeVar("R", PlanResult, PlanResult | StageResult, SizingResult)
+R = TypeVar(
+    "R", PlanResult, PlanResult | StageResult, SizingResult, SizingResult | StageSizingResult
+)
 
 
 @dataclass(frozen=True, eq=False)
@@ -50,7 +54,7 @@ class PlanAnswer(Answer[PlanResult | StageResult]):
         return self.result.to_json(self.extra)
 
 
-class SizingAnswer(Answer[SizingResult]):
+class SizingAnswer(Answer[SizingResult | StageSizingResult]):
     """A sizing and, with estimate spread, its ``confidence`` (and ``confidence_sizing``)."""
 
 
@@ -88,7 +92,7 @@ def plan(
 
 
 def size(
-    args: SizingArgs,
+    args: SizingArgs | StageSizingArgs,
     *,
     time_budget: float,
     spread: SpreadRequest | None = None,
@@ -101,6 +105,13 @@ def size(
     from .confidence import sizing_confidence
     from .sizing_request import size_request
 
+    if isinstance(args, StageSizingArgs):
+        if spread is not None:
+            raise InvalidInstance(
+                "the confidence simulation does not handle stage graphs yet",
+                [Issue(("spread",), "not supported with after, uses, limits or slots yet")],
+            )
+        return SizingAnswer(size_stages(args, Budget(time_budget, should_stop)))
     if spread is not None:  # a q out of reach fails before the search
         spread.check(args.base, args.node.speed)
     res = size_request(args, time_budget=time_budget, progress=progress, should_stop=should_stop)
