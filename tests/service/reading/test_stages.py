@@ -12,6 +12,7 @@ import pytest
 from service.csvio import read_jobs_csv, read_nodes_csv
 from service.reading import read_plan_body, read_problem, read_sizing_request
 from workers.planning import Instance, InvalidInstance
+from workers.planning.stage_sizing import StageSizingArgs
 from workers.planning.stages.problem import StageProblem
 
 
@@ -63,13 +64,13 @@ def test_unknown_id_self_wait_and_unknown_limit_are_refused_by_path() -> None:
     assert paths(exc) == [("jobs", 0, "after", 0), ("jobs", 1, "after", 0), ("jobs", 2, "uses", 0)]
 
 
-def test_sizing_and_simulation_refuse_graphs_rather_than_drop_them() -> None:
-    """A sizing body or a plan with spread that uses a wait is refused (422), never sized or
-    simulated as independent jobs."""
+def test_sizing_keeps_the_graph_and_simulation_refuses_it() -> None:
+    """A sizing body that uses a wait is sized as a graph (never as independent jobs); a
+    plan with spread inputs and a wait is refused (422): the simulation does not follow
+    waits yet."""
     jobs = [{"id": "a", "duration": 5}, {"id": "b", "duration": 5, "after": ["a"]}]
-    with pytest.raises(InvalidInstance) as exc:
-        read_sizing_request({"jobs": jobs, "deadline": 100})
-    assert paths(exc) == [("jobs", 1, "after")]
+    args = read_sizing_request({"jobs": jobs, "deadline": 100})
+    assert isinstance(args, StageSizingArgs) and args.template.arcs == 1
     with pytest.raises(InvalidInstance) as exc:
         read_plan_body(body(jobs, spread=0.2))
     assert paths(exc) == [("jobs", 1, "after")]
