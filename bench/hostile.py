@@ -7,6 +7,10 @@ status code, the time of the request and how much its peak resident memory grew
 
     python bench/hostile.py            # every class
     python bench/hostile.py --only empty_objects
+
+The store is fakeredis, in the same process: the bodies it keeps (a plan's raw body and
+the worker's copy) count here, where a real redis-server holds them in its own process
+(tests/trust/test_request_memory.py measures a real gunicorn worker).
 """
 
 from __future__ import annotations
@@ -36,15 +40,22 @@ def body(kind: str) -> bytes:
         return json.dumps({"jobs": [], "name": "x" * (30 * MIB)}).encode()
     if kind == "lone_surrogate":
         return b'{"jobs":[{"id":"\\ud800x","duration":1}],"node_count":1}'
-    if kind == "max_batch":  # the largest legitimate batch: 200,000 jobs
-        jobs = [
-            {"id": f"lh_sq{i // 1000:03d}_{i % 1000:04d}", "duration": 60} for i in range(200_000)
-        ]
+    if kind in ("max_batch", "over_max_jobs"):  # the largest legitimate batch: 200,000 jobs
+        n = 200_000 if kind == "max_batch" else 260_000  # or plain jobs past max_jobs
+        jobs = [{"id": f"lh_sq{i // 1000:03d}_{i % 1000:04d}", "duration": 60} for i in range(n)]
         return json.dumps({"jobs": jobs, "node_count": 400}).encode()
     raise ValueError(kind)
 
 
-KINDS = ("empty_objects", "zeros", "deep_nesting", "long_string", "lone_surrogate", "max_batch")
+KINDS = (
+    "empty_objects",
+    "zeros",
+    "deep_nesting",
+    "long_string",
+    "lone_surrogate",
+    "over_max_jobs",
+    "max_batch",
+)
 
 # the body is read from a file (making it here would raise the peak before the request);
 # growth = peak resident memory (VmHWM: ru_maxrss would carry the parent's peak across

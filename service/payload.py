@@ -42,34 +42,55 @@ class Columns:
     groups: list[str | None] | None = None
 
 
+#: ids (or groups) written to JSON at a time: the stored copy is built in one buffer
+#: without a whole-column string beside it (memory per request, issue 16)
+_CHUNK = 4096
+
+
+def _json_list(out: bytearray, values: Sequence[Any]) -> None:
+    """``json.dumps(list(values))``, compact, appended to ``out`` a chunk at a time."""
+    out += b"["
+    for i in range(0, len(values), _CHUNK):
+        if i:
+            out += b","
+        out += json.dumps(list(values[i : i + _CHUNK]), separators=(",", ":"))[1:-1].encode()
+    out += b"]"
+
+
 def encode(
     envelope: Mapping[str, Any],
     ids: Sequence[str],
     durations: npt.ArrayLike,
     groups: Sequence[str | None] | None = None,
-) -> bytes:
-    """The stored form of a plan body (``envelope`` must not hold ``jobs``)."""
+) -> bytearray:
+    """The stored form of a plan body (``envelope`` must not hold ``jobs``), built in one
+    buffer (Redis takes it as it is)."""
     d = np.ascontiguousarray(durations, dtype=_FLOAT64)
     if d.shape != (len(ids),) or (groups is not None and len(groups) != len(ids)):
         raise ValueError("job columns differ in length")
     if "jobs" in envelope:
         raise ValueError("the envelope must not hold the jobs")
-    parts = (
-        MAGIC,
-        json.dumps(dict(envelope), allow_nan=False, separators=(",", ":")).encode(),
-        json.dumps(list(ids), separators=(",", ":")).encode(),
-        json.dumps(None if groups is None else list(groups), separators=(",", ":")).encode(),
-        d.tobytes(),
-    )
-    return b"\n".join(parts)
+    out = bytearray(MAGIC)
+    out += b"\n"
+    out += json.dumps(dict(envelope), allow_nan=False, separators=(",", ":")).encode()
+    out += b"\n"
+    _json_list(out, ids)
+    out += b"\n"
+    if groups is None:
+        out += b"null"
+    else:
+        _json_list(out, groups)
+    out += b"\n"
+    out += memoryview(d).cast("B")
+    return out
 
 
-def is_columns(raw: bytes) -> bool:
+def is_columns(raw: bytes | bytearray) -> bool:
     """Whether ``raw`` is this layout (a raw JSON body starts with ``{`` or blank)."""
     return raw.startswith(MAGIC + b"\n")
 
 
-def decode(raw: bytes) -> Columns:
+def decode(raw: bytes | bytearray) -> Columns:
     """Read what :func:`encode` wrote; ``ValueError`` if it is not that."""
     parts = raw.split(b"\n", 4)
     if len(parts) != 5 or parts[0] != MAGIC:

@@ -264,7 +264,7 @@ class Store:
         *,
         rid: str | None = None,
         now: float | None = None,
-        work: bytes | None = None,
+        work: bytes | bytearray | None = None,
         enqueue: Callable[[Pipeline], object] | None = None,
     ) -> str:
         """Store a new queued record; returns its id.
@@ -296,7 +296,7 @@ class Store:
         key: str,
         fingerprint: str,
         rid: str,
-        work: bytes | None = None,
+        work: bytes | bytearray | None = None,
         enqueue: Callable[[Pipeline], object] | None = None,
     ) -> dict[str, str] | None:
         """:meth:`create` under an ``Idempotency-Key``: the key is claimed in the same
@@ -355,7 +355,7 @@ class Store:
         rid: str,
         fields: dict[str, Any],
         request_body: bytes,
-        work: bytes | None,
+        work: bytes | bytearray | None,
         t: float,
         keep: int,
     ) -> None:

@@ -4,11 +4,18 @@ from __future__ import annotations
 
 from typing import Any
 
+from marshmallow import ValidationError
+
 from workers.planning.farm_bounds import eligibility
 
-from .. import payload
+from .. import jobscan, payload
 from ..reading import read_columns, read_instance
-from ..schemas import load_plan_columns, load_plan_request
+from ..schemas import (
+    PLAN_ENVELOPE_SCHEMA,
+    check_plan_limits,
+    load_plan_columns,
+    load_plan_request,
+)
 from ..settings import Settings
 from .jobs import Resource, Validated, make_blueprint
 
@@ -20,8 +27,12 @@ def read_plan(body: Any, settings: Settings) -> Validated:
     columns (``load_plan_columns`` then ``reading.read_columns``), and the worker gets
     those columns (``service/payload.py``); any other body, and every body with a
     problem, takes the per-job path (``load_plan_request`` then
-    ``reading.read_instance``), whose verdicts and messages both paths share.
+    ``reading.read_instance``), whose verdicts and messages both paths share. A body the
+    route read in columns from its bytes (``payload.Columns``, ``service/jobscan.py``)
+    takes :func:`_read_scanned`, with the same verdicts and messages.
     """
+    if isinstance(body, payload.Columns):
+        return _read_scanned(body, settings)
     fast = load_plan_columns(body, settings)
     if fast is None:
         data = load_plan_request(body, settings)
@@ -35,10 +46,29 @@ def read_plan(body: Any, settings: Settings) -> Validated:
     return Validated(data, payload.encode(envelope, cols.ids, cols.durations, cols.groups))
 
 
+def _read_scanned(cols: payload.Columns, settings: Settings) -> Validated:
+    """:func:`read_plan` of a body whose jobs, all plain, were read in columns: the same
+    limits, shape and semantic checks and messages, and no Python object per job. The
+    loaded body (``Validated.data``) holds every field but ``jobs``."""
+    envelope = cols.envelope
+    check_plan_limits(jobscan.counted(cols), settings)
+    try:
+        data: dict[str, Any] = PLAN_ENVELOPE_SCHEMA.load(envelope)
+    except ValidationError:
+        # the per-job path's verdict: with every job plain, the problems are all in these
+        # fields, and one job stands for the rest (the limits passed with all of them)
+        job = {"id": cols.ids[0], "duration": float(cols.durations[0])}
+        load_plan_request({**envelope, "jobs": [job]}, settings)
+        raise  # not reached: the same schema refuses the same fields
+    data.setdefault("time_budget", settings.default_time_budget)
+    read_columns(envelope, cols.ids, cols.durations, cols.groups)  # no tags in columns
+    return Validated(data, payload.encode(envelope, cols.ids, cols.durations, cols.groups))
+
+
 def validate_plan(body: Any, settings: Settings) -> dict[str, Any]:
     """:func:`read_plan`, the loaded body only."""
     return read_plan(body, settings).data
 
 
-RESOURCE = Resource(kind="plan", path="/v1/plans", validate=read_plan)
+RESOURCE = Resource(kind="plan", path="/v1/plans", validate=read_plan, columns=True)
 blueprint = make_blueprint(RESOURCE)

@@ -248,8 +248,19 @@ def identical_nodes(count: int) -> tuple[Node, ...]:
     return tuple(Node(f"node-{k + 1:0{width}d}") for k in range(count))
 
 
+#: from this many ids on, :func:`duplicates` first compares hashes in an int64 array
+#: (8 bytes an id) instead of building a set (about 40 bytes an id)
+HASHED_FROM = 20_000
+
+
 def duplicates(ids: Sequence[str], where: Path, what: str) -> list[Issue]:
-    if len(set(ids)) == len(ids):
+    """An issue per repeated id (at most 20), each naming where the id came first."""
+    if len(ids) >= HASHED_FROM:
+        h = np.fromiter(map(hash, ids), dtype=np.int64, count=len(ids))
+        h.sort()
+        if not (h[1:] == h[:-1]).any():
+            return []  # no two hashes equal: no two ids equal
+    elif len(set(ids)) == len(ids):
         return []  # the common case, at C speed
     seen: dict[str, int] = {}
     out: list[Issue] = []
