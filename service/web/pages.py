@@ -10,6 +10,7 @@ import math
 import re
 from typing import Any
 
+from .stage_svg import StageRequest, limit_chart
 from .svg import fmt_duration, fmt_tick, line_chart, timeline
 
 #: seconds between self-refreshes of a page whose plan is still being worked on
@@ -26,7 +27,21 @@ BOUND_WORDS = {
     "busy_nodes": "the nodes still busy with earlier work",
     "k_longest": "the longest jobs having to fit on the fastest nodes",
     "eligibility_group": "the jobs that only some of the nodes can run",
+    "critical_path": "the longest chain of jobs that wait for one another",
+    "limit_load": "the work of the jobs sharing a limit, spread over its capacity",
+    "heads_tails": (
+        "the work of a set of jobs, spread over the slots between the earliest they can "
+        "start and the least time that must follow them"
+    ),
+    "lanes": (
+        "the work of a set of jobs counted lane by lane, each lane from its first job's "
+        "earliest start to its last job's least following time"
+    ),
+    "energetic": "the work that must fall inside a window of time (energetic reasoning)",
 }
+
+#: at most this many ids of the critical path are named in the page's facts
+MAX_PATH_NAMED = 12
 
 #: what proved a sizing's node lower bound, to read after "proven by"
 SIZING_BOUND_WORDS = {
@@ -56,7 +71,9 @@ def fmt_difference(seconds: float) -> str:
 def bound_words(result: dict[str, Any]) -> str:
     """What proved the plan's lower bound, in words, with the batch's own numbers."""
     source = str(result.get("bound_source") or "")
-    evidence = (result.get("certificate") or {}).get(source) or {}
+    cert = result.get("certificate") or {}
+    # a stage plan's certificate is the best bound's evidence itself, not keyed by name
+    evidence = cert.get(source) or (cert if "stages" in result else {})
     m = result.get("nodes")
     if source == "pigeonhole" and isinstance(m, int) and "k" not in evidence:
         return f"two of the {m + 1} longest jobs having to share one of the {m} nodes"
@@ -64,6 +81,17 @@ def bound_words(result: dict[str, Any]) -> str:
         k, considered = int(evidence["k"]), evidence.get("jobs_considered")
         if considered:
             return f"{k + 1} of the {considered} longest jobs having to share a node"
+    if source == "critical_path" and len(evidence.get("jobs") or ()) > 1:
+        path = evidence["jobs"]
+        return (
+            f"the chain of {len(path)} jobs from {path[0]} to {path[-1]}, each waiting for "
+            "the one before"
+        )
+    if source == "limit_load" and {"jobs", "limit", "capacity"} <= evidence.keys():
+        return (
+            f"the work of the {evidence['jobs']} jobs using {evidence['limit']}, at most "
+            f"{evidence['capacity']} at once"
+        )
     if source == "search" and evidence.get("refuted_by"):
         return (
             "the linear-programming bound of bin packing, checked in whole numbers, which "
@@ -163,8 +191,15 @@ def _record_context(kind: str, record: dict[str, Any]) -> tuple[dict[str, Any], 
     return ctx, working
 
 
-def plan_context(plan: dict[str, Any], groups: dict[str, str]) -> dict[str, Any]:
-    """Template values for one plan's page (``plan`` is the API's status body)."""
+def plan_context(
+    plan: dict[str, Any], groups: dict[str, str], graph: StageRequest | None = None
+) -> dict[str, Any]:
+    """Template values for one plan's page (``plan`` is the API's status body).
+
+    A stage-graph plan (a result with ``stages``) also gets, from its stored request
+    (``graph``: what each job waits for and uses), the waits in the timeline's hover text
+    and the limit-usage chart under it, and its graph in the facts (issue 17 point 6).
+    """
     result = plan.get("result")
     ctx, working = _record_context("plan", plan)
     progress = plan.get("progress") or {}
@@ -202,7 +237,8 @@ def plan_context(plan: dict[str, Any], groups: dict[str, str]) -> dict[str, Any]
             ctx["progress_sentence"] = progress_sentence(latest or progress)
     if result:
         ctx["sentence"] = certificate_sentence(result)
-        ctx["timeline"] = timeline(result, groups)
+        stages = result.get("stages")
+        ctx["timeline"] = timeline(result, groups, waits=graph.after if graph else None)
         facts = [
             ("method", result.get("method", "")),
             ("stopped because", result.get("stop_reason", "")),
@@ -226,8 +262,32 @@ def plan_context(plan: dict[str, Any], groups: dict[str, str]) -> dict[str, Any]
                     ),
                 )
             )
+        if stages is not None:
+            ctx["stages"] = True
+            facts += stage_facts(result)
+            if graph is not None:
+                ctx["limit_chart"] = limit_chart(result, graph.uses)
         ctx["facts"] = facts
     return ctx
+
+
+def stage_facts(result: dict[str, Any]) -> list[tuple[str, str]]:
+    """A stage plan's graph in words: its waits, slots, limits and critical path."""
+    stages = result["stages"]
+    out = [
+        ("waits", f"{stages.get('arcs', 0)} (a job starts once those it waits for have ended)"),
+        ("slots", f"{stages.get('slots', '-')} on {result.get('nodes', '-')} nodes"),
+    ]
+    limits = stages.get("limits") or {}
+    if limits:
+        out.append(("limits", ", ".join(f"{k}: at most {v} at once" for k, v in limits.items())))
+    path = stages.get("critical_path") or []
+    if path:
+        named = " → ".join(path[:MAX_PATH_NAMED])
+        if len(path) > MAX_PATH_NAMED:
+            named += f" → … ({len(path)} jobs)"
+        out.append(("critical path", named))
+    return out
 
 
 def sizing_context(sizing: dict[str, Any]) -> dict[str, Any]:

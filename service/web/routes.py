@@ -11,6 +11,7 @@ from ..problems import NotFound
 from ..routes.jobs import ID_RE, status_document
 from ..services import may_read, services, tenant
 from . import pages
+from .stage_svg import StageRequest
 
 blueprint = Blueprint("pages", __name__, template_folder="templates")
 
@@ -66,14 +67,17 @@ def plan_list() -> Response:
 def plan_page(rid: str) -> Response:
     doc, raw = _record("plan", rid)
     groups: dict[str, str] = {}
+    graph = None
     result = doc.get("result")
     if raw is not None and (result is None or result.get("jobs", 0) <= MAX_TIMELINE_JOBS):
         body = json.loads(raw)
         groups = {j["id"]: j["group"] for j in body.get("jobs", []) if j.get("group")}
+        if result is not None and "stages" in result:
+            graph = StageRequest.from_body(body)
     if result is not None and result.get("jobs", 0) > MAX_TIMELINE_JOBS:
         result = dict(result, assignment=[])
         doc = dict(doc, result=result)
-    ctx = pages.plan_context(doc, groups)
+    ctx = pages.plan_context(doc, groups, graph)
     return _html(render_template("plan.html", banner=_banner(), **ctx))
 
 

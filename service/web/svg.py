@@ -14,7 +14,7 @@ positions without repeating the layout.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from html import escape
 from itertools import pairwise
 from typing import Any, Literal
@@ -130,11 +130,52 @@ def _group_pattern(pid: str, colour: str, texture: str) -> str:
     )
 
 
+#: the critical path's mark over a bar's own fill: an outline in this colour (3:1 against
+#: white and the palette's light ends, WCAG 2.1 1.4.11) and a texture of dark stripes
+CRITICAL = "#a3195b"
+CRITICAL_PATTERN = (
+    '<pattern id="sw-critical" width="6" height="6" patternUnits="userSpaceOnUse" '
+    'patternTransform="rotate(45)"><rect width="2.4" height="6" fill="#1d2430" '
+    'fill-opacity=".6" /></pattern>'
+)
+#: the backgrounds of a node's slot lanes, alternating so that neighbouring lanes differ
+LANE_FILLS = ("#f8f9fb", "#eef0f4")
+#: at most this many ids of what a job waits for are named in its bar's <title>
+MAX_WAITS_NAMED = 20
+
+
+def timeline_span(result: dict[str, Any]) -> float:
+    """The time axis of a plan's charts: 0 to a little past the makespan or deadline."""
+    makespan = float(result.get("makespan") or 0.0)
+    dl = (result.get("deadline") or {}).get("deadline")
+    return max(makespan, float(dl or 0.0), 1e-9) * 1.04
+
+
+def lane_height(slots: int, row_height: int) -> float:
+    """The height of one slot's lane: a one-slot node keeps the whole row, a node with
+    more slots shares thin lanes (at most 15 px each, at least 3 px)."""
+    return float(row_height) if slots <= 1 else min(15.0, max(3.0, 96.0 / slots))
+
+
+def _px(v: float) -> str:
+    """A coordinate: whole numbers as they are (a plain plan's rows), others to 0.01 px."""
+    return str(v) if isinstance(v, int) else f"{v:.2f}"
+
+
+def _waits_text(ids: Sequence[str]) -> str:
+    if not ids:
+        return "; waits for no other job"
+    named = ", ".join(ids[:MAX_WAITS_NAMED])
+    more = len(ids) - MAX_WAITS_NAMED
+    return f"; waits for {named}" + (f" and {more} more" if more > 0 else "")
+
+
 def timeline(
     result: dict[str, Any],
     groups: dict[str, str] | None = None,
     width: int = 960,
     row_height: int = 20,
+    waits: Mapping[str, Sequence[str]] | None = None,
 ) -> str:
     """The plan as a timeline: one row per node, one bar per job (its id on hover).
 
@@ -142,27 +183,41 @@ def timeline(
     in the legend; a bar wide enough carries its job id, else its group name, as text. A
     solid line marks the deadline, a dashed line the proven lower bound, each labelled on
     its own line under the chart.
+
+    A stage-graph plan (a result with ``stages``; issue 17 point 6) draws each node's
+    slots as lanes under its one label (``rect.lane``, a job in the lane of its ``slot``),
+    marks the jobs of ``stages.critical_path`` with an outline and a stripe texture over
+    their group's fill, named in the legend, so the mark is not colour alone (WCAG 2.1
+    1.4.1 "Use of Color"), and, given ``waits`` (job id -> the ids of the request's
+    ``after``), names in each bar's ``<title>`` what the job waits for.
     """
     groups = groups or {}
+    stages = result.get("stages")
+    critical = set((stages or {}).get("critical_path") or ())
     assignment: Sequence[dict[str, Any]] = result.get("assignment") or []
     shown = assignment[:MAX_ROWS]
     makespan = float(result.get("makespan") or 0.0)
     lower = result.get("lower_bound")
     dl = (result.get("deadline") or {}).get("deadline")
-    span = max(makespan, float(dl or 0.0), 1e-9) * 1.04
+    span = timeline_span(result)
     left, top, right = 150, 34, 40
     plot_w = width - left - right
     names = sorted({groups.get(j["id"], UNGROUPED) for a in shown for j in a["jobs"]})
     colours = group_colours(names)
     index = {g: i for i, g in enumerate(names)}
-    bottom = top + row_height * len(shown)
+    slots = [int(a.get("slots") or 1) if stages is not None else 1 for a in shown]
+    lanes = [lane_height(k, row_height) for k in slots]
+    heights: list[float] = [row_height] * len(shown)
+    if stages is not None:
+        heights = [k * h for k, h in zip(slots, lanes, strict=True)]
+    bottom = top + sum(heights)
     marks = [
         (name, float(at))
         for name, at in (("lower bound", lower), ("deadline", dl))
         if at is not None
     ]
     legend_top = bottom + 16 * len(marks) + 34
-    legend_rows = math.ceil(len(colours) / 4)
+    legend_rows = math.ceil(len(colours) / 4) + (1 if critical else 0)
     height = legend_top + 22 * legend_rows + 6
 
     def x(t: float) -> float:
@@ -170,7 +225,7 @@ def timeline(
 
     parts = [
         f'<svg xmlns="http://www.w3.org/2000/svg" class="timeline" role="img" '
-        f'width="{width}" height="{height}" viewBox="0 0 {width} {height}" '
+        f'width="{width}" height="{_px(height)}" viewBox="0 0 {width} {_px(height)}" '
         f'data-span="{span:.6g}" data-left="{left}" data-plot-width="{plot_w}">',
         f"<title>Plan timeline: {len(assignment)} nodes, makespan {fmt_duration(makespan)}</title>",
         "<defs>",
@@ -180,6 +235,7 @@ def timeline(
             )
             for g, i in index.items()
         ),
+        CRITICAL_PATTERN if critical else "",
         "</defs>",
         f'<text class="tick-label" x="{left - 8}" y="{top - 8}" text-anchor="end">'
         "time from start</text>",
@@ -187,35 +243,73 @@ def timeline(
     for t in nice_ticks(span):
         parts.append(
             f'<line class="tick" x1="{x(t):.1f}" x2="{x(t):.1f}" y1="{top - 4}" '
-            f'y2="{bottom}" />'
+            f'y2="{_px(bottom)}" />'
             f'<text class="tick-label" x="{x(t):.1f}" y="{top - 8}" text-anchor="middle">'
             f"{fmt_tick(t)}</text>"
         )
-    for r, node in enumerate(shown):
-        y = top + r * row_height
-        parts.append(
-            f'<g class="node-row" data-node="{escape(node["node"])}">'
-            f'<text class="node-label" x="{left - 8}" y="{y + row_height * 0.7:.1f}">'
-            f"{escape(node['node'])}</text>"
-        )
+    y: float = top  # an int while every row is (a plain plan), so its text stays as before
+    for node, k, lane, h in zip(shown, slots, lanes, heights, strict=True):
+        if stages is None:
+            parts.append(
+                f'<g class="node-row" data-node="{escape(node["node"])}">'
+                f'<text class="node-label" x="{left - 8}" y="{y + row_height * 0.7:.1f}">'
+                f"{escape(node['node'])}</text>"
+            )
+        else:
+            parts.append(
+                f'<g class="node-row" data-node="{escape(node["node"])}" data-slots="{k}">'
+                f'<line class="node-sep" x1="{left}" x2="{left + plot_w}" y1="{y:.2f}" '
+                f'y2="{y:.2f}" />'
+                f'<text class="node-label" x="{left - 8}" y="{y + h / 2 + 4:.1f}">'
+                f"{escape(node['node'])}</text>"
+            )
+            parts.extend(
+                f'<rect class="lane" data-slot="{s}" x="{left}" y="{y + s * lane:.2f}" '
+                f'width="{plot_w}" height="{lane:.2f}" fill="{LANE_FILLS[s % 2]}" />'
+                for s in range(k)
+            )
         for j in node["jobs"]:
             g = groups.get(j["id"], UNGROUPED)
             x0, x1 = x(j["start"]), x(j["end"])
             w = max(x1 - x0, 0.5)
             label = escape(j["id"])
+            title = f"{label} ({escape(g)}): {fmt_duration(j['start'])} to {fmt_duration(j['end'])}"
+            bar_y: float = y + 2
+            bar_h: float = row_height - 4
+            extra = ""
+            if stages is not None:
+                slot = int(j.get("slot") or 0)
+                inset = min(2.0, lane * 0.1)
+                bar_y, bar_h = y + slot * lane + inset, lane - 2 * inset
+                extra = f' data-slot="{slot}"'
+                if k > 1:
+                    title += f", slot {slot + 1} of {k}"
+                if waits is not None:
+                    title += escape(_waits_text(waits.get(j["id"], ())))
+                if j["id"] in critical:
+                    title += "; on the critical path"
+                    extra += ' data-critical="true"'
             parts.append(
-                f'<rect class="job" data-job="{label}" data-group="{escape(g)}" '
-                f'x="{x0:.2f}" y="{y + 2}" width="{w:.2f}" height="{row_height - 4}" '
-                f'fill="url(#sw-group-{index[g]})"><title>{label} ({escape(g)}): '
-                f"{fmt_duration(j['start'])} to {fmt_duration(j['end'])}</title></rect>"
+                f'<rect class="job" data-job="{label}" data-group="{escape(g)}"{extra} '
+                f'x="{x0:.2f}" y="{_px(bar_y)}" width="{w:.2f}" height="{_px(bar_h)}" '
+                f'fill="url(#sw-group-{index[g]})"><title>{title}</title></rect>'
             )
-            text = next((t for t in (j["id"], g) if w > CHAR_W * len(t) + 6), None)
-            if text is not None and text != UNGROUPED:
+            if j["id"] in critical:
                 parts.append(
-                    f'<text class="job-label" x="{x0 + 3:.1f}" y="{y + row_height * 0.7:.1f}" '
+                    f'<rect class="critical" data-job="{label}" x="{x0:.2f}" '
+                    f'y="{_px(bar_y)}" width="{w:.2f}" height="{_px(bar_h)}" '
+                    f'fill="url(#sw-critical)" stroke="{CRITICAL}" stroke-width="2" '
+                    'pointer-events="none" />'
+                )
+            text = next((t for t in (j["id"], g) if w > CHAR_W * len(t) + 6), None)
+            if text is not None and text != UNGROUPED and (stages is None or bar_h >= 10):
+                parts.append(
+                    f'<text class="job-label" x="{x0 + 3:.1f}" '
+                    f'y="{bar_y - 2 + (bar_h + 4) * 0.7:.1f}" '
                     f'style="fill:{label_ink(colours[g])};stroke:{colours[g]}">{escape(text)}</text>'
                 )
         parts.append("</g>")
+        y += h
     for k, (name, at) in enumerate(marks):
         cls = "lower-bound" if name == "lower bound" else "deadline"
         label_y = bottom + 16 + 16 * k
@@ -225,22 +319,34 @@ def timeline(
         anchor = "end" if right_half else "start"
         parts.append(
             f'<line class="{cls}" data-at="{at:.6g}" x1="{x(at):.2f}" '
-            f'x2="{x(at):.2f}" y1="{top - 4}" y2="{label_y + 4}" />'
-            f'<text class="mark-label" x="{lx:.1f}" y="{label_y}" '
+            f'x2="{x(at):.2f}" y1="{top - 4}" y2="{_px(label_y + 4)}" />'
+            f'<text class="mark-label" x="{lx:.1f}" y="{_px(label_y)}" '
             f'text-anchor="{anchor}">{name} {fmt_duration(at)}</text>'
         )
     if colours:
         parts.append(
-            f'<text class="legend-title" x="{left - 8}" y="{legend_top}" text-anchor="end">'
+            f'<text class="legend-title" x="{left - 8}" y="{_px(legend_top)}" text-anchor="end">'
             "job group</text>"
         )
     for i, g in enumerate(colours):
         lx = left + (i % 4) * (plot_w / 4)
         ly = legend_top + 22 * (i // 4)
         parts.append(
-            f'<g class="legend-item" data-group="{escape(g)}"><rect x="{lx:.1f}" y="{ly - 12}" '
-            f'width="22" height="15" fill="url(#sw-group-{i})" />'
-            f'<text x="{lx + 28:.1f}" y="{ly}">{escape(g)}</text></g>'
+            f'<g class="legend-item" data-group="{escape(g)}"><rect x="{lx:.1f}" '
+            f'y="{_px(ly - 12)}" width="22" height="15" fill="url(#sw-group-{i})" />'
+            f'<text x="{lx + 28:.1f}" y="{_px(ly)}">{escape(g)}</text></g>'
+        )
+    if critical:
+        ly = legend_top + 22 * math.ceil(len(colours) / 4)
+        parts.append(
+            f'<g class="legend-mark" data-mark="critical path">'
+            f'<text class="legend-title" x="{left - 8}" y="{_px(ly)}" text-anchor="end">'
+            "mark</text>"
+            f'<rect x="{left:.1f}" y="{_px(ly - 12)}" width="22" height="15" '
+            f'fill="{PALETTE[-1]}" /><rect x="{left:.1f}" y="{_px(ly - 12)}" width="22" '
+            f'height="15" fill="url(#sw-critical)" stroke="{CRITICAL}" stroke-width="2" />'
+            f'<text x="{left + 28:.1f}" y="{_px(ly)}">critical path: the longest chain of jobs '
+            "waiting for one another</text></g>"
         )
     parts.append("</svg>")
     return "".join(parts)

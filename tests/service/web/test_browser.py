@@ -35,7 +35,9 @@ ROOT = Path(__file__).resolve().parents[3]
 ARTIFACTS = ROOT / "tests" / "artifacts"
 #: the README's screenshots, rewritten from these tests with SPANWRIGHT_UPDATE_SCREENSHOTS=1
 SCREENSHOTS = ROOT / "service" / "web" / "screenshots"
-README_SHOTS = frozenset({"plan-page.png", "solving-page.png", "list-page.png", "sizing-page.png"})
+README_SHOTS = frozenset(
+    {"plan-page.png", "solving-page.png", "list-page.png", "sizing-page.png", "stage-page.png"}
+)
 CHROMIUM, DRIVER = shutil.which("chromium"), shutil.which("chromedriver")
 WIDTH = 1180
 #: the solving-page test needs a search that is still running seconds after it starts
@@ -384,3 +386,43 @@ def test_sizing_page_curve_answer_and_cost(browser: Any, url: str) -> None:
         f"{c['cost']:,.2f}" for c in curve
     ]
     shot(browser, "sizing-page.png")
+
+
+#: a stage plan's lanes, critical marks and limit panels as the browser laid them out
+READ_STAGES = """
+const box = el => el.getBoundingClientRect();
+const rows = Array.from(document.querySelectorAll('svg.timeline g.node-row')).map(g => ({
+  node: g.getAttribute('data-node'), lanes: g.querySelectorAll('rect.lane').length}));
+const critical = Array.from(document.querySelectorAll('svg.timeline rect.critical')).map(
+  r => r.getAttribute('data-job'));
+const panels = Array.from(document.querySelectorAll('svg.limits g.limit')).map(g => ({
+  limit: g.getAttribute('data-limit'), capacity: +g.getAttribute('data-capacity'),
+  capTop: box(g.querySelector('line.capacity')).top,
+  steps: Array.from(g.querySelectorAll('rect.usage')).map(r => ({
+    count: +r.getAttribute('data-count'), top: box(r).top}))}));
+return {rows, critical, panels};
+"""
+
+
+def test_stage_page_lanes_critical_path_and_limits(browser: Any, url: str) -> None:
+    """Issue 17 point 6 in a real browser, on the demo's stage-graph batch: one lane per
+    slot the request gave each node, a critical-path mark on each job of the result's
+    critical path, and per limit a panel whose every drawn step sits no higher on screen
+    than its capacity line, with counts never above the request's capacity."""
+    (path,) = [p for p in demo_files() if "limits" in json.loads(p.read_text())]
+    body = json.loads(path.read_text())
+    doc = post(url, body, wait=10)
+    assert doc["status"] == "done"
+    browser.get(f"{url}/plans/{doc['id']}")
+    seen = browser.execute_script(READ_STAGES)
+    assert {r["node"]: r["lanes"] for r in seen["rows"]} == {
+        n["id"]: n.get("slots", 1) for n in body["nodes"]
+    }
+    assert sorted(seen["critical"]) == sorted(doc["result"]["stages"]["critical_path"])
+    assert {p["limit"]: p["capacity"] for p in seen["panels"]} == body["limits"]
+    for panel in seen["panels"]:
+        assert panel["steps"]
+        for step in panel["steps"]:
+            assert step["count"] <= panel["capacity"]
+            assert step["top"] >= panel["capTop"] - 1.0
+    shot(browser, "stage-page.png")
