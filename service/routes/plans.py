@@ -7,9 +7,10 @@ from typing import Any
 from marshmallow import ValidationError
 
 from workers.planning.farm_bounds import eligibility
+from workers.planning.model import Instance
 
 from .. import jobscan, payload
-from ..reading import read_columns, read_instance
+from ..reading import read_columns, read_plan_body, with_stages
 from ..schemas import (
     PLAN_ENVELOPE_SCHEMA,
     check_plan_limits,
@@ -27,7 +28,7 @@ def read_plan(body: Any, settings: Settings) -> Validated:
     columns (``load_plan_columns`` then ``reading.read_columns``), and the worker gets
     those columns (``service/payload.py``); any other body, and every body with a
     problem, takes the per-job path (``load_plan_request`` then
-    ``reading.read_instance``), whose verdicts and messages both paths share. A body the
+    ``reading.read_plan_body``), whose verdicts and messages both paths share. A body the
     route read in columns from its bytes (``payload.Columns``, ``service/jobscan.py``)
     takes :func:`_read_scanned`, with the same verdicts and messages.
     """
@@ -36,13 +37,14 @@ def read_plan(body: Any, settings: Settings) -> Validated:
     fast = load_plan_columns(body, settings)
     if fast is None:
         data = load_plan_request(body, settings)
-        inst = read_instance(data)
+        problem, _ = read_plan_body(data)  # a stage graph's cycles and references too
+        inst = problem if isinstance(problem, Instance) else problem.instance
         if inst.requires is not None:
             eligibility(inst)  # a job no node can run: 422 naming it, not a failed plan
         return Validated(data)
     data, cols = fast
-    read_columns(body, cols.ids, cols.durations, cols.groups)  # no tags in columns
     envelope = {k: v for k, v in body.items() if k != "jobs"}
+    with_stages(read_columns(envelope, cols.ids, cols.durations, cols.groups), envelope)
     return Validated(data, payload.encode(envelope, cols.ids, cols.durations, cols.groups))
 
 
@@ -61,7 +63,8 @@ def _read_scanned(cols: payload.Columns, settings: Settings) -> Validated:
         load_plan_request({**envelope, "jobs": [job]}, settings)
         raise  # not reached: the same schema refuses the same fields
     data.setdefault("time_budget", settings.default_time_budget)
-    read_columns(envelope, cols.ids, cols.durations, cols.groups)  # no tags in columns
+    # no tags in columns; limits and slots in the envelope make it a stage graph
+    with_stages(read_columns(envelope, cols.ids, cols.durations, cols.groups), envelope)
     return Validated(data, payload.encode(envelope, cols.ids, cols.durations, cols.groups))
 
 
