@@ -21,7 +21,7 @@ from flask import Blueprint, Response
 from workers.planning.replan import remaining_work
 
 from ..problems import NotFinished, NotFound
-from ..reading import planned_nodes, read_events, read_instance, replan_body
+from ..reading import planned_nodes, read_events, read_instance, refuse_stages, replan_body
 from ..schemas import load_replan_request
 from ..services import services, tenant
 from .jobs import ID_RE, queue_record, read_json_body
@@ -46,6 +46,7 @@ def replan(rid: str) -> Response:
     raw_events, body = read_json_body()
     events = read_events(load_replan_request(body))
     original = json.loads(raw_request)
+    refuse_stages(original, "re-planning")  # never re-plan a graph as independent jobs
     work = remaining_work(
         read_instance(original), planned_nodes(json.loads(old.result_json)), events
     )

@@ -86,3 +86,12 @@ def test_limits_on_plain_jobs_are_not_dropped(client: Any) -> None:
     doc = client.post("/v1/plans", json=body, headers={"Prefer": "wait=10"}).get_json()
     assert doc["status"] == "done", doc
     assert doc["result"]["makespan"] == 5.0
+
+
+def test_replanning_a_graph_is_refused_not_flattened(client: Any) -> None:
+    """Re-planning does not follow waits yet: a finished stage-graph plan's re-plan is a
+    422 naming the first wait, never a plan of independent jobs."""
+    doc = client.post("/v1/plans", json=SHOT, headers={"Prefer": "wait=10"}).get_json()
+    r = client.post(f"/v1/plans/{doc['id']}/replan", json={"elapsed": 1})
+    assert r.status_code == 422
+    assert [e["pointer"] for e in r.get_json()["errors"]] == ["/jobs/0/uses"]
