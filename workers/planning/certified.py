@@ -57,6 +57,11 @@ class Certified(ABC):
             return math.inf
         return max(float((self.exact_value - lb) / lb), math.ulp(0.0))
 
+    def __post_init__(self) -> None:
+        """(Dataclass subclasses) the stop reason as the enum, then :meth:`check_certificate`."""
+        object.__setattr__(self, "stop_reason", StopReason(self.stop_reason))
+        self.check_certificate()
+
     def check_certificate(self) -> None:
         """Refuse what would be a lie: a bound above the value, a negative time, a stop
         reason outside the contract."""
@@ -65,6 +70,21 @@ class Certified(ABC):
             raise ValueError("negative solve time not understood")
         if self.exact_lower_bound > self.exact_value:
             raise ValueError("lower bound above the value: a bound is wrong")
+
+
+class NodeCountAnswer(Certified):
+    """A :class:`Certified` sizing: its value is a whole number of nodes."""
+
+    nodes_needed: int
+    nodes_lower_bound: int
+
+    @property
+    def exact_value(self) -> Fraction:
+        return Fraction(self.nodes_needed)
+
+    @property
+    def exact_lower_bound(self) -> Fraction:
+        return Fraction(self.nodes_lower_bound)
 
 
 class MakespanAnswer(Certified):

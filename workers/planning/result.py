@@ -264,10 +264,6 @@ class PlanResult(MakespanAnswer):
     solve_seconds: float
     extras: dict[str, Any] = field(default_factory=dict)
 
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "stop_reason", StopReason(self.stop_reason))
-        self.check_certificate()
-
     @property
     def exact_value(self) -> Fraction:
         return self.schedule.makespan_exact

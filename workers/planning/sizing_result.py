@@ -11,7 +11,7 @@ from fractions import Fraction
 from typing import Any
 
 from .budget import StopReason
-from .certified import Certified
+from .certified import NodeCountAnswer
 from .progress import Reported
 from .rational import ceil_div
 from .result import Schedule
@@ -54,7 +54,7 @@ class CurveRow:
 
 
 @dataclass(frozen=True, eq=False)
-class SizingResult(Certified):
+class SizingResult(NodeCountAnswer):
     """The fewest nodes that meet the deadline, proven from both sides, and the curve.
 
     The value is the node count; :class:`~.certified.Certified` decides
@@ -78,18 +78,9 @@ class SizingResult(Certified):
     curve: tuple[CurveRow, ...] = field(default=())
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "stop_reason", StopReason(self.stop_reason))
-        self.check_certificate()
+        super().__post_init__()
         if self.schedule.instance.m != self.nodes_needed:
             raise ValueError("the plan does not use nodes_needed nodes")
-
-    @property
-    def exact_value(self) -> Fraction:
-        return Fraction(self.nodes_needed)
-
-    @property
-    def exact_lower_bound(self) -> Fraction:
-        return Fraction(self.nodes_lower_bound)
 
     @property
     def makespan(self) -> float:

@@ -21,7 +21,7 @@ from fractions import Fraction
 from typing import Any
 
 from .budget import Budget, StopReason
-from .certified import Certified
+from .certified import NodeCountAnswer
 from .errors import Infeasible, InvalidInstance, Issue
 from .model import Instance, Node
 from .rational import array_sum
@@ -146,7 +146,7 @@ class StageSizingArgs:
 
 
 @dataclass(frozen=True, eq=False)
-class StageSizingResult(Certified):
+class StageSizingResult(NodeCountAnswer):
     """The fewest nodes of one kind on which the graph meets its deadline, and the plan."""
 
     args: StageSizingArgs
@@ -157,18 +157,6 @@ class StageSizingResult(Certified):
     plan: StageResult
     stop_reason: StopReason
     solve_seconds: float
-
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "stop_reason", StopReason(self.stop_reason))
-        self.check_certificate()
-
-    @property
-    def exact_value(self) -> Fraction:
-        return Fraction(self.nodes_needed)
-
-    @property
-    def exact_lower_bound(self) -> Fraction:
-        return Fraction(self.nodes_lower_bound)
 
     @property
     def cost(self) -> float | None:

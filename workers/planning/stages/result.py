@@ -44,10 +44,6 @@ class StageResult(MakespanAnswer):
     rounds: int
     solve_seconds: float
 
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "stop_reason", StopReason(self.stop_reason))
-        self.check_certificate()
-
     @property
     def problem(self) -> StageProblem:
         return self.plan.problem
