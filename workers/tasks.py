@@ -132,8 +132,17 @@ def run_job(
     return run_record(store, kind, record_id, progress_interval=progress_interval)
 
 
+#: most seconds between two progress writes of a running solve, improved or not (while
+#: the search asks its cancel check, which the core's Budget does every 0.25 s)
+HEARTBEAT = 0.5
+
+
 def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 0.25) -> str:
     """Solve record ``rid`` and store the outcome; returns the final status (or 'skipped').
+
+    Progress (elapsed, best plan, best bound) is written when the search improves, at most
+    every ``progress_interval``, and at least every :data:`HEARTBEAT` seconds while it
+    runs, improved or not.
 
     Redis round trips: one to claim the record and read its body, one to store the outcome
     (with the metrics); a solve longer than ``progress_interval`` adds its progress writes
@@ -157,6 +166,11 @@ def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 
                 store.append_progress_history(kind, rid, dict(best))
 
     def should_stop() -> bool:  # the core's Budget asks at most every 0.25 s
+        now = time.perf_counter()
+        if now - last[0] >= HEARTBEAT:  # no improvement for a while: the clock still moves
+            last[0] = now
+            best.update(elapsed=round(now - t0, 4), time_budget=time_budget)
+            store.publish_progress(kind, rid, dict(best))
         return store.cancel_requested(kind, rid)
 
     body: Any = payload.decode(claim.body) if claim.columns else json.loads(claim.body)

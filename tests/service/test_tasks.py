@@ -7,6 +7,7 @@ job in the solving state on purpose; the adapter code under test is the real one
 from __future__ import annotations
 
 import importlib.util
+import itertools
 import json
 import math
 import threading
@@ -148,3 +149,37 @@ def test_simulation_widens_the_crash_guard_only_when_asked() -> None:
     sizing = {"jobs": jobs, "deadline": 3600, "spread": 0.3, "confidence": 0.9}
     want = 1000 * 500 * (2 + CONFIDENCE_COUNTS) * SECONDS_PER_DRAW
     assert simulation_allowance("sizing", sizing) == pytest.approx(want)
+
+
+def test_progress_moves_while_the_search_does_not_improve(
+    app: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Issue 19: elapsed time is published at least every 0.5 s (tasks.HEARTBEAT) even when
+    the search reports nothing new; a test double reports one plan, then only polls its
+    cancel check for 1.6 s, as a stuck search would."""
+    seen: list[float] = []
+
+    def quiet_core(body: Any, *, progress: Any, should_stop: Any, **kw: Any) -> Any:
+        progress(Progress(elapsed=0.0, best_makespan=500.0, best_lower_bound=400.0))
+        end = time.perf_counter() + 1.6
+        while time.perf_counter() < end:
+            should_stop()
+            time.sleep(0.25)  # the core's Budget polls at most every 0.25 s
+        return tasks.Outcome({"stop_reason": "time_budget"}, {"makespan": 500.0}, cancelled=False)
+
+    monkeypatch.setitem(tasks.RUNNERS, "plan", quiet_core)
+    c = app.test_client()
+    loc = c.post("/v1/plans", json={**BODY, "method": "exact", "time_budget": 2}).headers[
+        "Location"
+    ]
+    t_end = time.perf_counter() + 10
+    while time.perf_counter() < t_end:
+        doc = c.get(loc).get_json()
+        if doc["status"] != "solving" and doc["status"] != "queued":
+            break
+        elapsed = (doc.get("progress") or {}).get("elapsed")
+        if elapsed is not None and (not seen or elapsed != seen[-1]):
+            seen.append(elapsed)
+        time.sleep(0.05)
+    assert len(seen) >= 3  # 1.6 s of silence gives at least three heartbeats
+    assert max(b - a for a, b in itertools.pairwise(seen)) <= 0.8
