@@ -18,6 +18,7 @@ from ..schemas import (
     load_plan_request,
 )
 from ..settings import Settings
+from .events import add_events
 from .jobs import Resource, Validated, make_blueprint
 
 
@@ -74,4 +75,4 @@ def validate_plan(body: Any, settings: Settings) -> dict[str, Any]:
 
 
 RESOURCE = Resource(kind="plan", path="/v1/plans", validate=read_plan, columns=True)
-blueprint = make_blueprint(RESOURCE)
+blueprint = add_events(make_blueprint(RESOURCE), RESOURCE)

@@ -17,6 +17,7 @@ from workers.planning.stage_sizing import StageSizingArgs
 from ..reading import read_sizing_request, read_spread, refuse_stages
 from ..schemas import load_sizing_request
 from ..settings import Settings
+from .events import add_events
 from .jobs import Resource, Validated, make_blueprint
 
 
@@ -40,4 +41,4 @@ def read_sizing(body: Any, settings: Settings) -> Validated:
 
 
 RESOURCE = Resource(kind="sizing", path="/v1/sizings", validate=read_sizing)
-blueprint = make_blueprint(RESOURCE)
+blueprint = add_events(make_blueprint(RESOURCE), RESOURCE)
