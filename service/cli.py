@@ -5,7 +5,22 @@ Each subcommand lives in its own module under ``service/commands/`` and exposes
 discovery, so adding a command touches no other file. Modules import heavy things
 (Flask, Redis) inside ``run`` so that ``spanwright solve`` starts fast.
 
-Exit codes: 0 success, 1 runtime failure, 2 invalid input or usage, 3 the server said no.
+Exit codes (the one table; POSIX leaves the meaning of statuses 1-125 to each utility,
+and ``sysexits.h`` is not followed because argparse already answers usage errors with 2):
+
+====  =========================  ===========================================================
+code  name                       meaning
+====  =========================  ===========================================================
+0     EXIT_OK                    success (``submit``: finished and, with a deadline, met)
+1     EXIT_FAILURE               runtime failure: the plan failed or was cancelled, ...
+2     EXIT_INVALID               invalid input or usage (the API would answer 4xx)
+3     EXIT_SERVER                the server said no (404, 409, 429, 5xx) or is unreachable
+4     EXIT_DEADLINE_MISSED       ``submit``: the plan misses the deadline; a better plan
+                                 might still meet it
+5     EXIT_DEADLINE_UNREACHABLE  ``submit``: no plan can meet the deadline (proven: the
+                                 lower bound is above it)
+130   EXIT_INTERRUPTED           interrupted (Ctrl-C: 128 + SIGINT, the shells' convention)
+====  =========================  ===========================================================
 """
 
 from __future__ import annotations
@@ -19,8 +34,15 @@ from collections.abc import Sequence
 from workers.planning.errors import Issue, SpanwrightError
 
 from . import commands
+from .csvio import CsvError
 
-EXIT_OK, EXIT_FAILURE, EXIT_INVALID = 0, 1, 2
+EXIT_OK = 0
+EXIT_FAILURE = 1
+EXIT_INVALID = 2
+EXIT_SERVER = 3
+EXIT_DEADLINE_MISSED = 4
+EXIT_DEADLINE_UNREACHABLE = 5
+EXIT_INTERRUPTED = 130
 
 
 def _version() -> str:
@@ -50,12 +72,15 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def format_issues(issues: list[Issue], limit: int = 10) -> str:
-    """One line per issue, each named by its JSON Pointer as the API names it."""
+def format_issues(issues: list[Issue], limit: int | None = 10) -> str:
+    """One line per issue (the first ``limit``; None: all), each named by its JSON Pointer
+    as the API names it; an issue of the whole input (a CSV line names its own place) is
+    its sentence alone."""
     from .problems import json_pointer
 
-    lines = [f"{json_pointer(i.path) or '/'}: {i.detail}" for i in issues[:limit]]
-    if len(issues) > limit:
+    shown = issues if limit is None else issues[:limit]
+    lines = [f"{json_pointer(i.path)}: {i.detail}" if i.path else i.detail for i in shown]
+    if limit is not None and len(issues) > limit:
         lines.append(f"... and {len(issues) - limit} more")
     return "\n".join(lines)
 
@@ -70,12 +95,13 @@ def main(argv: Sequence[str] | None = None) -> int:
         # an issue of the whole body that only repeats the message is not printed again
         rest = [i for i in exc.issues if i.path or i.detail not in exc.detail]
         if rest:
-            print(format_issues(rest), file=sys.stderr)
+            # every bad line of a CSV file is reported, not the first ten
+            print(format_issues(rest, None if isinstance(exc, CsvError) else 10), file=sys.stderr)
         from .problems import http_status
 
         return EXIT_INVALID if http_status(exc) < 500 else EXIT_FAILURE
     except KeyboardInterrupt:
-        return 130
+        return EXIT_INTERRUPTED
     return code
 
 

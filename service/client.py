@@ -28,7 +28,11 @@ class ClientError(Exception):
         text = p.get("detail") or p.get("title") or "request failed"
         lines = [f"HTTP {self.status}: {text}" if self.status else text]
         for e in p.get("errors", [])[:10]:
-            lines.append(f"  {e.get('pointer', '')}: {e.get('detail', '')}")
+            where, what = e.get("pointer", ""), e.get("detail", "")
+            if where:
+                lines.append(f"  {where}: {what}")
+            elif what not in text:  # a body-wide error that only repeats the detail is not
+                lines.append(f"  {what}")
         return "\n".join(lines)
 
 
@@ -86,6 +90,22 @@ class Client:
     def get(self, rid: str, kind: str = "plans") -> dict[str, Any]:
         _, _, doc = self.request("GET", f"/v1/{kind}/{rid}")
         return dict(doc)
+
+    def get_any(self, rid: str) -> tuple[str, dict[str, Any]]:
+        """The record ``rid``, a plan or a sizing (ids of both look alike): its kind
+        (``plans`` or ``sizings``) and status body. A 404 for both is one 404."""
+        try:
+            return "plans", self.get(rid, "plans")
+        except ClientError as err:
+            if err.status != 404:
+                raise
+        try:
+            return "sizings", self.get(rid, "sizings")
+        except ClientError as err:
+            if err.status != 404:
+                raise
+            detail = f"no plan or sizing {rid!r} (it may have expired)"
+            raise ClientError(404, {**err.problem, "detail": detail}) from None
 
     def wait(
         self,

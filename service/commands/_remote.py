@@ -4,15 +4,18 @@ from __future__ import annotations
 
 import argparse
 import sys
-from pathlib import Path
 from typing import Any, TextIO
 
-from ..client import Client, ClientError
-from ..csvio import read_jobs_csv, read_nodes_csv
-from ..web.svg import fmt_duration
-from ._io import read_json
+from workers.planning.errors import Issue
 
-EXIT_OK, EXIT_FAILED, EXIT_INVALID, EXIT_SERVER = 0, 1, 2, 3
+from ..cli import EXIT_FAILURE as EXIT_FAILED
+from ..cli import EXIT_INVALID, EXIT_OK, EXIT_SERVER
+from ..client import Client, ClientError
+from ..csvio import plural
+from ..web.svg import fmt_duration
+from ._io import Batch
+
+__all__ = ["EXIT_FAILED", "EXIT_INVALID", "EXIT_OK", "EXIT_SERVER"]
 
 
 def add_server_arguments(p: argparse.ArgumentParser) -> None:
@@ -24,38 +27,30 @@ def client(args: argparse.Namespace) -> Client:
     return Client(args.server, args.key)
 
 
-def fetch(args: argparse.Namespace) -> dict[str, Any] | int:
-    """The record ``args.id`` on the server, or the exit code of the error (reported)."""
+def fetch(args: argparse.Namespace) -> tuple[str, dict[str, Any]] | int:
+    """The record ``args.id`` on the server, a plan or a sizing (its kind, ``plans`` or
+    ``sizings``, and its status body), or the exit code of the error (reported)."""
     try:
-        return client(args).get(args.id)
+        return client(args).get_any(args.id)
     except ClientError as err:
         return report_client_error(err)
 
 
-def report_client_error(err: ClientError) -> int:
+def report_client_error(err: ClientError, batch: Batch | None = None) -> int:
+    """The server's error on one line (and its field errors below), exit 2 for a request
+    the server refused as invalid, else 3. Field errors about rows of a CSV ``batch`` are
+    named by line and column instead of JSON Pointer."""
+    if batch is not None and batch.sources:
+        for e in err.problem.get("errors") or []:
+            parts = str(e.get("pointer", "")).split("/")[1:]
+            path = tuple(int(p) if p.isdigit() else p for p in parts)
+            placed = batch.place(Issue(path, ""))
+            if placed.path != path:
+                e["pointer"] = placed.detail.removesuffix(": ")
     print(f"spanwright: {err}", file=sys.stderr)
     if err.status == 0:
         return EXIT_SERVER
     return EXIT_INVALID if err.status in (400, 413, 415, 422) else EXIT_SERVER
-
-
-def read_batch(path: str) -> dict[str, Any]:
-    """A request body from JSON, or the jobs of a CSV batch."""
-    if path.lower().endswith(".csv"):
-        return {"jobs": read_jobs_csv(Path(path).read_text(encoding="utf-8-sig"))}
-    body = read_json(path)
-    if not isinstance(body, dict):
-        from workers.planning.errors import InvalidInstance, Issue
-
-        raise InvalidInstance(f"{path} must hold a JSON object", [Issue((), "not an object")])
-    return body
-
-
-def read_farm(path: str) -> list[dict[str, Any]]:
-    if path.lower().endswith(".csv"):
-        return read_nodes_csv(Path(path).read_text(encoding="utf-8-sig"))
-    nodes = read_json(path)
-    return list(nodes["nodes"] if isinstance(nodes, dict) else nodes)
 
 
 class ProgressLine:
@@ -98,6 +93,13 @@ class ProgressLine:
         best = prog.get("best_makespan", res.get("makespan"))
         bound = prog.get("best_lower_bound", res.get("lower_bound"))
         parts = [f"{status:<9} [{bar}] {elapsed:5.1f}/{budget:.1f} s"]
+        need = prog.get("nodes_needed", res.get("nodes_needed"))
+        if need is not None:  # a sizing: the node interval, not makespans
+            low = prog.get("nodes_lower_bound", res.get("nodes_lower_bound"))
+            parts.append(f"{plural(int(need), 'node')} meet{'s' if need == 1 else ''} the deadline")
+            if low is not None:
+                parts.append(f"no fewer than {plural(int(low), 'node')} can")
+            return "  ".join(parts)
         if best is not None:
             parts.append(f"best {fmt_duration(float(best))}")
         if bound is not None:

@@ -13,6 +13,7 @@ from typing import Any
 
 from workers.planning.errors import InvalidInstance, Issue
 
+from ..csvio import plural
 from ._io import load_request, plan_request, print_json, time_budget
 
 NAME = "confidence"
@@ -73,14 +74,14 @@ def target_lines(sizing: dict[str, Any]) -> str:
     chosen, fewer = sizing["chosen"], sizing["fewer"]
     lo, hi = chosen["interval"]
     lines = [
-        f"to confidence   {sizing['confidence']:g}: {sizing['nodes_needed']} node(s), "
+        f"to confidence   {sizing['confidence']:g}: {plural(sizing['nodes_needed'], 'node')}, "
         f"P(meet deadline) {chosen['deadline_probability']:.4f} "
         f"(95% interval {lo:.4f} - {hi:.4f})",
     ]
     if fewer is not None:
         lo, hi = fewer["interval"]
         lines.append(
-            f"{'':<16}{fewer['nodes']} node(s): P(meet deadline) "
+            f"{'':<16}{plural(fewer['nodes'], 'node')}: P(meet deadline) "
             f"{fewer['deadline_probability']:.4f} (95% interval {lo:.4f} - {hi:.4f})"
         )
     lines.append(f"{'':<16}rule: {sizing['rule']}; {sizing['samples']} samples each")

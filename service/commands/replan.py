@@ -7,6 +7,7 @@ import argparse
 from workers.planning.errors import InvalidInstance, Issue
 from workers.planning.solve import METHODS
 
+from ..csvio import plural
 from ._io import print_json, read_json
 
 NAME = "replan"
@@ -66,7 +67,8 @@ def run(args: argparse.Namespace) -> int:
         info = res.extras["replan"]
         print(f"time origin     {info['time_origin']:.6g} s after the original start")
         print(
-            f"kept running    {len(info['running'])} job(s); planned again "
-            f"{info['planned']} job(s), {len(info['replanned_from_lost_nodes'])} from lost nodes"
+            f"kept running    {plural(len(info['running']), 'job')}; planned again "
+            f"{plural(info['planned'], 'job')}, {len(info['replanned_from_lost_nodes'])} from "
+            "lost nodes"
         )
     return 0

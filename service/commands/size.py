@@ -4,19 +4,23 @@ from __future__ import annotations
 
 import argparse
 
-from ._io import load_request, print_json, time_budget
+from ._io import add_sizing_options, check_request, print_json, sizing_batch, time_budget
 from .confidence import block_lines, target_lines
 
 NAME = "size"
 HELP = (
-    "size a farm for a deadline (FILE is the JSON body of POST /v1/sizings) and print the "
-    "fewest nodes, the proof and the node-count curve; with estimate spread, also how "
-    "likely the answer makes the deadline and, with 'confidence', the nodes for it"
+    "size a farm for a deadline (FILE is the JSON body of POST /v1/sizings, or a CSV of "
+    "jobs with --deadline SECONDS and the node kind from options) and print the fewest "
+    "nodes, the proof and the node-count curve; with estimate spread, also how likely the "
+    "answer makes the deadline and, with 'confidence', the nodes for it"
 )
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("file", help="request body as JSON ('-' for standard input)")
+    p.add_argument(
+        "file", help="request body as JSON ('-' for standard input), or jobs as FILE.csv"
+    )
+    add_sizing_options(p)
     p.add_argument("--time-budget", type=float, help="seconds of search (overrides the file)")
     p.add_argument("--json", action="store_true", help="print exactly the sizing result object")
     p.add_argument("--no-plan", action="store_true", help="leave the plan out of --json")
@@ -28,12 +32,14 @@ def run(args: argparse.Namespace) -> int:
 
     from .. import reading
 
-    data = load_request(args.file, "sizing")  # the API's checks, its messages
-    budget = time_budget(args.time_budget, data)
-    warm_up()  # load (or compile) the kernels before the clock starts
-    answer = usecases.size(
-        reading.read_sizing_request(data), spread=reading.read_spread(data), time_budget=budget
-    )
+    batch = sizing_batch(args)
+    with batch.lines():  # CSV rows named by line and column
+        data = check_request(batch.body, "sizing")  # the API's checks, its messages
+        budget = time_budget(args.time_budget, data)
+        warm_up()  # load (or compile) the kernels before the clock starts
+        answer = usecases.size(
+            reading.read_sizing_request(data), spread=reading.read_spread(data), time_budget=budget
+        )
     if args.json:
         print_json(answer.to_dict(with_plan=not args.no_plan))
     else:

@@ -1,4 +1,4 @@
-"""``spanwright solve FILE``: plan a request body locally and print the result."""
+"""``spanwright solve FILE``: plan a batch locally and print the result."""
 
 from __future__ import annotations
 
@@ -6,29 +6,37 @@ import argparse
 
 from workers.planning.solve import METHODS
 
-from ._io import load_request, plan_request, print_json, time_budget
+from ._io import add_plan_options, check_request, plan_batch, plan_request, print_json, time_budget
 
 NAME = "solve"
-HELP = "solve a batch file (the JSON body of POST /v1/plans) locally and print the plan"
+HELP = (
+    "solve a batch file locally and print the plan: the JSON body of POST /v1/plans, or a "
+    "CSV of jobs (id,duration,... columns) with --nodes N or --farm FILE"
+)
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("file", help="request body as JSON ('-' for standard input)")
+    p.add_argument(
+        "file", help="request body as JSON ('-' for standard input), or jobs as FILE.csv"
+    )
+    add_plan_options(p)
     p.add_argument("--method", choices=METHODS, help="overrides the file's 'method'")
     p.add_argument("--time-budget", type=float, help="seconds of search (exact and auto)")
     p.add_argument("--json", action="store_true", help="print exactly the result object")
 
 
 def run(args: argparse.Namespace) -> int:
-    data = load_request(args.file, "plan")  # the API's checks, its messages
+    batch = plan_batch(args)
     if args.method:
-        data["method"] = args.method
-    budget = time_budget(args.time_budget, data)
-    if data.get("method") in ("exact", "auto"):
-        from workers.planning.warmup import warm_up_exact as warm_up
+        batch.body["method"] = args.method
+    with batch.lines():  # CSV rows named by line and column
+        data = check_request(batch.body, "plan")  # the API's checks, its messages
+        budget = time_budget(args.time_budget, data)
+        if data.get("method") in ("exact", "auto"):
+            from workers.planning.warmup import warm_up_exact as warm_up
 
-        warm_up()  # load the compiled search before its clock starts, not out of the budget
-    answer = plan_request(data, budget)
+            warm_up()  # load the compiled search before its clock starts, not out of the budget
+        answer = plan_request(data, budget)
     if args.json:
         print_json(answer.to_dict())
     else:

@@ -29,6 +29,87 @@ def test_serve_refuses_a_public_address(capsys: pytest.CaptureFixture[str]) -> N
     assert "loopback" in capsys.readouterr().err
 
 
+def _serve(port: int) -> subprocess.Popen[str]:
+    """``spanwright serve --port PORT`` as a process on loopback, embedded store."""
+    env = {k: v for k, v in os.environ.items() if k != "REDIS_URL"}
+    env["PYTHONPATH"] = str(ROOT)
+    return subprocess.Popen(
+        [sys.executable, "-m", "service.cli", "serve", "--port", str(port)],
+        cwd=ROOT,
+        env=env,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+
+
+def _stderr_until(proc: subprocess.Popen[str], word: str, seconds: float) -> list[str]:
+    """Lines of ``proc``'s standard error up to the first holding ``word`` (or its end),
+    waiting at most ``seconds`` in all (a reader thread, so a silent process cannot hang
+    the test)."""
+    import queue
+    import threading
+
+    assert proc.stderr is not None
+    lines: queue.Queue[str] = queue.Queue()
+    threading.Thread(target=lambda: [lines.put(ln) for ln in proc.stderr], daemon=True).start()
+    out: list[str] = []
+    end = time.monotonic() + seconds
+    while not out or word not in out[-1]:
+        try:
+            out.append(lines.get(timeout=max(0.0, end - time.monotonic())).rstrip("\n"))
+        except queue.Empty:
+            break
+    return out
+
+
+def test_serve_on_a_taken_port_fails_in_one_line() -> None:
+    """A second server on a port already listened on: exit 1 (a runtime failure; POSIX: a
+    non-zero status is failure), one clear line, and never "listening" (the issue: a
+    second ``serve`` "prints 'listening' before failing"). The port is held by a plain
+    listening socket of this test (loopback only)."""
+    import socket
+
+    with socket.create_server(("127.0.0.1", 0)) as held:
+        port = held.getsockname()[1]
+        proc = _serve(port)
+        try:
+            _, err = proc.communicate(timeout=60)
+        finally:
+            proc.kill()
+    assert proc.returncode == 1
+    assert err.splitlines() == [
+        f"spanwright: cannot listen on 127.0.0.1 port {port}: Address already in use "
+        "(another program listens there; stop it or give another --port)"
+    ]
+
+
+def test_serve_says_listening_after_binding_and_gives_the_page_url() -> None:
+    """``serve --port 0``: the "listening" line names the page URL (the web pages at /,
+    not only the API), and the port it names already accepts connections when the line is
+    read; the page answers HTML there."""
+    import re
+    import socket
+
+    proc = _serve(0)
+    try:
+        lines = _stderr_until(proc, "listening", 60)
+        assert lines, "serve printed nothing"
+        m = re.fullmatch(
+            r"spanwright: listening on (http://127\.0\.0\.1:(\d+)/) \(pages; the API is "
+            r"under http://127\.0\.0\.1:\d+/v1/\)",
+            lines[-1],
+        )
+        assert m, lines
+        socket.create_connection(("127.0.0.1", int(m.group(2))), timeout=5).close()
+        with urllib.request.urlopen(m.group(1), timeout=10) as r:
+            assert r.status == 200
+            assert r.headers.get_content_type() == "text/html"
+    finally:
+        proc.terminate()
+        proc.wait(10)
+
+
 def test_worker_needs_redis(monkeypatch: pytest.MonkeyPatch, capsys: Any) -> None:
     """A separate worker without REDIS_URL has nothing to work on: usage error."""
     monkeypatch.delenv("REDIS_URL", raising=False)
