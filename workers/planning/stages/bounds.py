@@ -30,6 +30,19 @@ up to whole ticks.
                    min_S q``, over the sets ``{j : r_j >= a, q_j >= b}`` for thresholds
                    ``a`` (heads) and ``b`` (tails); for all jobs (``cap = M``) and for each
                    limit's jobs (``cap = min(c_L, M)``).
+``lanes``          the same sets S, counted per lane (Carlier 1987, the bound for parallel
+                   machines with heads and tails, from memory): drop the waits inside S
+                   and keep each job's window; then some optimal plan of that relaxation
+                   puts at least one job on each of its ``cap <= |S|`` lanes (a lane left
+                   empty can take the last job of a lane holding two, at the same start),
+                   and lane ``i`` runs from its first job's start ``>= r_first`` for its
+                   work and is followed by its last job's tail, so ``C* >= r_first +
+                   work_i + q_last``; summed over the lanes, with first jobs distinct and
+                   last jobs distinct: ``cap C* >= (cap smallest r in S) + sum_S d_j +
+                   (cap smallest q in S)``. Lanes: all slots for all jobs; for a limit's
+                   jobs ``min(c_L, M)`` lanes (at most ``c_L`` run at once, so their
+                   intervals colour onto ``c_L`` lanes). Tried on the prefixes of the jobs
+                   by decreasing head and by decreasing tail.
 ``energetic``      energetic reasoning (Lopez, Erschler and Esquirol 1992; Baptiste, Le
                    Pape and Nuijten 2001): in a plan ending by ``C`` job ``j`` runs inside
                    ``[r_j, C - q_j]`` for at least ``d_j``, so inside any ``[t1, t2)`` for
@@ -45,6 +58,7 @@ up to whole ticks.
 
 from __future__ import annotations
 
+import heapq
 from dataclasses import dataclass, field
 from fractions import Fraction
 from typing import Any
@@ -64,6 +78,9 @@ ENERGETIC_MAX_JOBS = 500
 #: many (spread over the sorted distinct heads)
 HEADS_TAILS_ALL_UP_TO = 2_000
 HEADS_TAILS_THRESHOLDS = 48
+#: lanes runs its prefix scan (a heap per job, in plain Python) up to this many jobs per
+#: set, and on the whole set alone above
+LANES_SCAN_UP_TO = 5_000
 #: integers handled by the vectorised energetic test stay below this
 INT64_ROOM = 2**62
 
@@ -255,6 +272,71 @@ def heads_tails(paths: Paths) -> Bound:
     return Bound("heads_tails", best, ev)
 
 
+def _lanes_on(paths: Paths, jobs: I64, cap: int) -> tuple[int, dict[str, Any]]:
+    """Best ``ceil((cap smallest r + sum d + cap smallest q) / cap)`` over the prefixes
+    of ``jobs`` by decreasing head (the smallest heads of a prefix are its last ones)
+    and by decreasing tail (module doc); -1 when fewer jobs than lanes."""
+    if jobs.size < cap or cap < 1:
+        return -1, {}
+    if jobs.size > LANES_SCAN_UP_TO:  # the whole set only, by partial sorts
+        r, q = paths.head[jobs], paths.tail[jobs]
+        low = int(np.partition(r, cap - 1)[:cap].sum()) + int(np.partition(q, cap - 1)[:cap].sum())
+        total = int(paths.d[jobs].sum())
+        return _ceil_div(low + total, cap), {
+            "jobs": int(jobs.size),
+            "work_ticks": total,
+            "lanes": cap,
+        }
+    best, ev = -1, {}
+    for key, other, label in (
+        (paths.head[jobs], paths.tail[jobs], "head"),
+        (paths.tail[jobs], paths.head[jobs], "tail"),
+    ):
+        order = np.argsort(-key, kind="stable")
+        ks = key[order]
+        work = np.cumsum(paths.d[jobs][order])
+        kcum = np.concatenate(([0], np.cumsum(ks)))
+        # the cap smallest of the other key over each prefix: a max-heap of size cap
+        small = np.empty(jobs.size, dtype=np.int64)
+        heap: list[int] = []
+        running = 0
+        for i, x in enumerate(other[order].tolist()):
+            if len(heap) < cap:
+                heapq.heappush(heap, -x)
+                running += x
+            elif x < -heap[0]:
+                running += x + heapq.heapreplace(heap, -x)
+            small[i] = running
+        idx = np.arange(cap - 1, jobs.size)
+        last = kcum[idx + 1] - kcum[idx + 1 - cap]  # the cap smallest keys of the prefix
+        val = -((-(last + work[idx] + small[idx])) // cap)
+        i = int(np.argmax(val))
+        if int(val[i]) > best:
+            best = int(val[i])
+            ev = {
+                "by": f"decreasing {label}",
+                "jobs": int(idx[i]) + 1,
+                "work_ticks": int(work[idx[i]]),
+            }
+    ev["lanes"] = cap
+    return best, ev
+
+
+def lanes(paths: Paths) -> Bound:
+    """Carlier's per-lane bound with heads and tails (module doc), over all jobs on the
+    slots and over each limit's jobs on its lanes."""
+    p = paths.problem
+    slots = int(p.slots.sum())
+    best, ev = _lanes_on(paths, np.arange(p.n, dtype=np.int64), slots)
+    ev["set"] = "all"
+    for lim, jobs in enumerate(_users(p)):
+        if jobs.size:
+            val, e = _lanes_on(paths, jobs, min(int(p.capacities[lim]), slots))
+            if val > best:
+                best, ev = val, {**e, "limit": p.limit_names[lim]}
+    return Bound("lanes", max(best, 0), ev)
+
+
 def _slot_capacity(t1: int, t2s: I64, free: I64, slots: I64) -> I64:
     """``sum_k c_k (t2 - max(t1, F_k))^+`` for each ``t2``."""
     u = np.maximum(free, t1)
@@ -360,6 +442,7 @@ def stage_bounds(
     found = [busy_nodes(problem), critical_path(paths), mean_load(problem)]
     found += limit_load(paths)
     found.append(heads_tails(paths))
+    found.append(lanes(paths))
     if energetic_on:
         floor = max(b.ticks for b in found)
         top = upper if upper is not None else floor + int(paths.problem.timing.dmax.sum()) + 1

@@ -27,7 +27,9 @@ Priority rules (``RULES``), each a total order with ties by batch order:
 ``longest_first``      longest remaining path first: bottom level ``d_j + q_j`` on the
                        fastest eligible times (:mod:`.paths`), ties by longer ``d_j``;
 ``most_successors``    most jobs waiting directly for it, ties by bottom level;
-``longest_duration``   longer ``d_j`` first.
+``longest_duration``   longer ``d_j`` first;
+``longest_tail``       longest tail ``q_j`` first (Jackson's rule for delivery times),
+                       ties by longer ``d_j``.
 """
 
 from __future__ import annotations
@@ -43,7 +45,7 @@ from .problem import StageProblem
 
 I64 = npt.NDArray[np.int64]
 
-RULES = ("list", "longest_first", "most_successors", "longest_duration")
+RULES = ("list", "longest_first", "most_successors", "longest_duration", "longest_tail")
 
 
 def rank_of(order: npt.ArrayLike) -> I64:
@@ -72,6 +74,8 @@ def priority(paths: Paths, rule: str) -> I64:
         return by_keys(-np.diff(p.succ_ptr), -paths.bottom)
     if rule == "longest_duration":
         return by_keys(-paths.d)
+    if rule == "longest_tail":
+        return by_keys(-paths.tail, -paths.d)
     raise ValueError(f"unknown priority rule {rule!r}")
 
 

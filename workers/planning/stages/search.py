@@ -46,6 +46,11 @@ I64 = npt.NDArray[np.int64]
 METHODS = ("list", "longest_first", "exact", "auto")
 #: noise levels of the bottom-level perturbation, used in turn
 NOISE = (0.05, 0.15, 0.4)
+#: one round in this many perturbs a priority; the others make a local move
+PERTURB_EVERY = 8
+#: the walk restarts from the next perturbed plan after this many rounds without a
+#: shorter plan
+RESTART_AFTER = 400
 
 
 def worst_case_ratio(problem: StageProblem) -> float | None:
@@ -76,6 +81,103 @@ def justify(problem: StageProblem, lister: Lister, plan: StagePlan) -> list[Stag
     return [mirrored, forward]
 
 
+class _Walk:
+    """The state of the improver: the best plan, and the priority list a local search
+    walks from (see :func:`improve`)."""
+
+    def __init__(self, problem: StageProblem, lister: Lister, budget: Budget) -> None:
+        self.problem = problem
+        self.lister = lister
+        self.budget = budget
+        self.best: StagePlan | None = None
+        self.rule = ""
+
+    def offer(self, cand: StagePlan, rule: str) -> bool:
+        """Keep ``cand`` if it is shorter than the best; whether it was."""
+        if self.best is None or cand.makespan_ticks < self.best.makespan_ticks:
+            self.best, self.rule = cand, rule
+            return True
+        return False
+
+    def polish(self, plan: StagePlan) -> StagePlan:
+        """Forward-backward improvement: justify ``plan`` while that shortens it (each
+        pass is two list schedules; stops early when the budget is spent)."""
+        while not self.budget.expired():
+            got = min(
+                justify(self.problem, self.lister, plan),
+                key=lambda x: x.makespan_ticks,
+                default=None,
+            )
+            if got is None or got.makespan_ticks >= plan.makespan_ticks:
+                break
+            plan = got
+        return plan
+
+
+def _swap(rank: I64, rng: np.random.Generator, members: list[I64]) -> I64:
+    """A copy of ``rank`` with one or two pairs of jobs swapped, each pair of one class
+    (same limits, same eligible nodes: the jobs that compete for the same capacity) and
+    at most a few places apart among that class in the list."""
+    out = rank.copy()
+    for _ in range(int(rng.integers(1, 3))):
+        group = members[int(rng.integers(0, len(members)))]
+        if group.size < 2:
+            continue
+        seq = group[np.argsort(out[group], kind="stable")]
+        width = max(2, seq.size // 10)
+        a = int(rng.integers(0, seq.size))
+        b = min(seq.size - 1, max(0, a + int(rng.integers(-width, width + 1))))
+        ja, jb = int(seq[a]), int(seq[b])
+        out[ja], out[jb] = out[jb], out[ja]
+    return out
+
+
+def _blocker_swap(plan: StagePlan, rank: I64, cls: I64, rng: np.random.Generator) -> I64:
+    """A copy of ``rank`` in which a job on a critical chain of ``plan`` trades places
+    with a job of its class that ended exactly when it started (one that held the slot
+    or limit it waited for), so that the chain's job goes first.
+
+    The chain is walked back from a job that ends last: at each job, to a job that
+    ended at its start (a predecessor or a job of its class), picked at random."""
+    end, start = plan.end, plan.start
+    j = int(rng.choice(np.flatnonzero(end == end.max())))
+    chain: list[int] = []
+    for _ in range(plan.problem.n):
+        chain.append(j)
+        before = np.flatnonzero(end == start[j])
+        if not before.size or start[j] == 0:
+            break
+        j = int(rng.choice(before))
+    rng.shuffle(chain)
+    out = rank.copy()
+    for j in chain:
+        rivals = np.flatnonzero((end == start[j]) & (cls == cls[j]) & (rank < rank[j]))
+        if rivals.size:
+            k = int(rng.choice(rivals))
+            out[j], out[k] = out[k], out[j]
+            return out
+    return out
+
+
+def _key(plan: StagePlan, paths: Paths) -> tuple[int, int]:
+    """What the local search minimises: the makespan, then how many jobs are critical
+    (their end plus their tail reaches it): fewer, and a shorter plan is nearer."""
+    span = plan.makespan_ticks
+    return span, int(np.count_nonzero(plan.end + paths.tail >= span))
+
+
+def _classes(lister: Lister, n: int) -> list[I64]:
+    """The jobs of each class of the list scheduler with at least two jobs, each class
+    listed once per job it holds (a random class is then picked by job)."""
+    cls = np.asarray(lister.cls, dtype=np.int64)
+    out = [np.flatnonzero(cls == c) for c in np.unique(cls).tolist()]
+    out = [g for g in out if g.size >= 2]
+    if not out:
+        return [np.arange(n, dtype=np.int64)]
+    weights = [max(1, g.size * 20 // n) for g in out]
+    return [g for g, w in zip(out, weights, strict=True) for _ in range(w)]
+
+
 def improve(
     problem: StageProblem,
     budget: Budget,
@@ -86,41 +188,72 @@ def improve(
 ) -> tuple[StagePlan, StageBounds, str, bool, int]:
     """Best plan found, the bounds, the rule that found it, whether time ran out, rounds.
 
-    Stops when the plan meets the best bound, the budget is spent, or ``max_rounds``
-    rounds of improvement were made (for reproducible runs).
+    After the rules, each round either perturbs a priority (the bottom level or the best
+    plan's starts, with noise) and polishes the result by forward-backward improvement,
+    or (most rounds) makes a local move: one or two swaps of nearby jobs in the current
+    priority list, kept when the plan is no longer (a walk over equal makespans too);
+    a new best is polished as well. Stops when the plan meets the best bound, the budget
+    is spent, or ``max_rounds`` rounds were made (for reproducible runs).
     """
     paths = paths or longest_paths(problem)
-    lister = Lister(problem)
-    best: StagePlan | None = None
-    rule = ""
+    walk = _Walk(problem, Lister(problem), budget)
     for name in RULES:
-        cand = _plan(problem, lister, priority(paths, name))
-        if best is None or cand.makespan_ticks < best.makespan_ticks:
-            best, rule = cand, name
-    assert best is not None
-    bounds = stage_bounds(problem, paths, upper=best.makespan_ticks)
+        walk.offer(_plan(problem, walk.lister, priority(paths, name)), name)
+    assert walk.best is not None
+    bounds = stage_bounds(problem, paths, upper=walk.best.makespan_ticks)
     target = bounds.ticks
+    walk.offer(walk.polish(walk.best), "search")
     rng = np.random.default_rng(seed)
     rounds = 0
     ran_out = False
     span = float(max(int(paths.d.max()), 1))
-    while best.makespan_ticks > target:
+    bottom = -paths.bottom.astype(np.float64)
+    members = _classes(walk.lister, problem.n)
+    cls = np.asarray(walk.lister.cls, dtype=np.int64)
+    cur = walk.best
+    cur_rank = by_keys(cur.start, bottom)
+    stall = 0
+    cur_key = _key(cur, paths)
+    while walk.best.makespan_ticks > target:
         if budget.expired():
             ran_out = True
             break
         if max_rounds is not None and rounds >= max_rounds:
             break
         rounds += 1
-        cands = justify(problem, lister, best)
-        noise = NOISE[rounds % len(NOISE)]
-        key = paths.bottom * (1.0 + noise * rng.uniform(-1.0, 1.0, problem.n))
-        cands.append(_plan(problem, lister, by_keys(-key, -paths.d.astype(np.float64))))
-        key = best.start + noise * span * rng.uniform(0.0, 1.0, problem.n)
-        cands.append(_plan(problem, lister, by_keys(key, -paths.bottom.astype(np.float64))))
-        for cand in cands:
-            if cand.makespan_ticks < best.makespan_ticks:
-                best, rule = cand, "search"
-    return best, bounds, rule, ran_out, rounds
+        if rounds % PERTURB_EVERY == 0:
+            noise = NOISE[(rounds // PERTURB_EVERY) % len(NOISE)]
+            if rounds % (2 * PERTURB_EVERY):
+                key = paths.bottom * (1.0 + noise * rng.uniform(-1.0, 1.0, problem.n))
+                rank = by_keys(-key, -paths.d.astype(np.float64))
+            else:
+                key = walk.best.start + noise * span * rng.uniform(0.0, 1.0, problem.n)
+                rank = by_keys(key, bottom)
+            cand = walk.polish(_plan(problem, walk.lister, rank))
+            walk.offer(cand, "search")
+            stall += PERTURB_EVERY
+            if cand.makespan_ticks <= cur.makespan_ticks or stall >= RESTART_AFTER:
+                stall = 0 if cand.makespan_ticks < cur.makespan_ticks else stall
+                stall = 0 if stall >= RESTART_AFTER else stall
+                cur, cur_rank = cand, by_keys(cand.start, bottom)
+                cur_key = _key(cur, paths)
+            continue
+        if rounds % 2:
+            rank = _swap(cur_rank, rng, members)
+        else:
+            rank = _blocker_swap(cur, cur_rank, cls, rng)
+        cand = _plan(problem, walk.lister, rank)
+        cand_key = _key(cand, paths)
+        if cand_key <= cur_key:
+            if cand.makespan_ticks < cur.makespan_ticks:
+                stall = 0
+            cur, cur_rank, cur_key = cand, rank, cand_key
+            if walk.offer(cand, "search"):
+                cur = walk.polish(cand)
+                walk.offer(cur, "search")
+                cur_rank = by_keys(cur.start, bottom)
+                cur_key = _key(cur, paths)
+    return walk.best, bounds, walk.rule, ran_out, rounds
 
 
 def solve_stages(
