@@ -66,7 +66,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
-from ..rational import down
+from ..rational import array_sum, down
 from .paths import Paths
 from .problem import StageProblem
 
@@ -168,28 +168,20 @@ def mean_load(problem: StageProblem) -> Bound:
 
 
 def _least_work(problem: StageProblem) -> Fraction:
-    """``sum_j min_k s_k d_jk`` over each job's eligible speeds, exactly: the least
-    speed-1 work (in ticks) a job does wherever it runs, from the timing's own tables, so
-    the bound holds for whichever problem they describe (rounded up, or down). Float
-    products pick each job's cheapest speed; near ties are settled in fractions."""
+    """A lower bound on ``sum_j min_k s_k d_jk`` over each job's eligible speeds: the
+    least speed-1 work (in ticks) a job does wherever it runs, from the timing's own
+    tables, so the bound holds for whichever problem they describe (rounded up, or down).
+    Each float product is within half a unit in the last place of the exact one, so one
+    step down (``nextafter``) is below it; the sum of those floats is taken exactly."""
     t = problem.timing
-    speeds = [Fraction(x) for x in t.speeds]
-    ncol = len(speeds)
+    ncol = len(t.speeds)
     ok = np.zeros((t.eligible.shape[0], ncol), dtype=bool)
     for k in range(problem.m):
         ok[:, t.speed_col[k]] |= t.eligible[:, k]
-    mask = ok[t.job_type]
-    prod = t.run * np.asarray(t.speeds, dtype=np.float64)
-    prod[~mask] = np.inf
-    col = np.argmin(prod, axis=1)
-    if ncol > 1:
-        two = np.partition(prod, 1, axis=1)
-        for j in np.flatnonzero(two[:, 1] <= two[:, 0] * (1 + 1e-9)).tolist():
-            cands = [c for c in range(ncol) if mask[j, c]]
-            col[j] = min(cands, key=lambda c: speeds[c] * int(t.run[j, c]))
-    rows = np.arange(problem.n)
-    chosen = t.run[rows, col]
-    return sum((speeds[c] * int(chosen[col == c].sum()) for c in range(ncol)), start=Fraction(0))
+    prod = np.nextafter(t.run * np.asarray(t.speeds, dtype=np.float64), -np.inf)
+    prod[~ok[t.job_type]] = np.inf
+    least = np.maximum(prod.min(axis=1), 0.0)
+    return array_sum(least)
 
 
 def _users(problem: StageProblem) -> list[I64]:
