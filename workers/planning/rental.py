@@ -1,0 +1,512 @@
+"""Renting to a deadline (issue 18): the cheapest mix of node kinds on top of the farm.
+
+The model. The farm you have: existing ``Node``s (speed, provides, free_at) costing nothing
+unless an optional ``hour_cost`` each. Kinds you may rent: name, speed, provides,
+hour_cost, boot (seconds from the start before a rented node can run anything, billed),
+max_count. A rented node is billed from the start until its last job ends (boot included),
+rounded up to the billing unit (second, minute, hour) with an optional min_billed seconds;
+a kind's node that runs nothing is not rented and costs nothing. Find a plan in which
+every job (durations on a speed-1 node, ``requires`` tags) ends by the deadline, at the
+least total cost; among equal costs, fewer rented nodes. (A farm node with an
+``hour_cost`` is billed like a rented node, its ``free_at`` in the place of the boot.)
+
+:func:`rent` answers a :class:`RentalArgs` with a :class:`RentalResult`: what to rent, the
+plan (:mod:`.rental_plan`, checked exactly), its exact cost, and a lower bound on the
+cheapest cost proven in exact arithmetic (:mod:`.rental_bounds`: ``work``, ``cover``,
+``lp_patterns``). The search: a greedy plan (the free farm first by earliest finish, then
+the kind with the least cost per work), the ``cover`` relaxation's optimum packed best fit
+decreasing (which proves the plan optimal when it fits), then moves that re-kind or close
+rented nodes, within the budget. The cost is for the given estimates and prices, not a
+purchasing decision.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass
+from fractions import Fraction
+from typing import Any
+
+import numpy as np
+
+from .budget import Budget, StopReason
+from .certified import Certified
+from .errors import Infeasible, InvalidInstance, Issue
+from .model import FloatArray, Instance, Node
+from .rational import down
+from .rental_bounds import cover_bound, hall_sets, pattern_bound, work_bound
+from .rental_plan import (
+    Market,
+    Offer,
+    Verified,
+    as_plan,
+    greedy,
+    improve,
+    pack,
+    place_rented,
+    room,
+    verify,
+)
+from .result import Schedule
+from .sizing_result import BILLING
+
+CAUTION = "The cost is for the given duration estimates and prices, not a purchasing decision."
+
+
+@dataclass(frozen=True, slots=True)
+class Kind:
+    """A kind of node you may rent (see the module docstring)."""
+
+    name: str
+    speed: float
+    provides: frozenset[str]
+    hour_cost: float
+    boot: float = 0.0
+    max_count: int = 1000
+
+
+@dataclass(frozen=True, eq=False)
+class RentalArgs:
+    """A rental request as core objects: the jobs, the farm nodes (``instance.nodes``, may
+    be empty: see :func:`rental_instance`), the deadline and resolution (``instance``),
+    the kinds, the billing unit, ``min_billed`` seconds and an optional hour cost per
+    farm node."""
+
+    instance: Instance
+    kinds: tuple[Kind, ...]
+    billing: str = "second"
+    min_billed: float = 0.0
+    farm_hour_cost: tuple[float | None, ...] | None = None
+
+    def check(self) -> Market:
+        """Validate and price the request (raises :class:`InvalidInstance` by field path,
+        :class:`Infeasible` naming the jobs no node can run or finish in time)."""
+        issues = self._issues()
+        if issues:
+            raise InvalidInstance(f"{len(issues)} problem(s) in the rental request", issues)
+        inst = self.instance
+        probes = [
+            Node(f"rental-probe-{i}", k.speed, k.provides, k.boot) for i, k in enumerate(self.kinds)
+        ]
+        dataclasses.replace(inst, nodes=(*inst.nodes, *probes)).validate()
+        costs = self.farm_hour_cost or (None,) * inst.m
+        offers = [
+            Offer(k.name, k.speed, k.provides, k.hour_cost, k.boot, k.max_count) for k in self.kinds
+        ]
+        offers += [
+            Offer(nd.id, nd.speed, nd.provides, float(c), nd.free_at, 1, f)
+            for f, (nd, c) in enumerate(zip(inst.nodes, costs, strict=True))
+            if c is not None
+        ]
+        free = tuple(f for f, c in enumerate(costs) if c is None)
+        mk = Market(inst, tuple(offers), int(BILLING[self.billing]), float(self.min_billed), free)
+        _check_runnable(mk)
+        _check_counts(mk)
+        return mk
+
+    def _issues(self) -> list[Issue]:
+        inst, out = self.instance, []
+        if inst.deadline is None:
+            out.append(Issue(("deadline",), "a rental needs a deadline"))
+        if self.billing not in BILLING:
+            out.append(Issue(("billing",), f"must be one of {', '.join(BILLING)}"))
+        if not _finite_nonneg(self.min_billed):
+            out.append(Issue(("min_billed",), "must be a finite number >= 0"))
+        if self.farm_hour_cost is not None:
+            if len(self.farm_hour_cost) != inst.m:
+                out.append(Issue(("farm",), "one hour_cost (or none) per farm node"))
+            for f, c in enumerate(self.farm_hour_cost):
+                if c is not None and not _finite_nonneg(c):
+                    out.append(Issue(("farm", f, "hour_cost"), "must be a finite number >= 0"))
+        if not self.kinds and inst.m == 0:
+            out.append(Issue(("kinds",), "no kind to rent and no farm node"))
+        names = [k.name for k in self.kinds]
+        for i, k in enumerate(self.kinds):
+            where = ("kinds", i)
+            if not k.name or names.index(k.name) != i:
+                out.append(Issue((*where, "name"), f"empty or duplicate kind name {k.name!r}"))
+            if not (_finite_nonneg(k.speed) and k.speed > 0):
+                out.append(Issue((*where, "speed"), "must be a finite number > 0"))
+            for field in ("hour_cost", "boot"):
+                if not _finite_nonneg(getattr(k, field)):
+                    out.append(Issue((*where, field), "must be a finite number >= 0"))
+            if not (isinstance(k.max_count, int) and k.max_count >= 0):
+                out.append(Issue((*where, "max_count"), "must be a whole number >= 0"))
+        return out
+
+
+def _finite_nonneg(x: object) -> bool:
+    return isinstance(x, int | float) and math.isfinite(x) and x >= 0
+
+
+def rental_instance(
+    durations: FloatArray | list[float],
+    farm: tuple[Node, ...] | list[Node],
+    deadline: float,
+    *,
+    job_ids: list[str] | None = None,
+    requires: list[frozenset[str]] | None = None,
+    resolution: float = 1.0,
+) -> Instance:
+    """The ``instance`` of a :class:`RentalArgs` (the farm may be empty, which
+    ``Instance.build`` refuses; :meth:`RentalArgs.check` validates it with the kinds)."""
+    d = np.asarray(durations, dtype=np.float64)
+    req = tuple(frozenset(r) for r in requires) if requires is not None else None
+    return Instance(
+        job_ids=tuple(job_ids) if job_ids is not None else tuple(f"job-{i}" for i in range(d.size)),
+        durations=d,
+        nodes=tuple(farm),
+        requires=req if req and any(req) else None,
+        deadline=float(deadline),
+        resolution=float(resolution),
+    )
+
+
+def _check_runnable(mk: Market) -> None:
+    """Refuse, by name, a job no node provides the tags for, and a job no node that can
+    run it finishes by the deadline (exactly: start + duration / speed <= deadline)."""
+    inst, d = mk.instance, mk.d_exact
+    names, cls = mk.classes
+    starts = [(nd.provides, Fraction(nd.free_at), Fraction(nd.speed)) for nd in inst.nodes]
+    starts += [
+        (o.provides, Fraction(o.boot), Fraction(o.speed)) for o in mk.offers if o.farm is None
+    ]
+    no_tag, too_long = [], []
+    longest: dict[int, Fraction] = {}  # per class: the most work a node serving it can do
+    for c, req in enumerate(names):
+        caps = [sp * (d - st) for prov, st, sp in starts if req <= prov and st <= d]
+        if caps:
+            longest[c] = max(caps)
+    for j, p in enumerate(inst.durations.tolist()):
+        c = int(cls[j])
+        if c not in longest:
+            no_tag.append(j)
+        elif Fraction(p) > longest[c]:
+            too_long.append(j)
+    for bad, why in (
+        (no_tag, "require tags no kind or farm node provides"),
+        (too_long, "are too long for the deadline on every node that can run them"),
+    ):
+        if bad:
+            ids = [inst.job_ids[j] for j in bad]
+            raise Infeasible(
+                f"{len(bad)} job(s) {why}: "
+                + ", ".join(ids[:10])
+                + (" ..." if len(ids) > 10 else ""),
+                jobs=ids,
+                issues=[
+                    Issue(("jobs", j, "requires" if bad is no_tag else "duration"), why)
+                    for j in bad[:20]
+                ],
+            )
+
+
+def _check_counts(mk: Market) -> None:
+    """Refuse, naming the kinds' ``max_count``, a set of jobs whose work beyond the free
+    farm exceeds what every node that can run them can do, each kind at its max_count."""
+    for sub, need, offers in hall_sets(mk):
+        room_all = sum(
+            (max(Fraction(0), mk.capacity(o, mk.htop(o))) * mk.offers[o].max_count for o in offers),
+            Fraction(0),
+        )
+        if room_all < need:
+            kinds = [o for o in sorted(offers) if mk.offers[o].farm is None]
+            _, cls = mk.classes
+            idx = np.flatnonzero(np.isin(cls, sorted(sub))).tolist()
+            jobs = [mk.instance.job_ids[j] for j in idx]
+            if not kinds:
+                raise Infeasible(
+                    f"the farm cannot finish {len(jobs)} job(s) by the deadline and no kind "
+                    "can run them: " + ", ".join(jobs[:10]) + (" ..." if len(jobs) > 10 else ""),
+                    jobs=jobs,
+                    issues=[Issue(("jobs", j, "requires"), "no kind can run it") for j in idx[:20]],
+                )
+            raise InvalidInstance(
+                f"more nodes are needed than max_count allows: {float(need):.6g} s of work "
+                f"beyond the farm, at most {float(room_all):.6g} s on the kinds that can run it",
+                [Issue(("kinds", o, "max_count"), "too few nodes for the work") for o in kinds],
+            )
+
+
+# -- the answer ------------------------------------------------------------------------
+
+
+@dataclass(frozen=True, eq=False)
+class RentalResult(Certified):
+    """What to rent, the plan, its exact cost and a proven lower bound on the cheapest
+    cost (:class:`~.certified.Certified` decides ``proven_optimal`` and ``gap``)."""
+
+    schedule: Schedule
+    rent: dict[str, int]
+    cost_exact: Fraction
+    bound_exact: Fraction
+    bound_source: str
+    bounds: dict[str, float]
+    evidence: dict[str, Any]
+    stop_reason: StopReason
+    solve_seconds: float
+    first_answer_seconds: float
+    single_kind: dict[str, dict[str, Any]]
+    kinds: tuple[Kind, ...]
+    billing: str
+    min_billed: float
+    farm_hour_cost: tuple[float | None, ...] | None = None
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "stop_reason", StopReason(self.stop_reason))
+        self.check_certificate()
+
+    @property
+    def exact_value(self) -> Fraction:
+        return self.cost_exact
+
+    @property
+    def exact_lower_bound(self) -> Fraction:
+        return self.bound_exact
+
+    @property
+    def cost(self) -> float:
+        """The plan's cost, exactly summed, rounded to the nearest float."""
+        return float(self.cost_exact)
+
+    @property
+    def cost_lower_bound(self) -> float:
+        """The proven bound, rounded down."""
+        return down(self.bound_exact)
+
+    def to_dict(self, *, with_plan: bool = True) -> dict[str, Any]:
+        """The contract's rental answer."""
+        inst = self.schedule.instance
+        m = len(inst.nodes) - sum(self.rent.values())
+        costs = self.farm_hour_cost or (None,) * m
+        out: dict[str, Any] = {
+            "farm": [
+                {
+                    "id": nd.id,
+                    "speed": nd.speed,
+                    "provides": sorted(nd.provides),
+                    "free_at": nd.free_at,
+                    "hour_cost": c,
+                }
+                for nd, c in zip(inst.nodes[:m], costs, strict=True)
+            ],
+            "kinds": [
+                {
+                    "name": k.name,
+                    "speed": k.speed,
+                    "provides": sorted(k.provides),
+                    "hour_cost": k.hour_cost,
+                    "boot": k.boot,
+                    "max_count": k.max_count,
+                }
+                for k in self.kinds
+            ],
+            "billing": self.billing,
+            "min_billed": self.min_billed,
+            "deadline": inst.deadline,
+            "rent": dict(self.rent),
+            "cost": self.cost,
+            "cost_lower_bound": self.cost_lower_bound,
+            "bound_source": self.bound_source,
+            "bounds": dict(self.bounds),
+            "proven_optimal": self.proven_optimal,
+            "gap": self.gap if math.isfinite(self.gap) else None,
+            "stop_reason": str(self.stop_reason),
+            "solve_seconds": self.solve_seconds,
+            "first_answer_seconds": self.first_answer_seconds,
+            "certificate": dict(self.evidence),
+            "single_kind": dict(self.single_kind),
+            "caution": CAUTION,
+        }
+        if with_plan:
+            out["plan"] = self.schedule.to_assignment()
+        return out
+
+
+# -- the search ------------------------------------------------------------------------
+
+#: share of the budget the mixed search may use before the single-kind answers
+MIX_SHARE = 0.75
+#: guided packings tried from the cover relaxation
+GUIDED_TRIES = 6
+
+
+@dataclass
+class _Found:
+    best: Verified
+    bound: Fraction
+    source: str
+    bounds: dict[str, Fraction]
+    evidence: dict[str, Any]
+    first: float
+    ran_out: bool = False
+
+    @property
+    def proven(self) -> bool:
+        return self.bound >= self.best.cost
+
+
+def rent(args: RentalArgs, budget: Budget) -> RentalResult:
+    """The cheapest rental found within ``budget``, with a proven lower bound on the
+    cheapest cost (see the module docstring)."""
+    mk = args.check()
+    found = _search(mk, budget.child(MIX_SHARE) if len(args.kinds) > 1 else budget, budget)
+    single: dict[str, dict[str, Any]] = {}
+    for i, k in enumerate(args.kinds):
+        share = 1.0 / (len(args.kinds) - i)
+        single[k.name] = _single(
+            mk, i, budget.child(share) if len(args.kinds) > 1 else budget, found
+        )
+    src = found.source
+    stop = budget.stop_reason(proven=found.proven, ran_out=found.ran_out or budget.expired())
+    return RentalResult(
+        schedule=found.best.schedule,
+        rent=found.best.rent,
+        cost_exact=found.best.cost,
+        bound_exact=found.bound,
+        bound_source=src,
+        bounds={k: down(v) for k, v in found.bounds.items()},
+        evidence=found.evidence,
+        stop_reason=stop,
+        solve_seconds=budget.elapsed(),
+        first_answer_seconds=found.first,
+        single_kind=single,
+        kinds=args.kinds,
+        billing=args.billing,
+        min_billed=args.min_billed,
+        farm_hour_cost=args.farm_hour_cost,
+    )
+
+
+def _single(mk: Market, i: int, budget: Budget, mixed: _Found) -> dict[str, Any]:
+    """The cheapest answer renting kind ``i`` only (with the whole farm)."""
+    kind = mk.offers[i]
+    offers = (kind, *[o for o in mk.offers if o.farm is not None])
+    sub = dataclasses.replace(mk, offers=offers)
+    if len(mk.offers) - sum(o.farm is not None for o in mk.offers) == 1:
+        found = mixed
+    else:
+        try:
+            _check_runnable(sub)
+            _check_counts(sub)
+            found = _search(sub, budget, budget)
+        except (Infeasible, InvalidInstance) as e:
+            return {"feasible": False, "reason": e.detail}
+    return {
+        "feasible": True,
+        "rent": found.best.rent.get(kind.name, 0),
+        "cost": float(found.best.cost),
+        "cost_lower_bound": down(found.bound),
+        "proven_optimal": found.proven,
+    }
+
+
+def _search(mk: Market, budget: Budget, outer: Budget) -> _Found:
+    plan, left = greedy(mk)
+    best = verify(mk, plan) if not left else None
+    bounds: dict[str, Fraction] = {}
+    evidence: dict[str, Any] = {}
+    bounds["work"], evidence["work"] = work_bound(mk)
+    if best is None:  # the greedy missed: pack the cover relaxation's optimum instead
+        best = _guided(mk, None, budget)
+    if best is None:
+        raise InvalidInstance(
+            "no plan within the kinds' max_count was found (not proven impossible)",
+            [
+                Issue(("kinds", o, "max_count"), "the search found no plan")
+                for o, off in enumerate(mk.offers)
+                if off.farm is None
+            ],
+        )
+    found = _Found(best, bounds["work"], "work", bounds, evidence, budget.elapsed())
+    if not found.proven:
+        cov = cover_bound(mk, best.cost, budget.child(0.5))
+        evidence["cover"] = {"complete": cov.complete, "visited": cov.visited}
+        if cov.complete:
+            bounds["cover"] = min(cov.value, best.cost)
+        _settle(found)
+        if not found.proven:
+            guided = _guided(mk, best.cost, budget)
+            if guided is not None and guided.key < found.best.key:
+                found.best = guided
+            _settle(found)
+    if not found.proven and not budget.expired():
+        better = improve(mk, as_plan(mk, found.best), budget)
+        v = verify(mk, better) if better is not None else None
+        if v is not None and v.key < found.best.key:
+            found.best = v
+        _settle(found)
+    if not found.proven and not budget.expired():
+        bounds["lp_patterns"], evidence["lp_patterns"] = pattern_bound(mk, budget)
+        _settle(found)
+    found.ran_out = budget.expired() and not found.proven
+    return found
+
+
+def _settle(found: _Found) -> None:
+    """The best bound so far (never above the plan's cost: the bounds are proofs)."""
+    src = max(found.bounds, key=lambda k: found.bounds[k])
+    found.bound, found.source = found.bounds[src], src
+    if found.bound > found.best.cost:
+        raise ArithmeticError(f"bound {src} above a verified plan's cost: a bound is wrong")
+
+
+def _guided(mk: Market, upper: Fraction | None, budget: Budget) -> Verified | None:
+    """Pack the ``cover`` relaxation's optimum best fit decreasing (the rest by cheapest
+    insertion); when jobs are left over, ask the relaxation again for that much more
+    work. The best verified plan found, or None."""
+    extra = Fraction(0)
+    best: Verified | None = None
+    for _ in range(GUIDED_TRIES):
+        if budget.expired():
+            break
+        cov = cover_bound(mk, None, budget.child(0.3), extra=extra)
+        if not cov.units and extra > 0:
+            break
+        plan, left = pack(mk, _caps(mk, cov))
+        counts: dict[int, int] = {}
+        for b in plan:
+            if b.offer is not None:
+                counts[b.offer] = counts.get(b.offer, 0) + 1
+        still = place_rented(mk, plan, left, counts)
+        v = verify(mk, plan) if not still else None
+        if v is not None and (best is None or v.key < best.key):
+            best = v
+        if not left or (upper is not None and cov.value >= upper):
+            break
+        lost = sum(room(mk, b) for b in plan if b.farm is None and b.jobs) + float(
+            mk.instance.durations[left].sum()
+        )
+        extra += Fraction(max(lost, float(mk.instance.durations[left].max())))
+    return best
+
+
+def _caps(mk: Market, cov: Any) -> list[tuple[int | None, int | None, float]]:
+    """The nodes of a cover solution: the free farm, and per offer its nodes with their
+    billed units spread to do the most work (each up to the units ending by the
+    deadline first)."""
+    caps: list[tuple[int | None, int | None, float]] = [
+        (None, f, float(mk.farm_capacity(f))) for f in mk.free_farm
+    ]
+    d = mk.d_exact
+    for o, h_total in cov.units.items():
+        n = cov.nodes[o]
+        if n == 0:
+            continue
+        lo, hi = mk.hmin(o), mk.htop(o)
+        fl = max(lo, min(hi, math.floor(d / mk.unit)))
+        hs = [lo] * n
+        rest = h_total - lo * n
+        for limit in (fl, hi):
+            for i in range(n):
+                add = min(rest, limit - hs[i])
+                if add > 0:
+                    hs[i] += add
+                    rest -= add
+        for h in hs:
+            caps.append((o, mk.offers[o].farm, float(mk.capacity(o, h))))
+    return caps
+
+
+__all__ = ["CAUTION", "Kind", "RentalArgs", "RentalResult", "rent", "rental_instance"]
