@@ -242,6 +242,23 @@ class SizingNodeSchema(StrictSchema):
     slots = NodeSchema._declared_fields["slots"]
 
 
+class FarmNodeSchema(NodeSchema):
+    """A node of the farm you have (a rental's ``farm``); free unless it has a price."""
+
+    hour_cost = FiniteNumber(allow_none=True, validate=validate.Range(min=0, max=1e9))
+
+
+class KindSchema(StrictSchema):
+    """A kind of node you may rent (a rental's ``kinds``)."""
+
+    name = _ident()
+    speed = FiniteNumber(validate=validate.Range(*SPEEDS))
+    provides = _tags()
+    hour_cost = FiniteNumber(required=True, validate=validate.Range(min=0, max=1e9))
+    boot = FiniteNumber(validate=_seconds())
+    max_count = WholeNumber(validate=validate.Range(min=0, max=10**6))
+
+
 class SizingRequestSchema(StrictSchema):
     """The body of ``POST /v1/sizings``."""
 
@@ -249,6 +266,10 @@ class SizingRequestSchema(StrictSchema):
     jobs = JobList(required=True)
     deadline = FiniteNumber(required=True, validate=_seconds(MIN_DEADLINE))
     node = fields.Nested(SizingNodeSchema)
+    #: renting to a deadline: the farm you have and the kinds you may rent
+    farm = fields.List(fields.Nested(FarmNodeSchema))
+    kinds = fields.List(fields.Nested(KindSchema), validate=validate.Length(min=1))
+    min_billed = FiniteNumber(validate=_seconds())
     limits = _limits()
     max_nodes = WholeNumber(validate=validate.Range(min=1))
     time_budget = FiniteNumber(validate=validate.Range(min=0))

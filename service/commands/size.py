@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import argparse
+from typing import Any
 
+from ..csvio import plural
 from ._io import add_sizing_options, check_request, print_json, sizing_batch, time_budget
 from .confidence import block_lines, target_lines
 
@@ -42,6 +44,8 @@ def run(args: argparse.Namespace) -> int:
         )
     if args.json:
         print_json(answer.to_dict(with_plan=not args.no_plan))
+    elif "rent" in (doc := answer.to_dict(with_plan=False)):
+        print(rental_lines(doc))
     else:
         print(answer.result.summary())
         if "confidence" in answer.extra:
@@ -49,3 +53,21 @@ def run(args: argparse.Namespace) -> int:
         if "confidence_sizing" in answer.extra:
             print(target_lines(answer.extra["confidence_sizing"]))
     return 0
+
+
+def rental_lines(doc: dict[str, Any]) -> str:
+    """A rental answer (``farm`` and ``kinds``), a few lines for people."""
+    rent = ", ".join(f"{n} x {k}" for k, n in doc["rent"].items() if n) or "nothing"
+    verdict = "proven cheapest" if doc["proven_optimal"] else f"gap {100 * (doc['gap'] or 0):.2f} %"
+    lines = [
+        f"rent            {rent}",
+        f"cost            {doc['cost']:,.2f} (at least {doc['cost_lower_bound']:,.2f}, "
+        f"{doc['bound_source']}; {verdict}; stopped: {doc['stop_reason']})",
+    ]
+    for kind, alone in (doc.get("single_kind") or {}).items():
+        if alone.get("feasible"):
+            count = plural(int(alone["rent"]), "node")
+            lines.append(f"only {kind:<10} {count}, {alone['cost']:,.2f}")
+    lines.append(f"solve time      {doc['solve_seconds']:.4f} s")
+    lines.append(doc["caution"])
+    return "\n".join(lines)

@@ -6,16 +6,18 @@ from collections.abc import Mapping
 from typing import Any
 
 from workers.planning.errors import InvalidInstance, Issue, Path
+from workers.planning.rental import RentalArgs
 from workers.planning.sizing import DEFAULT_BILLING, DEFAULT_MAX_NODES, check_options
 from workers.planning.sizing_request import SizingArgs
 from workers.planning.stage_sizing import StageSizingArgs
 from workers.planning.stages.problem import StageProblem
 
 from .plan import read_instance
+from .rental import is_rental, read_rental
 from .stages import is_staged, names_of
 
 
-def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs | StageSizingArgs:
+def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs | StageSizingArgs | RentalArgs:
     """Read a ``POST /v1/sizings`` body (fields: ``openapi/openapi.yaml``) without sizing.
 
     Every problem found is raised together as one :class:`InvalidInstance` whose issues
@@ -25,6 +27,8 @@ def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs | StageSizingArgs
         raise InvalidInstance(
             "the request body must be a JSON object", [Issue((), "not an object")]
         )
+    if is_rental(body):
+        return read_rental(body)
     issues: list[Issue] = []
     raw_node = body.get("node", {})
     if raw_node is None:

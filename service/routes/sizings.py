@@ -12,6 +12,8 @@ from __future__ import annotations
 
 from typing import Any
 
+from workers.planning.errors import InvalidInstance, Issue
+from workers.planning.rental import RentalArgs
 from workers.planning.stage_sizing import StageSizingArgs
 
 from ..reading import read_sizing_request, read_spread, refuse_stages
@@ -28,6 +30,11 @@ def validate_sizing(body: Any, settings: Settings) -> dict[str, Any]:
     args.check()
     asked = read_spread(data)
     if asked is not None:
+        if isinstance(args, RentalArgs):
+            raise InvalidInstance(
+                "the confidence simulation does not handle rentals yet",
+                [Issue(("spread",), "not supported with farm and kinds yet")],
+            )
         if isinstance(args, StageSizingArgs):
             refuse_stages(data, "the confidence simulation")
         else:

@@ -311,6 +311,9 @@ def sizing_context(sizing: dict[str, Any]) -> dict[str, Any]:
         ctx["progress_sentence"] = text + "."
     if not result:
         return ctx
+    if "rent" in result:  # renting to a deadline: what to rent and its proven floor
+        ctx["sentence"] = rental_sentence(result)
+        return ctx
     curve = result.get("curve") or []
     deadline = float(result.get("deadline", 0) or 0)
     need, low = result.get("nodes_needed"), result.get("nodes_lower_bound")
@@ -388,6 +391,20 @@ def sizing_context(sizing: dict[str, Any]) -> dict[str, Any]:
     if conf_text:
         ctx["confidence_sentence"] = conf_text
     return ctx
+
+
+def rental_sentence(result: dict[str, Any]) -> str:
+    """One paragraph: what to rent, at what cost, how close to the cheapest, the caution."""
+    rent = [f"{n} {kind}" for kind, n in result["rent"].items() if n]
+    what = "Rent " + (", ".join(rent) if rent else "nothing: the farm you have is enough")
+    text = (
+        f"{what}, for an estimated {float(result['cost']):,.2f}; no plan meeting the "
+        f"deadline costs less than {float(result['cost_lower_bound']):,.2f}"
+    )
+    if result.get("proven_optimal"):
+        text += " (proven cheapest)"
+    text += f". {result.get('caution', '')}"
+    return text
 
 
 def sizing_confidence_sentence(result: dict[str, Any]) -> str | None:

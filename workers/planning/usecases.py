@@ -17,6 +17,7 @@ from .confidence.request import SpreadRequest
 from .errors import InvalidInstance, Issue
 from .model import Instance
 from .progress import ProgressHook
+from .rental import RentalArgs, RentalResult
 from .result import PlanResult
 from .sizing import SizingProgressHook, SizingResult
 from .sizing_request import SizingArgs
@@ -26,7 +27,11 @@ from .stages.result import StageResult
 
 #: what an answer wraps: a plan (of a batch or of a stage graph) or a sizing
 R = TypeVar(
-    "R", PlanResult, PlanResult | StageResult, SizingResult, SizingResult | StageSizingResult
+    "R",
+    PlanResult,
+    PlanResult | StageResult,
+    SizingResult,
+    SizingResult | StageSizingResult | RentalResult,
 )
 
 
@@ -54,7 +59,7 @@ class PlanAnswer(Answer[PlanResult | StageResult]):
         return self.result.to_json(self.extra)
 
 
-class SizingAnswer(Answer[SizingResult | StageSizingResult]):
+class SizingAnswer(Answer[SizingResult | StageSizingResult | RentalResult]):
     """A sizing and, with estimate spread, its ``confidence`` (and ``confidence_sizing``)."""
 
 
@@ -92,7 +97,7 @@ def plan(
 
 
 def size(
-    args: SizingArgs | StageSizingArgs,
+    args: SizingArgs | StageSizingArgs | RentalArgs,
     *,
     time_budget: float,
     spread: SpreadRequest | None = None,
@@ -105,6 +110,15 @@ def size(
     from .confidence import sizing_confidence
     from .sizing_request import size_request
 
+    if isinstance(args, RentalArgs):
+        if spread is not None:
+            raise InvalidInstance(
+                "the confidence simulation does not handle rentals yet",
+                [Issue(("spread",), "not supported with farm and kinds yet")],
+            )
+        from .rental import rent
+
+        return SizingAnswer(rent(args, Budget(time_budget, should_stop)))
     if isinstance(args, StageSizingArgs):
         if spread is not None:
             raise InvalidInstance(

@@ -1,0 +1,77 @@
+"""Reading a rental (``POST /v1/sizings`` with ``farm`` and ``kinds``) into the core's
+:class:`RentalArgs`: the farm you have, the kinds you may rent, billing (issue 18)."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Any
+
+from workers.planning.errors import InvalidInstance, Issue
+from workers.planning.rental import Kind, RentalArgs, rental_instance
+
+from .plan import read_instance
+
+
+def is_rental(body: Mapping[str, Any]) -> bool:
+    """Whether a sizing body asks what to rent (it gives ``kinds`` or a ``farm``)."""
+    return body.get("kinds") is not None or body.get("farm") is not None
+
+
+def read_rental(body: Mapping[str, Any]) -> RentalArgs:
+    """The jobs, the farm (free nodes, or priced with ``hour_cost``), the kinds, the
+    deadline and the billing; each problem by field path. ``node`` (one kind of the
+    single-kind sizing) and graph fields are refused beside ``kinds`` and ``farm``."""
+    issues: list[Issue] = []
+    if not body.get("kinds"):
+        issues.append(Issue(("kinds",), "required with farm: the kinds you may rent"))
+    for key in ("node", "limits", "curve_nodes", "max_nodes", "node_hour_cost"):
+        if key in body:
+            issues.append(Issue((key,), "not used when renting kinds: give kinds instead"))
+    if body.get("deadline") is None:
+        issues.append(Issue(("deadline",), "required: the time by which every job must be done"))
+    jobs = body.get("jobs") or []
+    if any(isinstance(j, Mapping) and (j.get("after") or j.get("uses")) for j in jobs):
+        issues.append(Issue(("jobs",), "renting does not handle stage graphs yet"))
+    if issues:
+        raise InvalidInstance(f"{len(issues)} problem(s) in the rental request", issues)
+    farm = list(body.get("farm") or [])
+    # the jobs and the farm read as a plan body (every check and message of plans); a
+    # farm of no nodes gets one placeholder that is dropped again
+    plan_body = {
+        "jobs": jobs,
+        "nodes": [{k: v for k, v in nd.items() if k != "hour_cost"} for nd in farm]
+        or [{"id": "placeholder"}],
+        "deadline": body.get("deadline"),
+        "resolution": body.get("resolution"),
+    }
+    base = read_instance(plan_body)
+    nodes = base.nodes if farm else ()
+    inst = rental_instance(
+        base.durations,
+        nodes,
+        float(body["deadline"]),
+        job_ids=list(base.job_ids),
+        requires=list(base.requires) if base.requires is not None else None,
+        resolution=base.resolution,
+    )
+    prices = [nd.get("hour_cost") for nd in farm]
+    kinds = tuple(
+        Kind(
+            name=str(k["name"]),
+            speed=float(k.get("speed", 1.0)),
+            provides=frozenset(k.get("provides") or ()),
+            hour_cost=float(k["hour_cost"]),
+            boot=float(k.get("boot", 0.0)),
+            max_count=int(k.get("max_count", 1000)),
+        )
+        for k in body.get("kinds") or []
+    )
+    return RentalArgs(
+        instance=inst,
+        kinds=kinds,
+        billing=str(body.get("billing", "second")),
+        min_billed=float(body.get("min_billed", 0.0)),
+        farm_hour_cost=tuple(None if c is None else float(c) for c in prices)
+        if any(c is not None for c in prices)
+        else None,
+    )
