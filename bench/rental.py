@@ -26,7 +26,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from workers.planning.budget import Budget
 from workers.planning.model import Node
-from workers.planning.rental import Kind, RentalArgs, rent, rental_instance
+from workers.planning.rental import Kind, RentalArgs, rent, rental_instance, warm_up_rental
 
 KINDS = (
     Kind("cpu-small", 1.0, frozenset(), 0.12, 90.0, 400),
@@ -63,7 +63,7 @@ def main() -> None:
     args = ap.parse_args()
     import dataclasses
 
-    rent(dataclasses.replace(batch(999, 200, 5), billing="hour"), Budget(0.5))  # warm up
+    warm_up_rental()
     for billing in args.billing:
         rows = []
         for seed in range(args.batches):

@@ -35,19 +35,9 @@ from .certified import Certified
 from .errors import Infeasible, InvalidInstance, Issue
 from .model import FloatArray, Instance, Node
 from .rational import down
-from .rental_bounds import cover_bound, hall_sets, pattern_bound, work_bound
-from .rental_plan import (
-    Market,
-    Offer,
-    Verified,
-    as_plan,
-    greedy,
-    improve,
-    pack,
-    place_rented,
-    room,
-    verify,
-)
+from .rental_bounds import hall_sets
+from .rental_plan import Market, Offer
+from .rental_search import Found, search
 from .result import Schedule
 from .sizing_result import BILLING
 
@@ -328,30 +318,13 @@ class RentalResult(Certified):
 
 #: share of the budget the mixed search may use before the single-kind answers
 MIX_SHARE = 0.75
-#: guided packings tried from the cover relaxation
-GUIDED_TRIES = 6
-
-
-@dataclass
-class _Found:
-    best: Verified
-    bound: Fraction
-    source: str
-    bounds: dict[str, Fraction]
-    evidence: dict[str, Any]
-    first: float
-    ran_out: bool = False
-
-    @property
-    def proven(self) -> bool:
-        return self.bound >= self.best.cost
 
 
 def rent(args: RentalArgs, budget: Budget) -> RentalResult:
     """The cheapest rental found within ``budget``, with a proven lower bound on the
     cheapest cost (see the module docstring)."""
     mk = args.check()
-    found = _search(mk, budget.child(MIX_SHARE) if len(args.kinds) > 1 else budget, budget)
+    found = search(mk, budget.child(MIX_SHARE) if len(args.kinds) > 1 else budget, budget)
     single: dict[str, dict[str, Any]] = {}
     for i, k in enumerate(args.kinds):
         share = 1.0 / (len(args.kinds) - i)
@@ -379,7 +352,7 @@ def rent(args: RentalArgs, budget: Budget) -> RentalResult:
     )
 
 
-def _single(mk: Market, i: int, budget: Budget, mixed: _Found) -> dict[str, Any]:
+def _single(mk: Market, i: int, budget: Budget, mixed: Found) -> dict[str, Any]:
     """The cheapest answer renting kind ``i`` only (with the whole farm)."""
     kind = mk.offers[i]
     offers = (kind, *[o for o in mk.offers if o.farm is not None])
@@ -390,7 +363,7 @@ def _single(mk: Market, i: int, budget: Budget, mixed: _Found) -> dict[str, Any]
         try:
             _check_runnable(sub)
             _check_counts(sub)
-            found = _search(sub, budget, budget)
+            found = search(sub, budget, budget)
         except (Infeasible, InvalidInstance) as e:
             return {"feasible": False, "reason": e.detail}
     return {
@@ -402,111 +375,37 @@ def _single(mk: Market, i: int, budget: Budget, mixed: _Found) -> dict[str, Any]
     }
 
 
-def _search(mk: Market, budget: Budget, outer: Budget) -> _Found:
-    plan, left = greedy(mk)
-    best = verify(mk, plan) if not left else None
-    bounds: dict[str, Fraction] = {}
-    evidence: dict[str, Any] = {}
-    bounds["work"], evidence["work"] = work_bound(mk)
-    if best is None:  # the greedy missed: pack the cover relaxation's optimum instead
-        best = _guided(mk, None, budget)
-    if best is None:
-        raise InvalidInstance(
-            "no plan within the kinds' max_count was found (not proven impossible)",
-            [
-                Issue(("kinds", o, "max_count"), "the search found no plan")
-                for o, off in enumerate(mk.offers)
-                if off.farm is None
-            ],
+def warm_up_rental() -> None:
+    """Load what a rental's first answer would otherwise pay for: the compiled kernel of
+    ``Schedule.sequenced`` (``kernels.chain_starts``, used past 2,000 jobs) and the
+    solver paths on a small request. For ``warmup.py`` to register."""
+    from .kernels import chain_starts
+
+    chain_starts(
+        np.zeros(1, dtype=np.intp),
+        np.zeros(1, dtype=np.int32),
+        np.ones(1, dtype=np.float64),
+        np.zeros(1, dtype=np.float64),
+    )
+    farm = [Node("warm-farm", 1.5, frozenset({"gpu"}), 60.0)]
+    kinds = (
+        Kind("warm-a", 1.0, frozenset(), 1.0, 30.0),
+        Kind("warm-b", 2.0, frozenset({"gpu"}), 3.0),
+    )
+    d = [float(30 + (7 * i) % 200) for i in range(60)]
+    req = [frozenset({"gpu"}) if i % 5 == 0 else frozenset() for i in range(60)]
+    for billing in ("hour", "second"):
+        rent(
+            RentalArgs(rental_instance(d, farm, 3600.0, requires=req), kinds, billing), Budget(0.3)
         )
-    found = _Found(best, bounds["work"], "work", bounds, evidence, budget.elapsed())
-    if not found.proven:
-        cov = cover_bound(mk, best.cost, budget.child(0.5))
-        evidence["cover"] = {"complete": cov.complete, "visited": cov.visited}
-        if cov.complete:
-            bounds["cover"] = min(cov.value, best.cost)
-        _settle(found)
-        if not found.proven:
-            guided = _guided(mk, best.cost, budget)
-            if guided is not None and guided.key < found.best.key:
-                found.best = guided
-            _settle(found)
-    if not found.proven and not budget.expired():
-        better = improve(mk, as_plan(mk, found.best), budget)
-        v = verify(mk, better) if better is not None else None
-        if v is not None and v.key < found.best.key:
-            found.best = v
-        _settle(found)
-    if not found.proven and not budget.expired():
-        bounds["lp_patterns"], evidence["lp_patterns"] = pattern_bound(mk, budget)
-        _settle(found)
-    found.ran_out = budget.expired() and not found.proven
-    return found
 
 
-def _settle(found: _Found) -> None:
-    """The best bound so far (never above the plan's cost: the bounds are proofs)."""
-    src = max(found.bounds, key=lambda k: found.bounds[k])
-    found.bound, found.source = found.bounds[src], src
-    if found.bound > found.best.cost:
-        raise ArithmeticError(f"bound {src} above a verified plan's cost: a bound is wrong")
-
-
-def _guided(mk: Market, upper: Fraction | None, budget: Budget) -> Verified | None:
-    """Pack the ``cover`` relaxation's optimum best fit decreasing (the rest by cheapest
-    insertion); when jobs are left over, ask the relaxation again for that much more
-    work. The best verified plan found, or None."""
-    extra = Fraction(0)
-    best: Verified | None = None
-    for _ in range(GUIDED_TRIES):
-        if budget.expired():
-            break
-        cov = cover_bound(mk, None, budget.child(0.3), extra=extra)
-        if not cov.units and extra > 0:
-            break
-        plan, left = pack(mk, _caps(mk, cov))
-        counts: dict[int, int] = {}
-        for b in plan:
-            if b.offer is not None:
-                counts[b.offer] = counts.get(b.offer, 0) + 1
-        still = place_rented(mk, plan, left, counts)
-        v = verify(mk, plan) if not still else None
-        if v is not None and (best is None or v.key < best.key):
-            best = v
-        if not left or (upper is not None and cov.value >= upper):
-            break
-        lost = sum(room(mk, b) for b in plan if b.farm is None and b.jobs) + float(
-            mk.instance.durations[left].sum()
-        )
-        extra += Fraction(max(lost, float(mk.instance.durations[left].max())))
-    return best
-
-
-def _caps(mk: Market, cov: Any) -> list[tuple[int | None, int | None, float]]:
-    """The nodes of a cover solution: the free farm, and per offer its nodes with their
-    billed units spread to do the most work (each up to the units ending by the
-    deadline first)."""
-    caps: list[tuple[int | None, int | None, float]] = [
-        (None, f, float(mk.farm_capacity(f))) for f in mk.free_farm
-    ]
-    d = mk.d_exact
-    for o, h_total in cov.units.items():
-        n = cov.nodes[o]
-        if n == 0:
-            continue
-        lo, hi = mk.hmin(o), mk.htop(o)
-        fl = max(lo, min(hi, math.floor(d / mk.unit)))
-        hs = [lo] * n
-        rest = h_total - lo * n
-        for limit in (fl, hi):
-            for i in range(n):
-                add = min(rest, limit - hs[i])
-                if add > 0:
-                    hs[i] += add
-                    rest -= add
-        for h in hs:
-            caps.append((o, mk.offers[o].farm, float(mk.capacity(o, h))))
-    return caps
-
-
-__all__ = ["CAUTION", "Kind", "RentalArgs", "RentalResult", "rent", "rental_instance"]
+__all__ = [
+    "CAUTION",
+    "Kind",
+    "RentalArgs",
+    "RentalResult",
+    "rent",
+    "rental_instance",
+    "warm_up_rental",
+]

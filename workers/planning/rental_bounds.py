@@ -202,7 +202,7 @@ def cover_bound(
             off.max_count,
             ratio,
         )
-    offers.sort(key=lambda o: (par[o][7], o))
+    offers.sort(key=lambda o: (-par[o][7], o))  # dearest per work first, cheapest last
     needs = [int((need + extra) * scale) for _, need, _ in sets]
     member = {o: [i for i, (_, _, offs) in enumerate(sets) if o in offs] for o in offers}
     ns = len(sets)
@@ -240,11 +240,12 @@ def cover_bound(
         return best
 
     def covering(o: int, need: int) -> int | None:
+        """The fewest units of offer ``o`` whose capacity reaches ``need``."""
         a1, b1, c2, _, hmin, htop, mc, _ = par[o]
         n = max(1, -(-need // c2))
         while n <= mc:
             h = max(n * hmin, -(-(need + b1 * n) // a1))
-            if h <= n * htop:
+            if h <= n * htop:  # more nodes need more units (boot, least units)
                 return h
             n += 1
         return None
@@ -261,7 +262,7 @@ def cover_bound(
     def dfs(i: int, cost: int, deficit: list[int]) -> None:
         nonlocal best_int, best_sol
         state["visits"] += 1
-        if state["visits"] > max_visits or (state["visits"] & 1023 == 0 and budget.expired()):
+        if state["visits"] > max_visits or (state["visits"] & 255 == 0 and budget.expired()):
             state["stopped"] = True
             return
         if all(dd <= 0 for dd in deficit):
@@ -274,36 +275,39 @@ def cover_bound(
         if r is None or (best_int is not None and cost + r >= best_int):
             return
         o = offers[i]
-        a1, _, _, uc, _, _, _, _ = par[o]
+        a1, _, _, uc, _, htop, mc, _ = par[o]
         need = max([deficit[a] for a in member[o]] or [0])
         if need <= 0:
             dfs(i + 1, cost, deficit)
             return
         top = covering(o, need)
-        h = top if top is not None else par[o][5] * par[o][6]
-        record = None
-        while h >= 0 and not state["stopped"]:
-            got = capacity(o, h)
-            if got is not None and (record is None or got[0] < record):
-                record = got[0] if record is None else record
-                chosen[o] = (h, got[1])
-                nd = list(deficit)
-                for a in member[o]:
-                    nd[a] -= got[0]
-                dfs(i + 1, cost + uc * h, nd)
-                del chosen[o]
-            if best_int is not None and h > 0:
-                # every h' <= h costs at least this (capacity at most a1 h'), when the
-                # offers after this one are dearer per work than its marginal price
-                tail = None
+        hs: range | list[int]
+        if i == len(offers) - 1:  # the last offer covers what is left at its least
+            hs = [] if top is None else [top]
+        else:
+            hs = range((htop * mc if top is None else top) + 1)
+        for h in hs:
+            if state["stopped"]:
+                break
+            if best_int is not None:
+                # a lower bound for every h' >= h: the units' cost, plus the deficits
+                # left priced at the cheapest later offers (capacity at most a1 h')
+                lb = cost + uc * h
                 for a in member[o]:
                     ra = ratio_from[a][i + 1]
-                    if ra >= 0 and ra * a1 >= uc and deficit[a] > 0:
-                        t = cost + ra * deficit[a] - (ra * a1 - uc) * h
-                        tail = t if tail is None or t > tail else tail
-                if tail is not None and tail >= best_int:
+                    if ra >= 0 and deficit[a] > 0 and uc >= ra * a1:
+                        lb = max(lb, math.ceil(cost + ra * deficit[a] + (uc - ra * a1) * h))
+                if lb >= best_int:
                     break
-            h -= 1
+            got = capacity(o, h)
+            if got is None:
+                continue
+            chosen[o] = (h, got[1])
+            nd = list(deficit)
+            for a in member[o]:
+                nd[a] -= got[0]
+            dfs(i + 1, cost + uc * h, nd)
+            del chosen[o]
 
     dfs(0, 0, needs)
     sol = best_sol or {}

@@ -156,6 +156,7 @@ class Bin:
     farm: int | None
     jobs: list[int] = field(default_factory=list)
     work: float = 0.0
+    spill: list[int] = field(default_factory=list)  # jobs given back by a fill
 
 
 Plan = list[Bin]

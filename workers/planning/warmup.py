@@ -23,6 +23,13 @@ def warm_up_exact() -> None:
     warm_up()
 
 
+def warm_up_rental() -> None:
+    """What renting to a deadline loads: the schedule kernel and a small rental."""
+    from .rental import warm_up_rental as warm
+
+    warm()
+
+
 def warm_up_all() -> None:
     """Everything: the greedy rules, the farm rules, sizing and the exact search."""
     from .model import Instance, Node
@@ -34,3 +41,4 @@ def warm_up_all() -> None:
     solve(Instance.build([3.0, 2.0, 2.0, 1.0] * 600, farm), "longest_first")
     warm_up_sizing()
     warm_up_exact()
+    warm_up_rental()

@@ -1,0 +1,185 @@
+"""The rental search (:func:`.rental.rent` calls :func:`search`): a first plan (the free
+farm filled scarcest class first, rented nodes opened on the cheapest offer per work), the
+``work`` bound, today's sizing answer when there is one kind and no farm
+(:mod:`.rental_single`), the ``cover`` relaxation's optimum packed node by node
+(:mod:`.rental_fill`; a plan at its cost is proven optimal), moves that re-kind or close
+rented nodes, and the ``lp_patterns`` bound, within the budget. Every plan is verified
+exactly (:func:`.rental_plan.verify`); every bound is exact (:mod:`.rental_bounds`).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from fractions import Fraction
+from typing import Any
+
+from .budget import Budget
+from .errors import InvalidInstance, Issue
+from .rental_bounds import cover_bound, pattern_bound, work_bound
+from .rental_fill import fill_targets, open_nodes
+from .rental_plan import (
+    Market,
+    Verified,
+    as_plan,
+    greedy,
+    improve,
+    place_rented,
+    room,
+    verify,
+)
+from .rental_single import applies, from_sizing
+
+#: guided packings tried from the cover relaxation
+GUIDED_TRIES = 6
+#: seconds a packing step of 10,000 jobs may take: not started with less left
+STEP_SECONDS = 0.25
+
+
+@dataclass
+class Found:
+    best: Verified
+    bound: Fraction
+    source: str
+    bounds: dict[str, Fraction]
+    evidence: dict[str, Any]
+    first: float
+    ran_out: bool = False
+
+    @property
+    def proven(self) -> bool:
+        return self.bound >= self.best.cost
+
+
+def _first(mk: Market, exact: bool) -> Verified | None:
+    """The first plan: the free farm filled scarcest class first (:mod:`.rental_fill`),
+    the rest on rented nodes opened on the offer with the least price per work; the
+    older greedy (:func:`.rental_plan.greedy`) when that leaves jobs over."""
+    farm = [(None, f, mk.farm_capacity(f)) for f in mk.free_farm]
+    plan, left = fill_targets(mk, farm, exact=exact)
+    left = open_nodes(mk, plan, left, exact=exact)
+    counts: dict[int, int] = {}
+    for b in plan:
+        if b.offer is not None:
+            counts[b.offer] = counts.get(b.offer, 0) + 1
+    if left:
+        left = place_rented(mk, plan, left, counts)
+    if not left:
+        v = verify(mk, plan)
+        if v is not None:
+            return v
+    plan, left = greedy(mk)
+    return verify(mk, plan) if not left else None
+
+
+def search(mk: Market, budget: Budget, outer: Budget) -> Found:
+    best = _first(mk, exact=False)
+    bounds: dict[str, Fraction] = {}
+    evidence: dict[str, Any] = {}
+    bounds["work"], evidence["work"] = work_bound(mk)
+    if best is None:  # the greedy missed: pack the cover relaxation's optimum instead
+        best = _guided(mk, None, budget)
+    if best is None:
+        raise InvalidInstance(
+            "no plan within the kinds' max_count was found (not proven impossible)",
+            [
+                Issue(("kinds", o, "max_count"), "the search found no plan")
+                for o, off in enumerate(mk.offers)
+                if off.farm is None
+            ],
+        )
+    first = budget.elapsed()
+    if applies(mk):  # one kind, no farm, no boot: today's sizing answer and bound
+        v, bounds["nodes"], evidence["nodes"] = from_sizing(mk, budget.child(0.5))
+        if v is not None and v.key < best.key:
+            best = v
+    found = Found(best, bounds["work"], "work", bounds, evidence, first)
+    _settle(found)
+    if not found.proven:
+        cov = cover_bound(mk, best.cost, budget.child(0.5))
+        evidence["cover"] = {"complete": cov.complete, "visited": cov.visited}
+        if cov.complete:
+            bounds["cover"] = min(cov.value, best.cost)
+        _settle(found)
+        if not found.proven:
+            guided = _guided(mk, best.cost, budget)
+            if guided is not None and guided.key < found.best.key:
+                found.best = guided
+            _settle(found)
+    if not found.proven and budget.remaining() >= STEP_SECONDS:
+        better = improve(mk, as_plan(mk, found.best), budget)
+        v = verify(mk, better) if better is not None else None
+        if v is not None and v.key < found.best.key:
+            found.best = v
+        _settle(found)
+    if not found.proven and not budget.expired():
+        bounds["lp_patterns"], evidence["lp_patterns"] = pattern_bound(mk, budget)
+        _settle(found)
+    found.ran_out = budget.expired() and not found.proven
+    return found
+
+
+def _settle(found: Found) -> None:
+    """The best bound so far (never above the plan's cost: the bounds are proofs)."""
+    src = max(found.bounds, key=lambda k: found.bounds[k])
+    found.bound, found.source = found.bounds[src], src
+    if found.bound > found.best.cost:
+        raise ArithmeticError(f"bound {src} above a verified plan's cost: a bound is wrong")
+
+
+def _guided(mk: Market, upper: Fraction | None, budget: Budget) -> Verified | None:
+    """Pack the ``cover`` relaxation's optimum best fit decreasing (the rest by cheapest
+    insertion); when jobs are left over, ask the relaxation again for that much more
+    work. The best verified plan found, or None."""
+    extra = Fraction(0)
+    best: Verified | None = None
+    for _ in range(GUIDED_TRIES):
+        if budget.remaining() < STEP_SECONDS:  # a packing takes about this long
+            break
+        cov = cover_bound(mk, None, budget.child(0.3), extra=extra)
+        if not cov.units and extra > 0:
+            break
+        plan, left = fill_targets(mk, _caps(mk, cov))
+        left = open_nodes(mk, plan, left)
+        counts: dict[int, int] = {}
+        for b in plan:
+            if b.offer is not None:
+                counts[b.offer] = counts.get(b.offer, 0) + 1
+        still = place_rented(mk, plan, left, counts)
+        v = verify(mk, plan) if not still else None
+        if v is not None and (best is None or v.key < best.key):
+            best = v
+        if not left or (upper is not None and cov.value >= upper):
+            break
+        lost = sum(room(mk, b) for b in plan if b.farm is None and b.jobs) + float(
+            mk.instance.durations[left].sum()
+        )
+        extra += Fraction(max(lost, float(mk.instance.durations[left].max())))
+    return best
+
+
+def _caps(mk: Market, cov: Any) -> list[tuple[int | None, int | None, Fraction]]:
+    """The nodes of a cover solution: the free farm, and per offer its nodes with their
+    billed units spread to do the most work (each up to the units ending by the
+    deadline first)."""
+    caps: list[tuple[int | None, int | None, Fraction]] = [
+        (None, f, mk.farm_capacity(f)) for f in mk.free_farm
+    ]
+    d = mk.d_exact
+    for o, h_total in cov.units.items():
+        n = cov.nodes[o]
+        if n == 0:
+            continue
+        lo, hi = mk.hmin(o), mk.htop(o)
+        fl = max(lo, min(hi, math.floor(d / mk.unit)))
+        hs = [lo] * n
+        rest = h_total - lo * n
+        for limit in (fl, hi):
+            for i in range(n):
+                add = min(rest, limit - hs[i])
+                if add > 0:
+                    hs[i] += add
+                    rest -= add
+        for h in hs:
+            caps.append((o, mk.offers[o].farm, mk.capacity(o, h)))
+    return caps
