@@ -39,7 +39,7 @@ import time
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
-TENANTS = ("lanternhill", "brightwater", "copperfield", "mossgate")
+TENANTS = ("quillfernvale", "brightwater", "copperfield", "mossgate")
 sys.path.insert(0, str(ROOT / "tests"))
 
 from live import free_port  # noqa: E402

@@ -145,7 +145,7 @@ class WorkerProcs:
 
 
 def fine_grained(seed: int, n: int = 40, m: int = 4) -> dict[str, Any]:
-    """An invented Lantern Hill batch of 40 fx caches (30 to 90 min, timed to the
+    """An invented Quillfern Vale batch of 40 fx caches (30 to 90 min, timed to the
     microsecond) on 4 nodes. With durations this fine an even split is all but impossible,
     so no lower bound reaches the optimum and an exact search can only prove optimality by
     exhausting a multiway number-partitioning tree (Korf 2009, "Multi-way number
@@ -155,7 +155,7 @@ def fine_grained(seed: int, n: int = 40, m: int = 4) -> dict[str, Any]:
     rng = np.random.default_rng(seed)
     durations = np.round(rng.uniform(1800, 5400, size=n), 6)
     return {
-        "name": "Lantern Hill fx caches, timed to the microsecond",
+        "name": "Quillfern Vale fx caches, timed to the microsecond",
         "jobs": [
             {"id": f"lh_fx_cache_{i:03d}", "duration": float(d), "group": f"fx{i % 4}"}
             for i, d in enumerate(durations)

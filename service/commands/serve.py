@@ -27,7 +27,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--port", type=int, default=8080, help="TCP port (default 8080; 0: any free port)"
     )
     p.add_argument(
-        "--demo", action="store_true", help="plan the Lantern Hill demo batches at start"
+        "--demo", action="store_true", help="plan the Quillfern Vale demo batches at start"
     )
 
 

@@ -126,7 +126,7 @@ def test_demo_batches_are_valid_requests() -> None:
         body = json.loads(path.read_text())
         data = load_plan_request(body, Settings())
         sizes.append(read_instance(data).n)
-        assert body["name"].startswith("Lantern Hill")
+        assert body["name"].startswith("Quillfern Vale")
     assert max(sizes) >= 190
 
 

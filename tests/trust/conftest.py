@@ -1,7 +1,7 @@
 """Fixtures of the trust tests: apps with a keys file on fakeredis (the real redis-server
 is the session's, ``redis_server`` in tests/conftest.py).
 
-The tenants are productions of an invented studio: ``lanternhill`` and ``brightwater``;
+The tenants are productions of an invented studio: ``quillfernvale`` and ``brightwater``;
 ``ops`` holds the operators' admin key.
 """
 
@@ -19,7 +19,7 @@ from service.app import create_app
 from service.settings import Settings
 
 KEYS = {
-    "lanternhill": "lh-7f3a9c0e5b2d4a1f8e6c",
+    "quillfernvale": "lh-7f3a9c0e5b2d4a1f8e6c",
     "brightwater": "bw-2c8e4f6a0b1d3e5f7a9c",
     "ops": "ops-9e8d7c6b5a4f3e2d1c0b",
 }

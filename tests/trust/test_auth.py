@@ -38,10 +38,10 @@ def test_no_key_and_unknown_key_are_401(keyed_app: Any) -> None:
     c = keyed_app.test_client()
     bad = [
         {},
-        {"Authorization": "Basic " + KEYS["lanternhill"]},
+        {"Authorization": "Basic " + KEYS["quillfernvale"]},
         {"Authorization": "Bearer "},
         {"Authorization": "Bearer not-a-key"},
-        {"Authorization": "Bearer " + KEYS["lanternhill"] + "x"},
+        {"Authorization": "Bearer " + KEYS["quillfernvale"] + "x"},
     ]
     rid = "0" * 21
     ops = [
@@ -129,9 +129,9 @@ def test_keys_never_logged(keyed_app: Any, caplog: pytest.LogCaptureFixture) -> 
     c = keyed_app.test_client()
     caplog.set_level(logging.DEBUG)
     bad = "Bearer wrong-key-0123456789"
-    r1 = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill"))
+    r1 = c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale"))
     r2 = c.get("/v1/plans", headers={"Authorization": bad})
-    secrets = [KEYS["lanternhill"], "wrong-key-0123456789"]
+    secrets = [KEYS["quillfernvale"], "wrong-key-0123456789"]
     secrets += [hashlib.sha256(s.encode()).hexdigest() for s in secrets]
     text = caplog.text + r1.get_data(as_text=True) + r2.get_data(as_text=True)
     for s in secrets:
@@ -139,10 +139,10 @@ def test_keys_never_logged(keyed_app: Any, caplog: pytest.LogCaptureFixture) -> 
 
 
 def test_cross_tenant_reads_are_404(keyed_app: Any) -> None:
-    """brightwater cannot see lanternhill's plan by GET, DELETE, the list or the page: all
+    """brightwater cannot see quillfernvale's plan by GET, DELETE, the list or the page: all
     answer like a missing id (404), and the owner still sees it untouched."""
     c = keyed_app.test_client()
-    r = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill"))
+    r = c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale"))
     assert r.status_code == 202
     loc = r.headers["Location"]
     rid = loc.rsplit("/", 1)[1]
@@ -153,13 +153,13 @@ def test_cross_tenant_reads_are_404(keyed_app: Any) -> None:
         assert_problem(c.delete(path, headers=other), 404, "not-found")
     page = c.get(f"/plans/{rid}", headers=other)
     assert page.status_code == 404
-    assert c.get(f"/plans/{rid}", headers=bearer("lanternhill")).status_code == 200
+    assert c.get(f"/plans/{rid}", headers=bearer("quillfernvale")).status_code == 200
     listed = c.get("/v1/plans", headers=other).get_json()["items"]
     assert rid not in [it["id"] for it in listed]
-    mine = c.get(loc, headers=bearer("lanternhill")).get_json()
+    mine = c.get(loc, headers=bearer("quillfernvale")).get_json()
     assert mine["status"] == "queued" and not mine["cancel_requested"]
     assert rid in [
-        it["id"] for it in c.get("/v1/plans", headers=bearer("lanternhill")).json["items"]
+        it["id"] for it in c.get("/v1/plans", headers=bearer("quillfernvale")).json["items"]
     ]
 
 
@@ -173,8 +173,8 @@ def test_cross_tenant_sizing_is_404(keyed_app: Any) -> None:
     r = c.post("/v1/sizings", json=body, headers=bearer("brightwater"))
     assert r.status_code == 202, r.get_data(as_text=True)
     loc = r.headers["Location"]
-    assert_problem(c.get(loc, headers=bearer("lanternhill")), 404, "not-found")
-    assert_problem(c.delete(loc, headers=bearer("lanternhill")), 404, "not-found")
+    assert_problem(c.get(loc, headers=bearer("quillfernvale")), 404, "not-found")
+    assert_problem(c.delete(loc, headers=bearer("quillfernvale")), 404, "not-found")
     assert c.get(loc, headers=bearer("brightwater")).status_code == 200
 
 
@@ -182,16 +182,16 @@ def test_admin_reads_any_tenant(keyed_app: Any) -> None:
     """The admin key reads and lists another tenant's records (``?tenant=``); a tenant key
     asking for another tenant's list gets 400; the admin's own submissions are its own."""
     c = keyed_app.test_client()
-    loc = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).headers["Location"]
+    loc = c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).headers["Location"]
     rid = loc.rsplit("/", 1)[1]
     assert c.get(loc, headers=bearer("ops")).status_code == 200
-    items = c.get("/v1/plans?tenant=lanternhill", headers=bearer("ops")).get_json()["items"]
+    items = c.get("/v1/plans?tenant=quillfernvale", headers=bearer("ops")).get_json()["items"]
     assert [it["id"] for it in items] == [rid]
     assert c.get("/v1/plans", headers=bearer("ops")).get_json()["items"] == []
     assert_problem(
-        c.get("/v1/plans?tenant=lanternhill", headers=bearer("brightwater")), 400, "bad-request"
+        c.get("/v1/plans?tenant=quillfernvale", headers=bearer("brightwater")), 400, "bad-request"
     )
-    own = c.get("/v1/plans?tenant=lanternhill", headers=bearer("lanternhill")).get_json()
+    own = c.get("/v1/plans?tenant=quillfernvale", headers=bearer("quillfernvale")).get_json()
     assert [it["id"] for it in own["items"]] == [rid]
     r = c.delete(loc, headers=bearer("ops"))
     assert r.status_code == 200 and r.get_json()["status"] == "cancelled"

@@ -76,7 +76,7 @@ class TenantKey:
     ``ignored_auth`` knows the key is real and checks that requests without it get 401."""
 
     def get(self, case: Any, ctx: Any) -> str:
-        return KEYS["lanternhill"]
+        return KEYS["quillfernvale"]
 
     def set(self, case: Any, data: str, ctx: Any) -> None:
         case.headers = {**(case.headers or {}), "Authorization": f"Bearer {data}"}

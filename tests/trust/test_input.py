@@ -18,7 +18,7 @@ from service.app import create_app
 from service.settings import Settings
 from tests.trust.conftest import bearer, small_batch
 
-H = {**bearer("lanternhill"), "Content-Type": "application/json"}
+H = {**bearer("quillfernvale"), "Content-Type": "application/json"}
 
 
 def post_raw(client: Any, body: bytes | str, path: str = "/v1/plans") -> Any:
@@ -98,11 +98,11 @@ def test_control_characters_in_ids(keyed_app: Any, bad: str) -> None:
     c = keyed_app.test_client()
     body = small_batch()
     body["jobs"][1]["id"] = bad
-    doc = assert_4xx_problem(c.post("/v1/plans", json=body, headers=bearer("lanternhill")), 422)
+    doc = assert_4xx_problem(c.post("/v1/plans", json=body, headers=bearer("quillfernvale")), 422)
     assert any(e["pointer"].startswith("/jobs/1") for e in doc.get("errors", []))
     body = small_batch()
     body["nodes"][0]["id"] = bad
-    assert_4xx_problem(c.post("/v1/plans", json=body, headers=bearer("lanternhill")), 422)
+    assert_4xx_problem(c.post("/v1/plans", json=body, headers=bearer("quillfernvale")), 422)
 
 
 def test_unicode_ids_round_trip(keyed_app: Any, drain_queue: Any) -> None:
@@ -115,10 +115,10 @@ def test_unicode_ids_round_trip(keyed_app: Any, drain_queue: Any) -> None:
         "node_count": 2,
         "method": "longest_first",
     }
-    r = c.post("/v1/plans", json=body, headers=bearer("lanternhill"))
+    r = c.post("/v1/plans", json=body, headers=bearer("quillfernvale"))
     assert r.status_code == 202, r.get_data(as_text=True)
     drain_queue()
-    doc = c.get(r.headers["Location"], headers=bearer("lanternhill")).get_json()
+    doc = c.get(r.headers["Location"], headers=bearer("quillfernvale")).get_json()
     assert doc["status"] == "done"
     text = json.dumps(doc["result"], ensure_ascii=False)
     for n in names:
@@ -130,14 +130,14 @@ def test_overlong_id_and_duplicates(keyed_app: Any) -> None:
     c = keyed_app.test_client()
     body = small_batch()
     body["jobs"][0]["id"] = "x" * 201
-    assert_4xx_problem(c.post("/v1/plans", json=body, headers=bearer("lanternhill")), 422)
+    assert_4xx_problem(c.post("/v1/plans", json=body, headers=bearer("quillfernvale")), 422)
     body = small_batch()
     body["jobs"][2]["id"] = body["jobs"][0]["id"]
-    doc = assert_4xx_problem(c.post("/v1/plans", json=body, headers=bearer("lanternhill")), 422)
+    doc = assert_4xx_problem(c.post("/v1/plans", json=body, headers=bearer("quillfernvale")), 422)
     assert doc.get("errors")
     body = small_batch()
     body["nodes"][1]["id"] = body["nodes"][0]["id"]
-    assert_4xx_problem(c.post("/v1/plans", json=body, headers=bearer("lanternhill")), 422)
+    assert_4xx_problem(c.post("/v1/plans", json=body, headers=bearer("quillfernvale")), 422)
 
 
 def test_body_over_the_cap_is_413(keyed_app: Any) -> None:
@@ -167,7 +167,7 @@ def test_wrong_types_and_junk(keyed_app: Any) -> None:
     ):
         assert_4xx_problem(post_raw(c, raw), 400, 422)
     r = c.post(
-        "/v1/plans", data=b"{}", headers={**bearer("lanternhill"), "Content-Type": "text/csv"}
+        "/v1/plans", data=b"{}", headers={**bearer("quillfernvale"), "Content-Type": "text/csv"}
     )
     assert_4xx_problem(r, 400, 415)
 

@@ -42,44 +42,44 @@ def test_tenant_depth_limit(keyed_app: Any, drain_queue: Any) -> None:
     c = keyed_app.test_client()
     for _ in range(5):
         assert (
-            c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code
+            c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code
             == 202
         )
-    before = ids(c, "lanternhill")
-    r = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill"))
+    before = ids(c, "quillfernvale")
+    r = c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale"))
     assert_429(r, 60)
-    assert ids(c, "lanternhill") == before
+    assert ids(c, "quillfernvale") == before
     for rid in before:
-        assert c.get(f"/v1/plans/{rid}", headers=bearer("lanternhill")).json["status"] == "queued"
+        assert c.get(f"/v1/plans/{rid}", headers=bearer("quillfernvale")).json["status"] == "queued"
     assert c.post("/v1/plans", json=small_batch(), headers=bearer("brightwater")).status_code == 202
     drain_queue()
     for rid in before:
-        assert c.get(f"/v1/plans/{rid}", headers=bearer("lanternhill")).json["status"] == "done"
-    assert c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code == 202
+        assert c.get(f"/v1/plans/{rid}", headers=bearer("quillfernvale")).json["status"] == "done"
+    assert c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code == 202
 
 
 def test_global_depth_limit(keyed_app: Any) -> None:
     """With 8 records queued over all tenants (global limit 8) every tenant gets 429, and
     the 8 stay queued."""
     c = keyed_app.test_client()
-    for t in ("lanternhill",) * 5 + ("brightwater",) * 3:
+    for t in ("quillfernvale",) * 5 + ("brightwater",) * 3:
         assert c.post("/v1/plans", json=small_batch(), headers=bearer(t)).status_code == 202
     r = c.post("/v1/plans", json=small_batch(), headers=bearer("brightwater"))
     assert_429(r, 60)
     assert "service" in r.get_json()["detail"]
-    assert len(ids(c, "lanternhill")) == 5 and len(ids(c, "brightwater")) == 3
+    assert len(ids(c, "quillfernvale")) == 5 and len(ids(c, "brightwater")) == 3
 
 
 def test_cancelled_records_free_their_slot(keyed_app: Any) -> None:
     """A cancelled queued plan no longer counts (it is finished), so a new one is admitted."""
     c = keyed_app.test_client()
     locs = [
-        c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).headers["Location"]
+        c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).headers["Location"]
         for _ in range(5)
     ]
-    assert c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code == 429
-    assert c.delete(locs[0], headers=bearer("lanternhill")).status_code == 200
-    assert c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code == 202
+    assert c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code == 429
+    assert c.delete(locs[0], headers=bearer("quillfernvale")).status_code == 200
+    assert c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code == 202
 
 
 def test_reserved_slot_without_record_is_not_pruned(keyed_app: Any) -> None:
@@ -93,14 +93,14 @@ def test_reserved_slot_without_record_is_not_pruned(keyed_app: Any) -> None:
     c = keyed_app.test_client()
     with keyed_app.app_context():
         for k in range(5):
-            limits.admit("lanternhill", "plan", f"{k:021x}")  # slots taken, no record yet
-    r = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill"))
+            limits.admit("quillfernvale", "plan", f"{k:021x}")  # slots taken, no record yet
+    r = c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale"))
     assert_429(r, 60)
     conn = keyed_app.extensions["spanwright"].store.conn
-    key = "swtrust:active:lanternhill"
+    key = "swtrust:active:quillfernvale"
     old = limits.time.time() - 2 * limits._UNWRITTEN_GRACE
     conn.zadd(key, {f"plan:{0:021x}": old})  # that submit died long ago, before storing
-    r = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill"))
+    r = c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale"))
     assert r.status_code == 202, r.get_data(as_text=True)
     assert conn.zcard(key) == 5
 
@@ -120,7 +120,7 @@ def test_concurrent_submits_do_not_overshoot(redis_server: str, trust_settings: 
     def one() -> None:
         c = app.test_client()
         go.wait()
-        r = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill"))
+        r = c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale"))
         with lock:
             codes.append(r.status_code)
 
@@ -138,11 +138,11 @@ def test_request_rate_limit(keyed_app: Any) -> None:
     c = keyed_app.test_client()
     seen = []
     for _ in range(40):
-        seen.append(c.get("/v1/plans", headers=bearer("lanternhill")).status_code)
+        seen.append(c.get("/v1/plans", headers=bearer("quillfernvale")).status_code)
         c.get("/healthz")
     assert seen == [200] * 40
-    assert_429(c.get("/v1/plans", headers=bearer("lanternhill")), 60)
-    assert_429(c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")), 60)
+    assert_429(c.get("/v1/plans", headers=bearer("quillfernvale")), 60)
+    assert_429(c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")), 60)
     assert c.get("/v1/plans", headers=bearer("brightwater")).status_code == 200
     assert c.get("/healthz").status_code == 200
 
@@ -154,29 +154,29 @@ def test_idempotent_retry_at_the_limit_gets_its_own_plan(keyed_app: Any) -> None
     result). A new key is still refused with 429, and the same key with another body is a
     422; neither stores anything nor takes a slot."""
     c = keyed_app.test_client()
-    key = {"Idempotency-Key": '"lh-ep01-sh010-0001"', **bearer("lanternhill")}
+    key = {"Idempotency-Key": '"lh-ep01-sh010-0001"', **bearer("quillfernvale")}
     first = c.post("/v1/plans", json=small_batch(), headers=key)
     assert first.status_code == 202
     for _ in range(4):
         assert (
-            c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code
+            c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code
             == 202
         )
-    before = ids(c, "lanternhill")
+    before = ids(c, "quillfernvale")
     conn = keyed_app.extensions["spanwright"].store.conn
-    slots = conn.zrange("swtrust:active:lanternhill", 0, -1)
+    slots = conn.zrange("swtrust:active:quillfernvale", 0, -1)
     assert len(slots) == 5
     retry = c.post("/v1/plans", json=small_batch(), headers=key)
     assert retry.status_code == 202, retry.get_data(as_text=True)
     assert retry.headers["Idempotent-Replayed"] == "true"
     assert retry.headers["Location"] == first.headers["Location"]
-    fresh = {"Idempotency-Key": '"lh-ep01-sh010-0002"', **bearer("lanternhill")}
+    fresh = {"Idempotency-Key": '"lh-ep01-sh010-0002"', **bearer("quillfernvale")}
     assert_429(c.post("/v1/plans", json=small_batch(), headers=fresh), 60)
     other = c.post("/v1/plans", json=small_batch(n=5), headers=key)
     assert other.status_code == 422
     assert other.get_json()["type"] == "/problems/idempotency-key-reused"
-    assert ids(c, "lanternhill") == before
-    assert conn.zrange("swtrust:active:lanternhill", 0, -1) == slots
+    assert ids(c, "quillfernvale") == before
+    assert conn.zrange("swtrust:active:quillfernvale", 0, -1) == slots
 
 
 def test_replan_is_admitted_like_a_submit(keyed_app: Any, drain_queue: Any) -> None:
@@ -185,24 +185,24 @@ def test_replan_is_admitted_like_a_submit(keyed_app: Any, drain_queue: Any) -> N
     stored); a retry with its bound Idempotency-Key still gets its plan at the limit; and
     it counts against the per-tenant request rate like every keyed request."""
     c = keyed_app.test_client()
-    loc = c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).headers["Location"]
+    loc = c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).headers["Location"]
     drain_queue()
     events = {"elapsed": 10.0, "finished": ["sh010_f000"]}
-    key = {"Idempotency-Key": '"lh-replan-0001"', **bearer("lanternhill")}
+    key = {"Idempotency-Key": '"lh-replan-0001"', **bearer("quillfernvale")}
     first = c.post(f"{loc}/replan", json=events, headers=key)
     assert first.status_code == 202, first.get_data(as_text=True)
     for _ in range(4):
         assert (
-            c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code
+            c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code
             == 202
         )
-    before = ids(c, "lanternhill")
-    assert_429(c.post(f"{loc}/replan", json=events, headers=bearer("lanternhill")), 60)
-    assert ids(c, "lanternhill") == before
+    before = ids(c, "quillfernvale")
+    assert_429(c.post(f"{loc}/replan", json=events, headers=bearer("quillfernvale")), 60)
+    assert ids(c, "quillfernvale") == before
     retry = c.post(f"{loc}/replan", json=events, headers=key)
     assert retry.status_code == 202 and retry.headers["Idempotent-Replayed"] == "true"
     assert retry.headers["Location"] == first.headers["Location"]
-    while c.get("/v1/plans", headers=bearer("lanternhill")).status_code != 429:
+    while c.get("/v1/plans", headers=bearer("quillfernvale")).status_code != 429:
         pass  # spend the rest of the window's 40 requests
     assert_429(c.post(f"{loc}/replan", json=events, headers=key), 60)
 
@@ -214,10 +214,10 @@ def test_finished_records_leave_the_depth_sets_at_once(keyed_app: Any, drain_que
     c = keyed_app.test_client()
     for _ in range(3):
         assert (
-            c.post("/v1/plans", json=small_batch(), headers=bearer("lanternhill")).status_code
+            c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code
             == 202
         )
     conn = keyed_app.extensions["spanwright"].store.conn
-    assert conn.zcard("swtrust:active:lanternhill") == 3 and conn.zcard("swtrust:active") == 3
+    assert conn.zcard("swtrust:active:quillfernvale") == 3 and conn.zcard("swtrust:active") == 3
     drain_queue()
-    assert conn.zcard("swtrust:active:lanternhill") == 0 and conn.zcard("swtrust:active") == 0
+    assert conn.zcard("swtrust:active:quillfernvale") == 0 and conn.zcard("swtrust:active") == 0

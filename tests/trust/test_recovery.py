@@ -34,7 +34,7 @@ from tests.trust.conftest import bearer, small_batch
 
 
 def submit(app: Any) -> tuple[str, str]:
-    r = app.test_client().post("/v1/plans", json=small_batch(), headers=bearer("lanternhill"))
+    r = app.test_client().post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale"))
     assert r.status_code == 202
     return r.headers["Location"], r.headers["Location"].rsplit("/", 1)[1]
 
@@ -64,7 +64,7 @@ def test_dead_worker_on_this_host_is_reaped_at_once(keyed_app: Any, drain_queue:
     rec = svc.store.get("plan", rid)
     assert rec.status == "queued" and "AbandonedJobError" in rec.fields["last_crash"]
     drain_queue()
-    doc = keyed_app.test_client().get(loc, headers=bearer("lanternhill")).get_json()
+    doc = keyed_app.test_client().get(loc, headers=bearer("quillfernvale")).get_json()
     assert doc["status"] == "done"
 
 
@@ -100,7 +100,7 @@ def test_job_stranded_between_dequeue_and_start_is_put_back(
     assert q._rescue_stranded(after=0) == 1
     assert conn.llen(ikey) == 0 and conn.lrange(q.queue.key, 0, -1) == [f"plan-{rid}".encode()]
     drain_queue()
-    doc = keyed_app.test_client().get(loc, headers=bearer("lanternhill")).get_json()
+    doc = keyed_app.test_client().get(loc, headers=bearer("quillfernvale")).get_json()
     assert doc["status"] == "done"
 
 

@@ -3,9 +3,11 @@
 The references are outside the code under test: the lognormal moments (Johnson, Kotz and
 Balakrishnan, Continuous Univariate Distributions vol. 1, 2nd ed. 1994, ch. 14), the normal
 distribution function from scipy.stats, the definition of the Wilson (1927) score
-interval, Graham's (1966) list-scheduling bound, and brute-force event simulations written
-here with heapq. Monte-Carlo tolerances are computed from the sample size (a few standard
-errors), never tuned to the output.
+interval (and scipy's own Wilson interval), Graham's (1966) list-scheduling bound, LPT
+(Graham 1969) and brute-force event simulations written here with heapq, and an independent
+Monte-Carlo run with numpy's generator. Monte-Carlo tolerances are computed from the sample
+size (a few standard errors), never tuned to the output. Tests that compare a compiled
+kernel with its own pure-Python twin, or a seeded run with itself, say so (plumbing).
 """
 
 from __future__ import annotations
@@ -153,7 +155,8 @@ def test_normals_pass_kolmogorov_smirnov_and_tail_checks() -> None:
 
 
 def test_pure_python_kernels_agree_with_compiled() -> None:
-    """The `.py_func` path (no numba) gives the same numbers as the compiled kernels."""
+    """Plumbing: the `.py_func` path (no numba) gives the same numbers as the compiled
+    kernels (the numbers themselves are checked against references in the tests below)."""
     x, k, f = cf.ziggurat_tables()
     st0 = np.array(np.random.SFC64(5).state["state"]["state"], dtype=np.uint64)
     a, b = np.empty(3000), np.empty(3000)
@@ -196,17 +199,32 @@ def test_pure_python_kernels_agree_with_compiled() -> None:
 
 
 # -- zero spread is the deterministic answer -----------------------------------------------
+def heap_makespan(times: list[float], m: int) -> float:
+    """Graham's (1966) list scheduling with heapq: each job in the given order onto the
+    least-loaded of m nodes; the makespan, whatever the ties."""
+    heap = [0.0] * m
+    for t in times:
+        heapq.heapreplace(heap, heap[0] + t)
+    return max(heap)
+
+
 @pytest.mark.parametrize("policy", ["static", "dynamic"])
-@pytest.mark.parametrize("make", [longest_first_schedule, list_schedule])
-def test_zero_spread_gives_the_plan_exactly(policy: str, make: object) -> None:
+@pytest.mark.parametrize(
+    ("make", "order"),
+    [(longest_first_schedule, lambda d: sorted(d, reverse=True)), (list_schedule, list)],
+)
+def test_zero_spread_gives_the_plan_exactly(policy: str, make: object, order: object) -> None:
     """No spread: every sample is the plan's makespan bit for bit, P is exactly 1 at the
-    makespan and exactly 0 just below it, the interval is that point. For dynamic
-    dispatch this holds because a list schedule on identical nodes starts jobs in
-    non-decreasing time (the least load only grows; Graham 1966), so dispatching in
-    planned-start order replays the plan."""
-    inst = Instance.build(studio_batch(300, 1), 17)
+    makespan and exactly 0 just below it, the interval is that point; that makespan is the
+    one of list scheduling (batch order, Graham 1966) or LPT (Graham 1969) written here
+    with heapq. For dynamic dispatch this holds because a list schedule on identical
+    nodes starts jobs in non-decreasing time (the least load only grows; Graham 1966), so
+    dispatching in planned-start order replays the plan."""
+    d = studio_batch(300, 1)
+    inst = Instance.build(d, 17)
     sched = make(inst)  # type: ignore[operator]
-    ms = sched.makespan
+    ms = heap_makespan(order(d.tolist()), 17)  # type: ignore[operator]
+    assert sched.makespan == ms
     res = cf.simulate(sched, samples=64, deadline=ms, policy=policy)  # type: ignore[arg-type]
     assert np.all(res.makespans == ms)
     assert res.deadline_probability == 1.0 and res.interval == (1.0, 1.0)
@@ -438,15 +456,31 @@ def test_quantile_intervals_cover_the_true_quantile_about_95_percent() -> None:
         assert abs(hits / runs - 0.95) < 4 * math.sqrt(0.95 * 0.05 / runs)
 
 
-def test_wilson_interval_inverts_the_score_test() -> None:
-    """Wilson (1927): the limits are the p0 where |p_hat - p0| = z sqrt(p0 (1 - p0) / n)."""
-    for succ, n in ((0, 50), (7, 50), (990, 1000), (1000, 1000), (3, 10)):
-        lo, hi = cf.wilson_interval(succ, n)
-        ph = succ / n
-        for p0 in (lo, hi):
-            if 0 < p0 < 1:
-                assert abs(abs(ph - p0) - cf.Z95 * math.sqrt(p0 * (1 - p0) / n)) < 1e-9
-        assert lo <= ph <= hi
+@pytest.mark.parametrize(("succ", "n"), [(7, 50), (990, 1000), (3, 10), (1, 2)])
+def test_wilson_interval_inverts_the_score_test(succ: int, n: int) -> None:
+    """Wilson (1927): with 0 < successes < n both limits are the p0 where |p_hat - p0| =
+    z sqrt(p0 (1 - p0) / n), z the normal 97.5% point (scipy.stats), and they are scipy's
+    Wilson interval (binomtest(...).proportion_ci(method="wilson"))."""
+    lo, hi = cf.wilson_interval(succ, n)
+    ph, z = succ / n, stats.norm.ppf(0.975)
+    for p0 in (lo, hi):
+        assert abs(abs(ph - p0) - z * math.sqrt(p0 * (1 - p0) / n)) < 1e-9
+    ref = stats.binomtest(succ, n).proportion_ci(0.95, method="wilson")
+    assert (lo, hi) == pytest.approx((ref.low, ref.high), abs=1e-12)
+    assert 0 < lo < ph < hi < 1
+
+
+@pytest.mark.parametrize(("succ", "n", "limits"), [(0, 50, (0.0, None)), (1000, 1000, (None, 1.0))])
+def test_wilson_interval_at_no_or_all_successes(
+    succ: int, n: int, limits: tuple[float | None, float | None]
+) -> None:
+    """No successes: the lower limit is 0 exactly (p0 = 0 solves the score equation), the
+    upper one scipy's Wilson limit; all successes: the mirror image (Wilson 1927)."""
+    lo, hi = cf.wilson_interval(succ, n)
+    ref = stats.binomtest(succ, n).proportion_ci(0.95, method="wilson")
+    want_lo = ref.low if limits[0] is None else limits[0]
+    want_hi = ref.high if limits[1] is None else limits[1]
+    assert (lo, hi) == pytest.approx((want_lo, want_hi), abs=1e-12)
 
 
 # -- reproducibility -----------------------------------------------------------------------
@@ -510,38 +544,62 @@ def test_zero_estimate_with_positive_p90_is_refused() -> None:
 
 
 # -- sizing to a confidence ----------------------------------------------------------------
+def lpt_loads(times: list[float], m: int) -> list[list[int]]:
+    """LPT (Graham 1969) with heapq: per node, the indices of its jobs."""
+    heap = [(0.0, k) for k in range(m)]
+    jobs: list[list[int]] = [[] for _ in range(m)]
+    for j in sorted(range(len(times)), key=lambda j: -times[j]):
+        load, k = heapq.heappop(heap)
+        jobs[k].append(j)
+        heapq.heappush(heap, (load + times[j], k))
+    return jobs
+
+
+def static_probability(d: np.ndarray, m: int, deadline: float, c: float, n: int) -> float:
+    """P(the LPT plan on m nodes meets the deadline) by an independent Monte Carlo with
+    numpy's default generator: each job lognormal with mean d_j and CV c (sigma^2 =
+    ln(1 + c^2), mu = ln d_j - sigma^2 / 2; Johnson-Kotz-Balakrishnan ch. 14), each node
+    running its planned jobs back to back."""
+    s = math.sqrt(math.log(1 + c * c))
+    draws = np.random.default_rng(2024).lognormal(np.log(d) - s * s / 2, s, (n, d.size))
+    finish = np.stack([draws[:, jobs].sum(axis=1) for jobs in lpt_loads(d.tolist(), m)])
+    return float(np.mean(finish.max(axis=0) <= deadline))
+
+
 def test_sizing_to_a_confidence_passes_at_the_answer_and_fails_below() -> None:
-    """The count returned has a Wilson lower limit >= q and the count below does not;
-    checked by simulating LPT plans of both counts again through simulate()."""
+    """The count returned has a Wilson lower limit >= q and the count below does not, both
+    recomputed with scipy from the stated P and sample count; the search starts at the
+    mean-load count ceil(work / deadline) (McNaughton 1959); both counts' planned
+    makespans are LPT's (heapq), and both P agree, within 4 standard errors of their
+    difference, with an independent numpy Monte Carlo of the same static plans."""
     d = studio_batch(600, 8)
-    deadline, q = 1.15 * d.sum() / 30, 0.9
-    ans = cf.nodes_for_confidence(d, deadline, q, spread=0.3, samples=2000, seed=1)
-    c = ans.nodes
-    assert ans.nodes_lower_bound == math.ceil(d.sum() / deadline) <= c
-    for count, passes in ((c, True), (c - 1, False)):
-        inst = Instance.build(d, count, deadline=deadline)
-        res = cf.simulate(longest_first_schedule(inst), spread=0.3, samples=2000, seed=1)
-        assert res.interval is not None
-        assert (res.interval[0] >= q) is passes
-    assert ans.chosen["interval"][0] >= q > ans.previous["interval"][0]  # type: ignore[index]
+    deadline, q, n, c = 1.15 * d.sum() / 30, 0.9, 2000, 0.3
+    ans = cf.nodes_for_confidence(d, deadline, q, spread=c, samples=n, seed=1, policy="static")
+    assert ans.nodes_lower_bound == math.ceil(d.sum() / deadline) <= ans.nodes
+    chosen, fewer = ans.chosen, ans.previous
+    assert chosen["nodes"] == ans.nodes == fewer["nodes"] + 1  # type: ignore[index,operator]
+    assert wilson_lower(chosen["deadline_probability"], n) >= q  # type: ignore[index,arg-type]
+    assert wilson_lower(fewer["deadline_probability"], n) < q  # type: ignore[index,arg-type]
+    big = 20_000
+    for row in (chosen, fewer):
+        m, p = row["nodes"], row["deadline_probability"]  # type: ignore[index]
+        assert row["planned_makespan"] == pytest.approx(lpt_makespan(d, m))  # type: ignore[index]
+        ref = static_probability(d, m, deadline, c, big)  # type: ignore[arg-type]
+        assert abs(p - ref) < 4 * math.sqrt(ref * (1 - ref) * (1 / n + 1 / big))  # type: ignore[operator]
 
 
 def test_sizing_without_spread_is_the_deterministic_lpt_sizing() -> None:
     """Zero spread: the answer is the fewest nodes whose LPT makespan meets the deadline,
-    found here by scanning every count from 1 (brute force). (LPT is not monotone in the
-    node count, Graham 1969, so in general the search's answer is only guaranteed to pass
-    with the count below failing; on this batch it is the brute-force count.)"""
+    found here by scanning every count from 1 with LPT written with heapq (lpt_makespan).
+    (LPT is not monotone in the node count, Graham 1969, so in general the search's answer
+    is only guaranteed to pass with the count below failing; on this batch it is the
+    brute-force count.)"""
     d = studio_batch(150, 9)
     deadline = 1.02 * d.sum() / 12
     ans = cf.nodes_for_confidence(d, deadline, 0.99, samples=10)
-    brute = next(
-        c
-        for c in range(1, 200)
-        if longest_first_schedule(Instance.build(d, c)).makespan <= deadline
-    )
+    brute = next(c for c in range(1, 200) if lpt_makespan(d, c) <= deadline)
     assert ans.nodes == brute
-    assert longest_first_schedule(Instance.build(d, ans.nodes)).makespan <= deadline
-    assert longest_first_schedule(Instance.build(d, ans.nodes - 1)).makespan > deadline
+    assert lpt_makespan(d, ans.nodes) <= deadline < lpt_makespan(d, ans.nodes - 1)
 
 
 def test_sizing_refuses_a_confidence_the_sample_count_cannot_show() -> None:
@@ -603,8 +661,8 @@ def lpt_makespan(times: np.ndarray, m: int) -> float:
 
 
 def sizing_body(d: np.ndarray, deadline: float, **extra: object) -> dict[str, object]:
-    """A POST /v1/sizings body for shot estimates ``d`` of the Lantern Hill episode."""
-    jobs = [{"id": f"lh_sh{j:03d}", "duration": float(x)} for j, x in enumerate(d)]
+    """A POST /v1/sizings body for shot estimates ``d`` of an invented episode."""
+    jobs = [{"id": f"qv_sh{j:03d}", "duration": float(x)} for j, x in enumerate(d)]
     return {"jobs": jobs, "deadline": deadline, **extra}
 
 
@@ -639,7 +697,7 @@ def test_sizing_zero_spread_confidence_is_the_answer_plan_exactly() -> None:
     ref = float(reference_dispatch(res.schedule, res.schedule.instance.durations).max())
     dyn = block["dynamic"]
     assert dyn["makespan_p50"] == dyn["makespan_p99"] == ref
-    assert dyn["deadline_probability"] == (1.0 if ref <= res.deadline else 0.0)
+    assert dyn["deadline_probability"] == float(ref <= res.deadline)
 
 
 def test_sizing_on_one_node_simulates_the_lognormal_sum() -> None:
@@ -708,8 +766,9 @@ def test_sizing_to_a_confidence_without_spread_is_the_brute_force_lpt_count() ->
 
 
 def test_sizing_confidence_repeats_exactly_with_its_seed() -> None:
-    """The worker task (tasks.size_farm) twice with one seed: identical confidence and
-    confidence_sizing, bit for bit; another seed draws other samples."""
+    """Plumbing (a run against itself): the worker task (tasks.size_farm) twice with one
+    seed: identical confidence and confidence_sizing, bit for bit; another seed draws
+    other samples."""
     d = studio_batch(200, 16)
     body = sizing_body(d, 1.1 * d.sum() / 12, spread=0.25, confidence=0.8)
     body.update(confidence_samples=500, confidence_seed=11)
@@ -783,7 +842,7 @@ def test_cli_size_prints_the_confidence_lines(tmp_path, capsys) -> None:  # type
     assert cli_main(["size", str(f), "--time-budget", "0.1"]) == 0
     out = capsys.readouterr().out
     assert "P(meet deadline) 1.0000 (95% interval 1.0000 - 1.0000)" in out
-    assert "to confidence   0.9: 2 node(s)" in out
+    assert "to confidence   0.9: 2 nodes," in out
     assert cli_main(["size", str(f), "--time-budget", "0.1", "--json", "--no-plan"]) == 0
     doc = json.loads(capsys.readouterr().out)
     assert doc["confidence"]["deadline_probability"] == 1.0

@@ -2,22 +2,28 @@
 
 Every expected optimum comes from outside the project: a brute force written here, the
 assignment MILP solved by scipy.optimize.milp (HiGHS, tests/reference.py), instances whose
-optimum is known by construction, and Graham's tight LPT family (Graham 1969).
+optimum is known by construction, Graham's tight LPT family (Graham 1969), LPT written
+here with the standard library's heapq, and Farley's (1990) LP bound re-checked with a
+knapsack written here. Tests that compare a compiled kernel with its own pure-Python twin
+say so: they are plumbing (the two paths agree), and their expected answer, where there is
+one, comes from brute force.
 """
 
 from __future__ import annotations
 
+import heapq
 import itertools
 import time
 from collections.abc import Sequence
+from fractions import Fraction
 
 import numpy as np
 import pytest
-from reference import milp_makespan
+from reference import check_plan_exact, exact_optimum, exact_plan_makespan, milp_makespan
 
 from workers.planning import Budget, Instance, Node, solve
 from workers.planning.exact import constructions, decision, improve, solve_exact
-from workers.planning.greedy import longest_first_schedule, lpt_ratio
+from workers.planning.greedy import longest_first_schedule
 from workers.planning.solve import Progress
 
 
@@ -33,6 +39,16 @@ def brute_force(p: Sequence[float], m: int) -> float:
             loads[k] += p[j]
         best = min(best, max(loads))
     return best
+
+
+def lpt_makespan(p: Sequence[float], m: int) -> float:
+    """Longest processing time first (Graham 1969) with the standard library's heapq: each
+    job, longest first, onto the least-loaded of m identical nodes. Ties between equal
+    loads do not change the multiset of loads, so the makespan does not depend on them."""
+    heap = [0.0] * m
+    for t in sorted(p, reverse=True):
+        heapq.heapreplace(heap, heap[0] + t)
+    return max(heap)
 
 
 def exact(p: list[float], m: int, seconds: float = 5.0, **kw: object) -> object:
@@ -95,7 +111,7 @@ def test_graham_tight_family(m: int) -> None:
     res = solve_exact(inst, Budget(5.0))
     assert res.makespan == 3 * m
     assert res.proven_optimal
-    assert res.worst_case_ratio == pytest.approx(lpt_ratio(m))
+    assert res.worst_case_ratio == pytest.approx(4 / 3 - 1 / (3 * m))  # Graham 1969
 
 
 def test_certificate_never_exceeds_a_known_optimum_even_when_stopped_early() -> None:
@@ -132,17 +148,24 @@ def test_budget_is_honoured() -> None:
 
 
 def test_cancel_is_reported() -> None:
-    """A cancel seen through Budget.should_stop ends the search with stop_reason cancelled."""
-    p = hard_instance(8)
-    inst = Instance.build(p, 40)
+    """A cancel seen through Budget.should_stop before any search ends it with stop_reason
+    cancelled. Graham's (1969) tight family on m = 40 nodes: LPT gives 4m - 1 = 159, the
+    optimum and the mean load are 3m = 120, so the starting plan cannot be proven optimal
+    without a search; the certificate still brackets the optimum: bound <= 120 <= plan
+    <= 159."""
+    m = 40
+    p = [x for x in range(2 * m - 1, m, -1) for _ in range(2)] + [m, m, m]
+    inst = Instance.build(p, m)
     res = solve_exact(inst, Budget(30.0, should_stop=lambda: True, poll_interval=0.0))
     assert res.solve_seconds < 5.0
-    if not res.proven_optimal:
-        assert res.stop_reason == "cancelled"
+    assert res.stop_reason == "cancelled" and not res.proven_optimal
+    assert res.lower_bound <= 3 * m <= res.makespan <= 4 * m - 1
 
 
 def test_progress_hook_is_monotone() -> None:
-    """Progress reports: incumbent never increases, bound never decreases, bound <= incumbent."""
+    """Plumbing (no expected value of our own): progress reports never raise the incumbent
+    nor lower the bound, the bound stays below the incumbent, and the last report is the
+    plan returned; the plan itself is checked in exact arithmetic (tests/reference.py)."""
     seen: list[Progress] = []
     p = hard_instance(9)
     inst = Instance.build(p, 40)
@@ -154,35 +177,38 @@ def test_progress_hook_is_monotone() -> None:
         assert b.elapsed >= a.elapsed
     assert all(s.best_lower_bound <= s.best_makespan for s in seen)
     assert seen[-1].best_makespan == res.makespan
+    check_plan_exact(res.to_dict(), p, 40, job_ids=inst.job_ids)
 
 
 def test_never_worse_than_lpt() -> None:
-    """The exact method starts from LPT (Graham 1969) and only keeps better plans."""
+    """The exact method starts from LPT (Graham 1969) and only keeps better plans: its
+    exact makespan is never above LPT's, computed here with heapq (lpt_makespan)."""
     rng = np.random.default_rng(21)
     for _ in range(15):
         m = int(rng.integers(2, 12))
         p = [int(x) for x in rng.integers(1, 1000, size=int(rng.integers(m, 6 * m)))]
         inst = Instance.build(p, m)
-        res = solve_exact(inst, Budget(0.05))
-        assert res.makespan <= longest_first_schedule(inst).makespan
-        res.schedule.check()
+        d = solve_exact(inst, Budget(0.05)).to_dict()
+        check_plan_exact(d, p, m, job_ids=inst.job_ids)
+        assert exact_plan_makespan(d, p, m, job_ids=inst.job_ids) <= lpt_makespan(p, m)
 
 
 def test_pure_python_kernels_agree_with_compiled() -> None:
-    """The ``.py_func`` paths of the kernels give the same answers as the numba ones."""
+    """The ``.py_func`` paths of the kernels give the same answers as the numba ones
+    (plumbing); the decision search's answers are the brute-force ones: capacity OPT - 1
+    infeasible, capacity OPT feasible with a packing whose loads fit (checked here)."""
     rng = np.random.default_rng(4)
     for _ in range(12):
         m = int(rng.integers(2, 5))
         q = np.sort(rng.integers(1, 50, size=int(rng.integers(3, 11))))[::-1].astype(np.int64)
         opt = brute_force(q.tolist(), m)  # outside reference
-        for cap in (opt - 1, opt):
+        for cap, want in ((opt - 1, decision.INFEASIBLE), (opt, decision.FEASIBLE)):
             fast = decision.CompletionSearch(q, m, cap)
             slow = decision.CompletionSearch(q, m, cap, compiled=False)
-            a, b = fast.run(10**6), slow.run(10**6)
-            assert a == b == (decision.FEASIBLE if cap >= opt else decision.INFEASIBLE)
-            if a == decision.FEASIBLE:
-                for packing in (fast.packing(), slow.packing()):
-                    assert np.bincount(packing, weights=q, minlength=m).max() <= cap
+            assert fast.run(10**6) == slow.run(10**6) == want
+        # the two searches of the last (feasible) capacity: packings that fit in opt
+        for packing in (fast.packing(), slow.packing()):
+            assert np.bincount(packing, weights=q, minlength=m).max() <= opt
         u = q.copy()
         assert decision.l2_bound(u, u.size, opt) == decision.l2_bound.py_func(u, u.size, opt)
         a1 = np.zeros(q.size, dtype=np.int32)
@@ -210,22 +236,21 @@ def test_paused_search_resumes_to_the_same_answer() -> None:
         assert st == (decision.FEASIBLE if cap >= opt else decision.INFEASIBLE)
 
 
-def test_real_durations_bound_valid_and_makespan_from_true_durations() -> None:
-    """Real durations with a resolution: the bound is below the true optimum (brute force on
-    the real durations) and the makespan is the largest node load of the true durations."""
+@pytest.mark.parametrize("resolution", [1.0, 0.5, 7.0])
+def test_real_durations_bound_valid_and_makespan_from_true_durations(resolution: float) -> None:
+    """Real durations with a resolution: the bound is at most the true optimum and the plan
+    at least it (exact_optimum: branch and bound in Fractions, tests/reference.py), and the
+    makespan is the plan's exact makespan on the true durations rounded to nearest."""
     rng = np.random.default_rng(8)
-    for res_ in (1.0, 0.5, 7.0):
-        for _ in range(8):
-            p = [float(x) for x in rng.uniform(0.3, 40.0, size=7)]
-            inst = Instance.build(p, 3, resolution=res_)
-            out = solve_exact(inst, Budget(2.0))
-            loads = np.zeros(3)
-            np.add.at(loads, out.schedule.node_of, inst.durations)
-            assert out.makespan == pytest.approx(loads.max())
-            opt = brute_force(p, 3)
-            assert out.lower_bound <= opt + 1e-9
-            assert out.makespan >= opt - 1e-9
-            out.schedule.check()
+    for _ in range(8):
+        p = [float(x) for x in rng.uniform(0.3, 40.0, size=7)]
+        inst = Instance.build(p, 3, resolution=resolution)
+        d = solve_exact(inst, Budget(2.0)).to_dict()
+        check_plan_exact(d, p, 3, job_ids=inst.job_ids)
+        ms = exact_plan_makespan(d, p, 3, job_ids=inst.job_ids)
+        assert d["makespan"] == float(ms)
+        opt = exact_optimum(p, 3)
+        assert Fraction(d["lower_bound"]) <= opt <= ms
 
 
 def test_auto_returns_lpt_when_the_bounds_prove_it() -> None:
@@ -247,27 +272,30 @@ def test_auto_searches_when_the_gap_is_open() -> None:
     assert "exact" in res.extras["auto_choice"]
 
 
-def test_search_certificate_names_the_refuted_capacity() -> None:
-    """Where the closed-form bounds stay below the optimum (brute force), the search proves
-    the rest: source 'search', refuted capacity one tick below the optimum."""
-    from workers.planning.bounds import lower_bounds
+#: eight jobs on three nodes whose optimum (brute force) is above the mean load, the
+#: longest job and the pigeonhole sum (checked in the test): (jobs, optimum)
+SEARCH_CASES = [
+    ([47, 52, 15, 18, 32, 37, 48, 28], 94),
+    ([11, 20, 32, 29, 55, 31, 41, 40], 89),
+    ([14, 46, 12, 10, 39, 22, 28, 40], 72),
+    ([17, 14, 45, 59, 44, 51, 30, 11], 92),
+    ([42, 38, 47, 40, 34, 10, 44, 18], 92),
+]
 
-    rng = np.random.default_rng(17)
-    checked = 0
-    for _ in range(400):
-        p = [int(x) for x in rng.integers(10, 60, size=8)]
-        inst = Instance.build(p, 3)
-        opt = brute_force(p, 3)
-        if lower_bounds(inst, upper=float(sum(p))).value >= opt:
-            continue
-        d = solve_exact(inst, Budget(5.0)).to_dict()
-        assert d["lower_bound"] == opt and d["bound_source"] == "search"
-        assert d["certificate"]["search"]["refuted_capacity"] == opt - 1
-        assert d["bounds"]["search"] == opt
-        checked += 1
-        if checked == 5:
-            break
-    assert checked == 5
+
+@pytest.mark.parametrize(("p", "opt"), SEARCH_CASES)
+def test_search_certificate_names_the_refuted_capacity(p: list[int], opt: int) -> None:
+    """Batches where the closed-form bounds stay below the optimum: the brute-force optimum
+    (checked here) is above the mean load ceil(sum / 3), the longest job and the pigeonhole
+    sum p3 + p4 (Dell'Amico and Martello 1995), so the search proves the rest: source
+    'search', the bound the optimum, the refuted capacity one tick below it."""
+    assert brute_force(p, 3) == opt
+    q = sorted(p, reverse=True)
+    assert max(-(-sum(p) // 3), q[0], q[2] + q[3]) < opt
+    d = solve_exact(Instance.build(p, 3), Budget(5.0)).to_dict()
+    assert d["lower_bound"] == opt and d["bound_source"] == "search"
+    assert d["certificate"]["search"]["refuted_capacity"] == opt - 1
+    assert d["bounds"]["search"] == opt
 
 
 def test_rejects_non_identical_nodes() -> None:
@@ -336,23 +364,41 @@ def test_pair_balance_keeps_every_job_and_never_worsens() -> None:
     assert loads.max() == 5000
 
 
+def best_pattern(lengths: list[int], counts: list[int], values: list[int], cap: int) -> int:
+    """The most a single bin of capacity ``cap`` can hold in value: a bounded knapsack
+    (``counts[i]`` items of length ``lengths[i]`` and value ``values[i]``), by dynamic
+    programming over the capacity in plain integers (textbook, common practice)."""
+    best = [0] * (cap + 1)
+    for length, count, value in zip(lengths, counts, values, strict=True):
+        for _ in range(count):
+            for c in range(cap, length - 1, -1):
+                best[c] = max(best[c], best[c - length] + value)
+    return best[cap]
+
+
 def test_lp_bound_proves_what_bin_completion_cannot_in_time() -> None:
     """Nearly equal lengths, five per node (the Frangioni NU family): the LP bound refutes
-    the capacity below the optimum at once; the certificate's Farley duals re-check in
-    plain integers, and the optimum agrees with brute force on a smaller twin."""
-    from workers.planning.exact.lpbound import check_certificate
-
+    the capacity below the optimum. Its certificate is re-checked here from its definition
+    (Farley 1990, Operations Research 38(5)): with dual values y_i >= 0 per length, any
+    bin of capacity C holds at most V = max over patterns of sum y_i a_i (a knapsack
+    solved here), so the jobs need at least sum(n_i y_i) / V bins; more than m means no
+    plan fits in C. The plan of C + 1 is checked exactly, so the optimum is C + 1."""
     rng = np.random.default_rng(33)
     p = [int(x) for x in rng.integers(90, 101, size=49)] + [10]
     m = 10
-    res = solve_exact(Instance.build(p, m), Budget(5.0))
-    assert res.proven_optimal
-    d = res.to_dict()
-    ev = d["certificate"].get("search", {})
-    if ev.get("refuted_by", {}).get("rule") == "lp_farley":
-        cert = ev["refuted_by"]
-        assert check_certificate(cert, m, int(cert["capacity_ticks"]))
-        assert int(cert["capacity_ticks"]) == res.makespan - 1
+    inst = Instance.build(p, m)
+    d = solve_exact(inst, Budget(5.0)).to_dict()
+    assert d["proven_optimal"]
+    cert = d["certificate"]["search"]["refuted_by"]
+    assert cert["rule"] == "lp_farley"
+    cap = int(cert["capacity_ticks"])
+    lengths, counts, duals = cert["lengths"], cert["counts"], cert["duals"]
+    assert sorted(x for x, c in zip(lengths, counts, strict=True) for _ in range(c)) == sorted(p)
+    assert min(duals) >= 0
+    total = sum(c * y for c, y in zip(counts, duals, strict=True))
+    assert total > m * best_pattern(lengths, counts, duals, cap)  # C is refuted
+    check_plan_exact(d, p, m, job_ids=inst.job_ids)
+    assert exact_plan_makespan(d, p, m, job_ids=inst.job_ids) == cap + 1 == d["makespan"]
     small = [int(x) for x in rng.integers(90, 101, size=10)] + [10]
     assert exact(small, 3).makespan == brute_force(small, 3)
 
@@ -382,24 +428,25 @@ def test_few_jobs_per_node_planted_reach_and_prove_the_optimum(m: int, u: int) -
 
 def test_real_durations_with_the_lp_keep_a_valid_bound() -> None:
     """Real durations, few per node, resolution 0.01: the bound (ticks rounded down, LP
-    included) stays below the planted optimum and the makespan is measured on the true
-    durations."""
+    included) stays below the exact mean load, itself at most the optimum (McNaughton
+    1959), in Fractions with no tolerance; the plan is checked exactly and its makespan
+    is its exact makespan rounded to the nearest double (tests/reference.py)."""
     rng = np.random.default_rng(41)
     m, u = 15, 700
     p = [x / 100 + 0.004 for x in planted(rng, m, u, 3)]  # not multiples of the resolution
-    true_opt = u / 100 + 3 * 0.004  # every planted segment; also the mean load
+    mean_load = sum(map(Fraction, p)) / m  # <= OPT
     inst = Instance.build(p, m, resolution=0.01)
-    res = solve_exact(inst, Budget(3.0))
-    assert res.lower_bound <= true_opt + 1e-9
-    loads = np.zeros(m)
-    np.add.at(loads, res.schedule.node_of, inst.durations)
-    assert res.makespan == pytest.approx(loads.max())
-    res.schedule.check()
+    d = solve_exact(inst, Budget(3.0)).to_dict()
+    assert Fraction(d["lower_bound"]) <= mean_load
+    check_plan_exact(d, p, m, job_ids=inst.job_ids)
+    assert d["makespan"] == float(exact_plan_makespan(d, p, m, job_ids=inst.job_ids))
 
 
 def test_constructions_stop_when_asked() -> None:
-    """MULTIFIT and LDM look at the clock: LDM gives up (None), MULTIFIT returns its best
-    packing so far, still a valid one."""
+    """Plumbing: MULTIFIT and LDM look at the clock: LDM gives up (None), MULTIFIT returns
+    its best packing so far, still a valid one (every job on one of the 20 nodes), and
+    finishing the run never makes it worse; loads are summed here with numpy, and both
+    are at least the mean load (McNaughton 1959)."""
     rng = np.random.default_rng(34)
     q = np.sort(rng.integers(1, 1000, size=400))[::-1].astype(np.int64)
     assert constructions.ldm(q, 20, should_stop=lambda: True) is None
@@ -407,7 +454,11 @@ def test_constructions_stop_when_asked() -> None:
     assert packing is not None and packing.min() >= 0 and packing.max() < 20
     full = constructions.multifit(q, 20)
     assert full is not None
-    assert constructions.makespan_ticks(q, full, 20) <= constructions.makespan_ticks(q, packing, 20)
+
+    def worst(packing: np.ndarray) -> int:
+        return int(np.bincount(packing, weights=q, minlength=20).max())
+
+    assert -(-int(q.sum()) // 20) <= worst(full) <= worst(packing)
 
 
 def test_decision_search_tables_match_their_definitions() -> None:

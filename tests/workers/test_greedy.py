@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from reference import brute_force_makespan, milp_makespan
 
 from workers.planning import Instance, solve
-from workers.planning.greedy import longest_first_order, lpt_ratio
+from workers.planning.greedy import longest_first_order
 from workers.planning.kernels import assign_in_order, least_loaded, pure
 
 
@@ -27,7 +27,7 @@ def test_lpt_meets_graham_tight_family(m: int) -> None:
     res = solve(Instance.build(graham_lpt_family(m), m), "longest_first")
     assert res.makespan == 4 * m - 1
     assert res.lower_bound <= 3 * m
-    assert res.makespan / (3 * m) == pytest.approx(lpt_ratio(m))
+    assert res.makespan / (3 * m) == pytest.approx(4 / 3 - 1 / (3 * m))
     assert res.worst_case_ratio == pytest.approx(4 / 3 - 1 / (3 * m))
 
 
@@ -66,7 +66,7 @@ def test_list_scheduling_meets_graham_1966_family(m: int) -> None:
     assert res.makespan == 2 * m - 1
     assert res.worst_case_ratio == pytest.approx(2 - 1 / m)
     assert res.lower_bound == m  # mean load (m(m-1) + m) / m = m, also the longest job
-    assert res.makespan / m == pytest.approx(res.worst_case_ratio)
+    assert res.makespan / m == pytest.approx(2 - 1 / m)
 
 
 def _random_cases(count: int, n_max: int, seed: int) -> list[tuple[list[int], int]]:
@@ -79,22 +79,40 @@ def _random_cases(count: int, n_max: int, seed: int) -> list[tuple[list[int], in
     return cases
 
 
+def coffman_sethi(p: list[int], m: int, assignment: list[dict]) -> float:
+    """The a-posteriori LPT ratio of Coffman and Sethi (1976): with at least k jobs on every
+    node, LPT <= ((k + 1)/k - 1/(km)) OPT; never above Graham's 4/3 - 1/(3m), and 1 with no
+    more jobs than nodes (each job on its own node), worked here from the plan's job counts."""
+    if len(p) <= m:
+        return 1.0
+    k = min(len(a["jobs"]) for a in assignment)
+    return min(4 / 3 - 1 / (3 * m), (k + 1) / k - 1 / (k * m))
+
+
 @pytest.mark.parametrize(("p", "m"), _random_cases(60, 10, seed=7))
-def test_against_brute_force(p: list[int], m: int) -> None:
-    """Brute force on random n <= 10: bounds <= OPT <= makespan, and LPT within Graham's
-    4/3 - 1/(3m) and within the Coffman-Sethi (1976) a-posteriori ratio."""
+@pytest.mark.parametrize(("method", "ratio"), [("longest_first", 4 / 3), ("list", 2.0)])
+def test_against_brute_force(p: list[int], m: int, method: str, ratio: float) -> None:
+    """Brute force on random n <= 10: bounds <= OPT <= makespan, within Graham's worst case
+    (4/3 - 1/(3m) for LPT, Graham 1969; 2 - 1/m for list scheduling, Graham 1966), a
+    proven-optimal plan is the brute-force optimum, and LPT within the Coffman-Sethi
+    (1976) a-posteriori ratio (worked here from the plan)."""
     opt = brute_force_makespan(p, m)
-    inst = Instance.build(p, m)
-    lpt = solve(inst, "longest_first")
-    lst = solve(inst, "list")
-    for r in (lpt, lst):
-        assert r.lower_bound <= opt + 1e-9
-        assert max(r.certificate.bounds.values()) <= opt + 1e-9
-        assert r.makespan >= opt - 1e-9
-        assert r.makespan <= r.worst_case_ratio * opt + 1e-9
-        if r.proven_optimal:
-            assert r.makespan == opt
-    assert lpt.makespan <= lpt.extras["a_posteriori_ratio"] * opt + 1e-9
+    r = solve(Instance.build(p, m), method)
+    assert max(r.certificate.bounds.values()) <= opt and r.lower_bound <= opt <= r.makespan
+    assert r.makespan <= (ratio - (ratio - 1) / m) * opt + 1e-9
+    assert r.proven_optimal <= (r.makespan == opt)  # proven optimal implies the optimum
+    assert r.proven_optimal == (r.lower_bound == opt == r.makespan)
+
+
+@pytest.mark.parametrize(("p", "m"), _random_cases(60, 10, seed=7))
+def test_lpt_within_coffman_sethi(p: list[int], m: int) -> None:
+    """LPT within the Coffman-Sethi (1976) a-posteriori ratio of the brute-force optimum,
+    and the ratio it reports is that ratio, worked here from its plan."""
+    opt = brute_force_makespan(p, m)
+    lpt = solve(Instance.build(p, m), "longest_first")
+    want = coffman_sethi(p, m, lpt.to_dict()["assignment"])
+    assert lpt.extras["a_posteriori_ratio"] == pytest.approx(want)
+    assert lpt.makespan <= want * opt + 1e-9
 
 
 @pytest.mark.parametrize(("p", "m"), _random_cases(25, 25, seed=11))
@@ -160,7 +178,7 @@ def test_compiled_kernel_matches_pure_python_and_heapq(p: list[float], m: int) -
     np.testing.assert_array_equal(fast[1], ref[1])
     order = np.argsort(-d, kind="stable")
     node_of, _ = least_loaded(order, d, m)
-    np.testing.assert_array_equal(node_of[order], assign_in_order(d[order], m)[0])
+    np.testing.assert_array_equal(node_of[order], heapq_least_loaded(d[order].tolist(), m)[0])
 
 
 @settings(max_examples=60, deadline=None)
@@ -192,6 +210,6 @@ def test_zero_length_jobs_leaving_a_node_empty() -> None:
     needs at least one job per node), and it still holds against brute force."""
     p, m = [0.1, 0, 0, 0, 5, 0.1], 5
     res = solve(Instance.build(p, m), "longest_first")
-    assert res.extras["a_posteriori_ratio"] == pytest.approx(lpt_ratio(m))
+    assert res.extras["a_posteriori_ratio"] == pytest.approx(4 / 3 - 1 / 15)  # m = 5
     opt = brute_force_makespan(p, m)
     assert res.lower_bound <= opt <= res.makespan <= res.extras["a_posteriori_ratio"] * opt

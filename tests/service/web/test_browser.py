@@ -124,14 +124,14 @@ def cancel(url: str, path: str) -> None:
             raise
 
 
-def lantern_hill(n: int = 200, m: int = 18) -> dict[str, Any]:
+def quillfern_vale(n: int = 200, m: int = 18) -> dict[str, Any]:
     """An invented 200-frame lighting batch of three sequences with a 3 h deadline."""
     jobs = [
         {"id": f"lh_sq{(i % 3 + 1) * 10:03d}_f{i:04d}", "duration": 300 + (71 * i) % 900,
          "group": f"sq{(i % 3 + 1) * 10:03d}"}
         for i in range(n)
     ]  # fmt: skip
-    return {"jobs": jobs, "node_count": m, "deadline": 10_800, "name": "Lantern Hill sq010-030"}
+    return {"jobs": jobs, "node_count": m, "deadline": 10_800, "name": "Quillfern Vale sq010-030"}
 
 
 def shot(driver: Any, name: str, still: str = "true") -> Path:
@@ -225,14 +225,14 @@ def assert_placed(chart: dict[str, Any], name: str, values: list[tuple[float, fl
 def test_plan_page_bars_rows_and_deadline(browser: Any, url: str) -> None:
     """200 jobs on 18 nodes: 200 bars, 18 rows, every job id in the SVG; the deadline line
     at left + width * deadline / span (the chart's own axis, read from its attributes)."""
-    doc = post(url, lantern_hill(), wait=10)
+    doc = post(url, quillfern_vale(), wait=10)
     assert doc["status"] == "done"
     browser.get(f"{url}/plans/{doc['id']}")
     bars = browser.find_elements("css selector", "svg.timeline rect.job")
     rows = browser.find_elements("css selector", "svg.timeline g.node-row")
     assert len(bars) == 200 and len(rows) == 18
     ids = {b.get_attribute("data-job") for b in bars}
-    assert ids == {j["id"] for j in lantern_hill()["jobs"]}
+    assert ids == {j["id"] for j in quillfern_vale()["jobs"]}
     svg = browser.find_element("css selector", "svg.timeline")
     span = float(svg.get_attribute("data-span"))
     left = float(svg.get_attribute("data-left"))
@@ -254,7 +254,7 @@ def test_plan_page_bars_rows_and_deadline(browser: Any, url: str) -> None:
 
 
 def test_list_page_links_to_plan(browser: Any, url: str) -> None:
-    """The three Lantern Hill demo batches (service/demo/) each appear on the list page with
+    """The three Quillfern Vale demo batches (service/demo/) each appear on the list page with
     the name they were submitted with, and a plan's link leads to that plan's page."""
     docs = [post(url, json.loads(p.read_text()), wait=10) for p in demo_files()]
     assert all(d["status"] == "done" for d in docs)
@@ -348,15 +348,15 @@ def test_solving_page_charts_incumbent_and_bound(browser: Any, url: str, app: An
 
 
 def test_sizing_page_curve_answer_and_cost(browser: Any, url: str) -> None:
-    """A sizing of 120 Lantern Hill frames for a 3 h deadline at 1.80 per node-hour: the
+    """A sizing of 120 Quillfern Vale frames for a 3 h deadline at 1.80 per node-hour: the
     makespan chart has one point per curve row of the JSON API's result, at that row's node
     count and plan makespan on the chart's own axes; the deadline line sits at the
     deadline; the answer (nodes_needed) is marked by a labelled line in both charts and by
     the table row tagged "answer"; the cost chart has one point per row at its cost, and
     the table shows every row's cost to the cent."""
     body = {
-        "name": "Lantern Hill sq010-030: how many nodes for 3 h",
-        "jobs": lantern_hill(120)["jobs"],
+        "name": "Quillfern Vale sq010-030: how many nodes for 3 h",
+        "jobs": quillfern_vale(120)["jobs"],
         "deadline": 10_800,
         "node_hour_cost": 1.8,
     }

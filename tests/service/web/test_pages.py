@@ -47,9 +47,9 @@ def test_list_page_names_plans_and_reads_times_in_utc(client: Any) -> None:
     """A listed plan shows the name and method it was submitted with, and its submission
     time as date, hours and minutes in UTC, the exact time from the JSON API kept in the
     <time> element's datetime attribute."""
-    doc = finished(client, {**body(20, 3), "name": "Lantern Hill sq040 layout"})
+    doc = finished(client, {**body(20, 3), "name": "Quillfern Vale sq040 layout"})
     html = client.get("/").get_data(as_text=True)
-    assert "Lantern Hill sq040 layout · longest_first" in html
+    assert "Quillfern Vale sq040 layout · longest_first" in html
     iso = doc["submitted_at"]
     assert iso.endswith("Z")
     assert f'<time datetime="{iso}">{iso[:10]} {iso[11:16]} UTC</time>' in html

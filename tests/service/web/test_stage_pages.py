@@ -352,7 +352,7 @@ def test_plain_plans_carry_no_stage_marks() -> None:
 # -- the demo ------------------------------------------------------------------------------
 def test_demo_has_a_stage_graph_batch_of_the_invented_studio() -> None:
     """Issue 17 point 6, "the demo gains a stage-graph batch of our invented studio": one
-    demo body uses all four fields (after, uses, limits, slots), with Lantern Hill ids and
+    demo body uses all four fields (after, uses, limits, slots), with Quillfern Vale ids and
     node-NN node names only, and every id it waits for is one of its jobs."""
     staged = [
         json.loads(Path(p).read_text())
@@ -361,11 +361,11 @@ def test_demo_has_a_stage_graph_batch_of_the_invented_studio() -> None:
     ]
     assert len(staged) == 1
     (body,) = staged
-    assert body["name"].startswith("Lantern Hill")
+    assert body["name"].startswith("Quillfern Vale")
     assert all(re.fullmatch(r"node-\d\d", n["id"]) for n in body["nodes"])
     assert any(n.get("slots", 1) > 1 for n in body["nodes"])
     ids = {j["id"] for j in body["jobs"]}
-    assert all(i.startswith("lh_") for i in ids)
+    assert all(i.startswith("qv_") for i in ids)
     waits = [a for j in body["jobs"] for a in j.get("after", [])]
     assert waits and set(waits) <= ids
     used = {u for j in body["jobs"] for u in j.get("uses", [])}

@@ -35,17 +35,28 @@ def test_one_bar_per_job_one_row_per_node() -> None:
     )
 
 
+def graham_plan(deadline: float) -> dict:
+    """Graham's (1969) tight LPT family for m = 3, in minutes: jobs 50 50 40 40 30 30 30
+    min on 3 nodes. LPT puts 50 | 50 | 40, then 40 on the third (80), 30 on the first two
+    (80, 80) and the last 30 on the first: 1h 50m 00s (4m - 1 = 11 units of 10 min). The
+    total work 270 min over 3 nodes is 90 min = 3m units, the optimum (50 + 40, 50 + 40,
+    30 + 30 + 30), so the reported bound is exactly 1h 30m 00s: no bound may exceed the
+    optimum and the mean load already reaches it. The gap is 20 / 90 = 22.22%."""
+    jobs = [3000, 3000, 2400, 2400, 1800, 1800, 1800]
+    return solve(Instance.build(jobs, 3, deadline=deadline), "longest_first").to_dict()
+
+
 def test_deadline_and_bound_lines_are_placed_on_the_time_axis() -> None:
-    """The deadline line sits at left + width * deadline / span, the bound mark likewise."""
-    res = plan_dict(deadline=9000.0)
-    root = ET.fromstring(timeline(res))
+    """The deadline line sits at left + width * deadline / span on the chart's own stated
+    axis, the bound mark likewise, at the bound worked by hand in graham_plan (5400 s)."""
+    root = ET.fromstring(timeline(graham_plan(deadline=6000.0)))
     span = float(root.get("data-span"))
     left = float(root.get("data-left"))
     width = float(root.get("data-plot-width"))
     dl = root.find(".//s:line[@class='deadline']", NS)
     lb = root.find(".//s:line[@class='lower-bound']", NS)
-    assert float(dl.get("x1")) == pytest.approx(left + width * 9000.0 / span, abs=0.01)
-    assert float(lb.get("x1")) == pytest.approx(left + width * res["lower_bound"] / span, abs=0.01)
+    assert float(dl.get("x1")) == pytest.approx(left + width * 6000.0 / span, abs=0.01)
+    assert float(lb.get("x1")) == pytest.approx(left + width * 5400.0 / span, abs=0.01)
 
 
 def test_groups_have_legend_text() -> None:
@@ -59,14 +70,32 @@ def test_groups_have_legend_text() -> None:
     assert sorted(legend) == ["sh010", "sh020"]
 
 
-def test_certificate_sentence() -> None:
-    """The sentence states makespan, bound and gap, and the deadline verdict."""
-    res = plan_dict()
-    text = certificate_sentence(res)
-    assert fmt_duration(res["makespan"]) in text
-    if not res["proven_optimal"]:
-        assert f"{100 * res['gap']:.2f}%" in text
-    assert "deadline" in text
+@pytest.mark.parametrize(
+    ("deadline", "verdict"),
+    [
+        (6000.0, "misses the deadline of 1h 40m 00s by 10m 00s"),
+        (7200.0, "meets the deadline of 2h 00m 00s with 10m 00s to spare"),
+    ],
+)
+def test_certificate_sentence(deadline: float, verdict: str) -> None:
+    """The sentence states makespan, bound and gap, and the deadline verdict, with the
+    numbers of graham_plan worked by hand: 1h 50m 00s, 1h 30m 00s, 20m 00s or 22.22%
+    longer than the best possible; a 1h 40m 00s deadline is missed by 10m 00s and a 2h 00m
+    00s one met with 10m 00s to spare."""
+    text = certificate_sentence(graham_plan(deadline))
+    assert "finishes in 1h 50m 00s" in text and "before 1h 30m 00s" in text
+    assert "at most 20m 00s (22.22%) longer" in text
+    assert verdict in text
+
+
+def test_certificate_sentence_of_an_optimal_plan() -> None:
+    """A plan that meets the mean load is called optimal, with no gap: jobs 7 7 6 6 5 5 4 4
+    4 min on 3 nodes by LPT put 16 min on every node, and 48 / 3 = 16 min (McNaughton 1959),
+    worked by hand; a 15 min deadline cannot be met by any plan."""
+    inst = Instance.build([420, 420, 360, 360, 300, 300, 240, 240, 240], 3, deadline=900)
+    text = certificate_sentence(solve(inst, "longest_first").to_dict())
+    assert "finishes in 16m 00s" in text and "it is optimal" in text and "%" not in text
+    assert "No plan can meet the deadline of 15m 00s" in text
 
 
 def test_plan_context_refreshes_while_working() -> None:
