@@ -16,6 +16,13 @@ placed earlier that run then also ran then in the optimal plan (each started no 
 than it and ends no earlier), so it fits there. So some order of jobs and choice of
 nodes, each job placed as early as it fits, gives an optimal plan; the search below
 tries them all (depth first, pruning branches that cannot beat the best).
+
+Jobs running at time 0 (a re-planned graph) enter as fixed intervals placed before every
+job (``busy``: one slot of a node kept until a tick; ``held``: one place of a limit until
+a tick) and per-job releases (``release``: no start before that tick). The argument is
+unchanged: the fixed intervals are the same in every plan, so they are among "the jobs
+placed before" at every step, and a job's earliest fit respects its release as it
+respects its node's start time.
 """
 
 from __future__ import annotations
@@ -41,6 +48,12 @@ class Tiny:
     uses: list[list[int]] = field(default_factory=list)
     caps: list[int] = field(default_factory=list)
     resolution: float = 1.0
+    #: per job, seconds before which it may not start (empty: none)
+    release: list[float] = field(default_factory=list)
+    #: (node, until seconds): a job running at 0 keeps one slot of that node until then
+    busy: list[tuple[int, float]] = field(default_factory=list)
+    #: (limit, until seconds): a job running at 0 holds one place of that limit until then
+    held: list[tuple[int, float]] = field(default_factory=list)
 
     def __post_init__(self) -> None:
         n, m = len(self.p), len(self.speeds)
@@ -49,6 +62,7 @@ class Tiny:
         self.requires = self.requires or [set() for _ in range(n)]
         self.provides = self.provides or [set() for _ in range(m)]
         self.uses = self.uses or [[] for _ in range(n)]
+        self.release = self.release or [0.0] * n
 
     @property
     def n(self) -> int:
@@ -68,6 +82,18 @@ class Tiny:
     def free(self, k: int) -> int:
         return math.ceil(Fraction(self.free_at[k]) / Fraction(self.resolution))
 
+    def tick(self, seconds: float) -> int:
+        """A time in seconds as whole ticks, rounded up."""
+        return math.ceil(Fraction(seconds) / Fraction(self.resolution))
+
+    def busy_on(self, k: int) -> list[tuple[int, int]]:
+        """The fixed intervals [0, until) of the jobs running at 0 on node k."""
+        return [(0, self.tick(e)) for node, e in self.busy if node == k]
+
+    def held_on(self, lim: int) -> list[tuple[int, int]]:
+        """The fixed intervals [0, until) of the places of limit ``lim`` held at 0."""
+        return [(0, self.tick(e)) for x, e in self.held if x == lim]
+
 
 def _fits(t: int, d: int, placed: Sequence[tuple[int, int]], room: int) -> bool:
     """Whether [t, t + d) keeps fewer than ``room`` of the ``placed`` intervals open at
@@ -83,7 +109,8 @@ def brute_force_optimum(g: Tiny) -> int:
     n, m = g.n, g.m
     d = [[g.ticks(j, k) for k in range(m)] for j in range(n)]
     free = [g.free(k) for k in range(m)]
-    floor = max(free)
+    rel = [g.tick(x) for x in g.release]
+    floor = max(free + [g.tick(e) for _, e in g.busy])
     fastest = [min(x for x in row if x is not None) for row in d]
     succ: list[list[int]] = [[] for _ in range(n)]
     for j in range(n):
@@ -95,11 +122,15 @@ def brute_force_optimum(g: Tiny) -> int:
         return max((fastest[s] + longest_tail(s) for s in succ[j]), default=0)
 
     tail = [longest_tail(j) for j in range(n)]
-    kind = [(g.speeds[k], free[k], g.slots[k], frozenset(g.provides[k])) for k in range(m)]
+    kind = [
+        (g.speeds[k], free[k], g.slots[k], frozenset(g.provides[k]), tuple(sorted(g.busy_on(k))))
+        for k in range(m)
+    ]
     start: list[int | None] = [None] * n
     end = [0] * n
     node_of = [0] * n
-    best = [sum(max(x for x in row if x is not None) for row in d) + floor]
+    late = max([floor, *rel] + [g.tick(e) for _, e in g.held])
+    best = [sum(max(x for x in row if x is not None) for row in d) + late]
 
     def dfs(done: int, span: int) -> None:
         if done == n:
@@ -120,12 +151,13 @@ def brute_force_optimum(g: Tiny) -> int:
                     for h in range(k)
                 ):
                     continue
-                t0 = max(ready, free[k])
-                on_node = [
+                t0 = max(ready, free[k], rel[j])
+                on_node = g.busy_on(k) + [
                     (start[x], end[x]) for x in range(n) if start[x] is not None and node_of[x] == k
                 ]
                 lim = [
-                    [
+                    g.held_on(L)
+                    + [
                         (start[x], end[x])
                         for x in range(n)
                         if start[x] is not None and L in g.uses[x]
@@ -169,6 +201,12 @@ def check_rows(g: Tiny, rows: Sequence[tuple[int, int, int, int]]) -> list[str]:
             bad.append(f"job {j} on slot {s} of node {k}")
         if a < g.free(k):
             bad.append(f"job {j} starts before node {k} is free")
+        if a < g.tick(g.release[j]):
+            bad.append(f"job {j} starts before its release")
+        if b > a:
+            beside = [(r[2], r[3]) for r in rows if r[0] == k] + g.busy_on(k)
+            if sum(1 for x, y in beside if x <= a < y) > g.slots[k]:
+                bad.append(f"node {k} runs more jobs than slots at {a}")
         for i in g.after[j]:
             if a < rows[i][3]:
                 bad.append(f"job {j} starts before job {i} ends")
@@ -179,6 +217,7 @@ def check_rows(g: Tiny, rows: Sequence[tuple[int, int, int, int]]) -> list[str]:
                 bad.append(f"jobs {i} and {j} overlap on a slot")
     for L, cap in enumerate(g.caps):
         users = [rows[j] for j in range(g.n) if L in g.uses[j]]
+        users += [(-1, -1, a, b) for a, b in g.held_on(L)]
         for _, _, a, b in users:
             if a < b and sum(1 for _, _, x, y in users if x <= a < y) > cap:
                 bad.append(f"limit {L} above capacity at {a}")
@@ -186,8 +225,10 @@ def check_rows(g: Tiny, rows: Sequence[tuple[int, int, int, int]]) -> list[str]:
 
 
 def makespan(g: Tiny, rows: Sequence[tuple[int, int, int, int]]) -> int:
-    """Latest end or node start time, in ticks."""
-    return max([r[3] for r in rows] + [g.free(k) for k in range(g.m)])
+    """Latest end, node start time or end of a job running at 0, in ticks."""
+    return max(
+        [r[3] for r in rows] + [g.free(k) for k in range(g.m)] + [g.tick(e) for _, e in g.busy]
+    )
 
 
 def graham_list_schedule(

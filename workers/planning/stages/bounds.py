@@ -9,7 +9,14 @@ eligible node, ``r_j`` / ``q_j`` its head / tail (:mod:`.paths`), ``M = sum_k c_
 slots, ``c_L`` a limit's capacity. Since ``C*`` is a whole number, each bound is rounded
 up to whole ticks.
 
-``busy_nodes``     ``max_k F_k``: the makespan counts every node's start time.
+Jobs carried in (a re-planned graph, :mod:`.carried`): slot ``s`` of node ``k`` is free
+from ``F_s >= F_k`` (``Timing.slot_free``), job ``j`` starts no earlier than its release
+(folded into its head ``r_j``), and carried jobs hold some limit places for a while. Each
+bound below uses the slots' own start times; the limit holds are left out (a relaxation:
+dropping them only adds room), so every bound stays valid. Without carried jobs
+``F_s = F_k`` for every slot of ``k`` and the bounds read as written.
+
+``busy_nodes``     ``max_s F_s``: the makespan counts every slot's start time.
 ``critical_path``  ``max_j r_j + d_j + q_j``: along any chain of waits the jobs run one
                    after another, the first no earlier than an eligible node is free,
                    each for at least its fastest time (evidence: the ids on the path).
@@ -20,7 +27,8 @@ up to whole ticks.
                    node ``k`` does ``s_k d_jk`` speed-1 ticks of work (at least
                    ``w_j = min`` of that over its eligible nodes) and node ``k`` offers
                    ``c_k s_k (C - F_k)``, so
-                   ``C* >= (sum_j w_j + sum_k c_k s_k F_k) / sum_k c_k s_k``.
+                   ``C* >= (sum_j w_j + sum_k c_k s_k F_k) / sum_k c_k s_k`` (with slots
+                   free at their own ``F_s``, ``c_k F_k`` is the sum of its slots' ``F_s``).
 ``limit_load``     per limit L: its jobs all run inside ``[min r, C* - min q]`` (over the
                    jobs J_L using L), at most ``min(c_L, M)`` at a time, each for at least
                    ``d_j``: ``C* >= min r + sum_{J_L} d_j / min(c_L, M) + min q``.
@@ -49,7 +57,8 @@ up to whole ticks.
                    at least ``max(0, min(d_j, t2 - t1, r_j + d_j - t1, t2 - C + q_j +
                    d_j))`` (the least of its overlaps when started first or last: the
                    overlap is concave in the start). If the jobs' sum exceeds the slot-ticks
-                   the nodes offer in ``[t1, t2)`` (``sum_k c_k (t2 - max(t1, F_k))^+``;
+                   the nodes offer in ``[t1, t2)`` (``sum_s (t2 - max(t1, F_s))^+`` over
+                   the slots;
                    for a limit's jobs also ``c_L (t2 - t1)``), no plan ends by ``C``:
                    ``C* >= C + 1``. Each refuted ``C`` is a proof on its own, so a search
                    over ``C`` needs no monotonicity. Run for up to
@@ -127,10 +136,11 @@ def _ceil_div(a: int, b: int) -> int:
 
 
 def busy_nodes(problem: StageProblem) -> Bound:
-    """``max_k F_k``."""
-    free = problem.timing.free
-    k = int(np.argmax(free))
-    return Bound("busy_nodes", int(free[k]), {"node": problem.instance.nodes[k].id})
+    """``max_s F_s`` (every slot's start time; ``max_k F_k`` with nothing carried in)."""
+    t = problem.timing
+    s = int(np.argmax(t.slot_free))
+    k = int(np.searchsorted(t.slot_base, s, side="right")) - 1
+    return Bound("busy_nodes", int(t.slot_free[s]), {"node": problem.instance.nodes[k].id})
 
 
 def critical_path(paths: Paths) -> Bound:
@@ -145,7 +155,7 @@ def mean_load(problem: StageProblem) -> Bound:
     t = problem.timing
     c = problem.slots
     if len(t.speeds) == 1:
-        need = int(t.dmin.sum()) + int((c * t.free).sum())
+        need = int(t.dmin.sum()) + int(t.slot_free.sum())
         total = int(c.sum())
         return Bound(
             "mean_load",
@@ -158,7 +168,7 @@ def mean_load(problem: StageProblem) -> Bound:
     for k, nd in enumerate(problem.instance.nodes):
         w = int(c[k]) * Fraction(nd.speed)
         cap += w
-        busy += w * int(t.free[k])
+        busy += Fraction(nd.speed) * int(t.slot_free[t.slot_base[k] : t.slot_base[k + 1]].sum())
     value = (work + busy) / cap
     return Bound(
         "mean_load",
@@ -398,12 +408,14 @@ def energetic(paths: Paths, floor: int, upper: int) -> Bound:
         if jobs.size
     ]
 
+    one_each = np.ones(t.slot_free.size, dtype=np.int64)  # slots, each free at its F_s
+
     def refuted(c: int) -> dict[str, Any] | None:
         for name, jobs, cap in groups:
             r, d, q = paths.head[jobs], paths.d[jobs], paths.tail[jobs]
             if (r + d + q > c).any():
                 return {"refuted": c, "by": "a window too short", "limit": name}
-            got = refute(r, d, q, c, t.free, p.slots, cap)
+            got = refute(r, d, q, c, t.slot_free, one_each, cap)
             if got is not None:
                 return {"refuted": c, "interval": list(got), "limit": name}
         return None

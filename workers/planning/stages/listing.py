@@ -11,10 +11,17 @@ busy while a job it may run waits. At each event time ``t``:
    the lowest slot; a job whose limits are full, or for which no eligible slot is free,
    waits for a later event while jobs behind it may start.
 
+A graph with jobs carried in (a re-planned one, :mod:`.carried`) adds three kinds of
+event: each slot becomes available at its own ``slot_free`` tick; a job with a release
+becomes ready only once its release tick has come (one more thing it waits for); a limit
+starts with the places its carried jobs hold, each given back at that job's end.
+
 So a ready job starts on the slot that can start it first (a slot free now starts it at
 ``t``; any other only later). No deadlock is possible: whenever nothing runs, every limit
 is empty and every slot is free (after the last ``F_k``), so the first ready job starts;
-and the graph is acyclic, so some job is ready until all have run.
+and the graph is acyclic, so some job is ready until all have run (with jobs carried in:
+whenever nothing runs and a job is not ready or not placed, a release, a hold or a slot
+is still to come, an event at which the argument is made again).
 
 Cost: ready jobs are kept in one heap per *class* (same eligible nodes, same limits:
 such jobs are blocked or not together), with a heap of the classes' best jobs; a
@@ -160,6 +167,9 @@ class Lister:
         self.slot_node = [k for k in range(problem.m) for _ in range(slots[k])]
         self.run_cols: list[list[int]] = [t.run[:, c].tolist() for c in range(len(t.speeds))]
         self.free = t.free.tolist()
+        self.slot_free = t.slot_free.tolist()
+        self.release = [(j, r) for j, r in enumerate(t.release.tolist()) if r > 0]
+        self.held = list(zip(t.held_limit.tolist(), t.held_end.tolist(), strict=True))
         self.cap = problem.capacities.tolist()
         self.forward = (
             np.diff(problem.after_ptr).tolist(),
@@ -177,7 +187,8 @@ class Lister:
 
         ``reverse`` plans the reversed graph (a job waits for the jobs that waited for
         it); ``free`` overrides the node start times ``F_k`` (both for the backward pass
-        of the justification in :mod:`.search`).
+        of the justification in :mod:`.search`). Jobs carried in (releases, slots kept,
+        limit holds) count in forward plans only.
         """
         problem = self.problem
         n = problem.n
@@ -192,6 +203,10 @@ class Lister:
         cap = self.cap
         usage = [0] * len(cap)
         has_limits = problem.has_limits
+        release = [] if reverse else self.release
+        held = [] if reverse else self.held
+        for j, _ in release:
+            waiting[j] += 1  # its release is one more thing it waits for
         rank_l = rank.tolist()
         order = np.argsort(rank, kind="stable").tolist()
 
@@ -202,7 +217,8 @@ class Lister:
                 cheap[cls_l[j]].append(rank_l[j])
         # heap entries are single ints (fast to compare): a class head is
         # rank * nclass + class; an event is time * span + code, where a code below n is
-        # the end of that job and n + s makes slot s available
+        # the end of that job, n + s makes slot s available, n + S + j releases job j and
+        # n + S + n + h ends hold h (S slots)
         heads: list[int] = []
         for c in range(nclass):
             if cheap[c]:
@@ -210,8 +226,16 @@ class Lister:
                 heads.append(cheap[c][0] * nclass + c)
         heapq.heapify(heads)
         free_slots: list[list[int]] = [[] for _ in gcol]
-        span = n + slot_base[-1]
-        events = [free_at[slot_node[s]] * span + n + s for s in range(slot_base[-1])]
+        nslot = slot_base[-1]
+        span = 2 * n + nslot + len(held)
+        if free is None and not reverse:
+            events = [self.slot_free[s] * span + n + s for s in range(nslot)]
+        else:
+            events = [free_at[slot_node[s]] * span + n + s for s in range(nslot)]
+        events += [r * span + n + nslot + j for j, r in release]
+        for hold, (lim, until) in enumerate(held):
+            usage[lim] += 1
+            events.append(until * span + 2 * n + nslot + hold)
         heapq.heapify(events)
         free_count = 0
         blocked_at = [-1] * nclass
@@ -227,25 +251,34 @@ class Lister:
             limit = (now + 1) * span
             while events and events[0] < limit:
                 code = heappop(events) - now * span
-                if code >= n:
-                    s = code - n
-                else:
+                woken: list[int] | tuple[int, ...] = ()
+                if code < n:  # a job ends: its slot, its limits, the jobs waiting for it
                     s = slot_of[code]
                     done += 1
                     if has_limits:
                         for lim in class_limits[cls_l[code]]:
                             usage[lim] -= 1
-                    for x in si[sp[code] : sp[code + 1]]:
-                        waiting[x] -= 1
-                        if waiting[x] == 0:
-                            c = cls_l[x]
-                            h = cheap[c]
-                            r = rank_l[x]
-                            if not h or r < h[0]:
-                                heappush(heads, r * nclass + c)
-                            heappush(h, r)
-                heappush(free_slots[node_group[slot_node[s]]], s)
-                free_count += 1
+                    woken = si[sp[code] : sp[code + 1]]
+                elif code < n + nslot:  # a slot becomes available
+                    s = code - n
+                elif code < 2 * n + nslot:  # a job's release has come
+                    s = -1
+                    woken = (code - n - nslot,)
+                else:  # a carried job gives back a limit's place
+                    usage[held[code - 2 * n - nslot][0]] -= 1
+                    continue
+                for x in woken:
+                    waiting[x] -= 1
+                    if waiting[x] == 0:
+                        c = cls_l[x]
+                        h = cheap[c]
+                        r = rank_l[x]
+                        if not h or r < h[0]:
+                            heappush(heads, r * nclass + c)
+                        heappush(h, r)
+                if s >= 0:
+                    heappush(free_slots[node_group[slot_node[s]]], s)
+                    free_count += 1
             rounds += 1
             blocked: list[int] = []
             while heads and free_count:

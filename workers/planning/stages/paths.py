@@ -1,7 +1,8 @@
 """Heads and tails of a stage graph: longest paths, in whole ticks.
 
 With ``d_j`` a job's running time on its fastest eligible node (``Timing.dmin``) and
-``R_j`` the earliest node start time among the nodes it may run on:
+``R_j`` the earliest tick a slot it may run on is free, or its release if later (a job
+waiting for a job carried in, :mod:`.carried`, starts no earlier than that job's end):
 
 * the **head** ``r_j = max(R_j, max_{i in after(j)} r_i + d_i)`` is a time before which
   job ``j`` cannot start in any plan (its predecessors run one after another along any
@@ -27,10 +28,12 @@ I64 = npt.NDArray[np.int64]
 
 
 def release_ticks(problem: StageProblem) -> I64:
-    """``R_j``: the earliest start time ``F_k`` among the nodes job ``j`` may run on."""
+    """``R_j``: the earliest tick a slot of a node job ``j`` may run on is free
+    (``F_k`` unless carried jobs keep every slot of ``k``), or its release if later."""
     t = problem.timing
-    per_type = np.where(t.eligible, t.free[None, :], np.iinfo(np.int64).max).min(axis=1)
-    return np.ascontiguousarray(per_type[t.job_type])
+    ready = t.node_ready
+    per_type = np.where(t.eligible, ready[None, :], np.iinfo(np.int64).max).min(axis=1)
+    return np.ascontiguousarray(np.maximum(per_type[t.job_type], t.release))
 
 
 @dataclass(frozen=True, eq=False)

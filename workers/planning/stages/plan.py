@@ -3,7 +3,9 @@
 Times are whole ticks of ``instance.resolution`` (see :mod:`.timing`): job ``j`` on node
 ``k`` runs ``[start_j, start_j + d_jk)``. :meth:`StagePlan.violations` checks every rule
 in integers, so a plan that passes is feasible exactly, for the tick-rounded problem
-and therefore for the stated durations.
+and therefore for the stated durations. With jobs carried in (:mod:`.carried`) a slot is
+used no earlier than it is free, a job starts no earlier than its release, and a limit's
+places held by carried jobs count until they end.
 """
 
 from __future__ import annotations
@@ -44,9 +46,10 @@ class StagePlan:
 
     @cached_property
     def makespan_ticks(self) -> int:
-        """The latest job end or node start time (a busy node ends no earlier than its
-        ``free_at``), in ticks."""
-        return max(int(self.end.max()) if self.end.size else 0, int(self.problem.timing.free.max()))
+        """The latest job end or slot start time (a busy node ends no earlier than its
+        ``free_at``, a slot kept by a carried job no earlier than that job), in ticks."""
+        top = int(self.problem.timing.slot_free.max())
+        return max(int(self.end.max()) if self.end.size else 0, top)
 
     @property
     def makespan_exact(self) -> Fraction:
@@ -79,6 +82,12 @@ class StagePlan:
         out += [f"job {ids[j]!r} may not run on node {int(self.node[j])}" for j in bad[:5]]
         bad = np.flatnonzero(self.start < t.free[self.node])
         out += [f"job {ids[j]!r} starts before its node is free" for j in bad[:5]]
+        if not out:
+            slot_at = t.slot_free[t.slot_base[self.node] + self.slot]
+            bad = np.flatnonzero(self.start < slot_at)
+            out += [f"job {ids[j]!r} starts before its slot is free" for j in bad[:5]]
+        bad = np.flatnonzero(self.start < t.release)
+        out += [f"job {ids[j]!r} starts before a carried job it waits for ends" for j in bad[:5]]
         preds = p.after_idx
         jobs = np.repeat(np.arange(n), np.diff(p.after_ptr))
         bad = np.flatnonzero(self.start[jobs] < self.end[preds])
@@ -88,7 +97,11 @@ class StagePlan:
         out += self._overlaps(self.node * (int(p.slots.max()) + 1) + self.slot, "a slot")
         for lim, name in enumerate(p.limit_names):
             users = np.flatnonzero(_uses(p, lim))
-            peak = _peak(self.start[users], self.end[users])
+            until = t.held_end[t.held_limit == lim]  # places held from 0 by carried jobs
+            peak = _peak(
+                np.concatenate((self.start[users], np.zeros_like(until))),
+                np.concatenate((self.end[users], until)),
+            )
             if peak > p.capacities[lim]:
                 out.append(f"limit {name!r} runs {peak} jobs at once, above {p.capacities[lim]}")
         return out

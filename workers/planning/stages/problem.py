@@ -16,6 +16,9 @@ refuses, with :class:`~workers.planning.errors.InvalidInstance`, an unknown id i
 ``after``, a job waiting for itself, a cycle (naming the jobs of one cycle, in order), a
 limit used but not given, a capacity below 1 and a slot count below 1.
 
+A re-planned graph also carries the jobs still running at its time 0 (:mod:`.carried`:
+the slots, limits and waits they hold until they end); a fresh one carries none.
+
 Every time of a plan is counted in whole ticks of ``instance.resolution``
 (:mod:`.timing`); :attr:`StageProblem.timing` holds those tick tables.
 """
@@ -33,6 +36,7 @@ import numpy.typing as npt
 
 from ..errors import InvalidInstance, Issue
 from ..model import Instance
+from .carried import Carried
 from .timing import Timing, build_timing
 
 I64 = npt.NDArray[np.int64]
@@ -149,6 +153,7 @@ class StageProblem:
     succ_idx: I64
     order: I64  # a topological order (Kahn's), checked at build time
     levels: I64  # where its whole levels start (see kahn_order)
+    carried: Carried | None = None  # jobs running at time 0 (a re-planned graph)
 
     # -- construction -----------------------------------------------------------------
     @classmethod
@@ -195,15 +200,23 @@ class StageProblem:
         limit_names: Sequence[str],
         capacities: Sequence[int],
         slots: Sequence[int],
+        carried: Carried | None = None,
     ) -> StageProblem:
         """Build from job, limit and node indices (rows or CSR ``(ptr, idx)`` arrays),
         checking the graph for cycles and the ticks for range; the fast way in when the
-        ids were already resolved (the other checks are :meth:`build`'s)."""
+        ids were already resolved (the other checks are :meth:`build`'s). ``carried``:
+        the jobs running at time 0 of a re-planned graph (:mod:`.carried`)."""
         n = instance.n
         a_ptr, a_idx = after if isinstance(after, tuple) else csr(after)
         u_ptr, u_idx = uses if isinstance(uses, tuple) else csr(uses)
         if a_ptr.shape != (n + 1,) or u_ptr.shape != (n + 1,) or len(slots) != instance.m:
             raise ValueError("after, uses and slots must match the instance's jobs and nodes")
+        if carried is not None and (
+            carried.wait_ptr.shape != (n + 1,)
+            or len(carried.node_free) != len(slots)
+            or (np.bincount(carried.node, minlength=len(slots)) > np.asarray(slots)).any()
+        ):
+            raise ValueError("carried jobs must wait-match the jobs and fit in their nodes' slots")
         s_ptr, s_idx = transpose(a_ptr, a_idx, n)
         order, levels = kahn_order(n, a_ptr, s_ptr, s_idx)
         if order.size < n:
@@ -234,6 +247,7 @@ class StageProblem:
             succ_idx=s_idx,
             order=order,
             levels=levels,
+            carried=carried,
         )
         _ = problem.timing  # refuses ticks beyond rational.MAX_TICKS here, at build time
         return problem
@@ -261,15 +275,17 @@ class StageProblem:
     @cached_property
     def timing(self) -> Timing:
         """Running times and node start times in whole ticks (see :mod:`.timing`)."""
-        return build_timing(self.instance)
+        return build_timing(self.instance, slots=self.slots, carried=self.carried)
 
     @cached_property
     def rounded(self) -> bool:
-        """Whether whole ticks changed any stated time (a running time or a ``free_at``
-        that is not a whole number of ticks on some speed)."""
-        low = build_timing(self.instance, down=True)
-        return not (
-            np.array_equal(low.run, self.timing.run) and np.array_equal(low.free, self.timing.free)
+        """Whether whole ticks changed any stated time (a running time, a ``free_at`` or a
+        carried job's end that is not a whole number of ticks)."""
+        low = build_timing(self.instance, down=True, slots=self.slots, carried=self.carried)
+        high = self.timing
+        return not all(
+            np.array_equal(getattr(low, key), getattr(high, key))
+            for key in ("run", "free", "slot_free", "release", "held_end")
         )
 
     def relaxed(self) -> StageProblem:
@@ -278,7 +294,9 @@ class StageProblem:
         if not self.rounded:
             return self
         out = copy.copy(self)
-        out.__dict__["timing"] = build_timing(self.instance, down=True)
+        out.__dict__["timing"] = build_timing(
+            self.instance, down=True, slots=self.slots, carried=self.carried
+        )
         out.__dict__["rounded"] = False
         return out
 
@@ -302,10 +320,12 @@ class StageProblem:
 
     @property
     def plain_nodes(self) -> bool:
-        """Identical single-slot nodes: one speed, all free at 0, no tags, one slot each."""
+        """Identical single-slot nodes: one speed, all free at 0, no tags, one slot each
+        (and no job carried in)."""
         t = self.timing
         return (
-            bool((self.slots == 1).all())
+            self.carried is None
+            and bool((self.slots == 1).all())
             and bool((t.free == 0).all())
             and len(t.speeds) == 1
             and t.all_eligible

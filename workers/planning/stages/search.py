@@ -10,7 +10,8 @@ bound (a proof of optimality), rounds of
   plans the reversed graph with the jobs that end latest first; its mirror image is a
   plan of the same length (every wait, slot and limit mirrors); a forward pass then
   plans the jobs in the order of the mirror's starts. Only when every node is free at
-  the same tick (else the mirror could start a job before its node is free);
+  the same tick and no job is carried in (else the mirror could start a job before its
+  node, its slot or its release);
 * **priority perturbation**: the bottom level, or the best plan's starts, with random
   noise (a seeded generator, so a run with a round limit is reproducible).
 
@@ -29,6 +30,7 @@ from __future__ import annotations
 
 import dataclasses
 import time
+from collections.abc import Callable
 
 import numpy as np
 import numpy.typing as npt
@@ -67,9 +69,9 @@ def _plan(problem: StageProblem, lister: Lister, rank: I64) -> StagePlan:
 
 def justify(problem: StageProblem, lister: Lister, plan: StagePlan) -> list[StagePlan]:
     """The mirror of a backward pass and the forward pass after it (module doc); empty
-    when the nodes are not all free at the same tick."""
+    when the nodes are not all free at the same tick or jobs are carried in."""
     free = problem.timing.free
-    if not (free == free[0]).all():
+    if not (free == free[0]).all() or not problem.timing.carried_free:
         return []
     f0 = int(free[0])
     back = lister.schedule(by_keys(-plan.end, plan.start), reverse=True)
@@ -263,8 +265,12 @@ def solve_stages(
     *,
     seed: int = 0,
     max_rounds: int | None = None,
+    answer: Callable[..., StageResult] = StageResult,
 ) -> StageResult:
     """Plan ``problem`` with ``method`` (one of :data:`METHODS`) and certify the plan.
+
+    ``answer`` builds the result from :class:`StageResult`'s fields (a subclass that adds
+    its own, such as a re-plan's, whose makespan also counts the jobs carried in).
 
     ``list`` and ``longest_first`` are one pass of their rule; ``exact`` and ``auto`` run
     :func:`improve` within ``budget`` (default :data:`~workers.planning.budget.
@@ -294,7 +300,7 @@ def solve_stages(
         low = problem.relaxed()
         bounds = stage_bounds(low, longest_paths(low), upper=plan.makespan_ticks)
     assert bounds is not None
-    out = StageResult(
+    out = answer(
         plan=plan,
         bounds=bounds,
         method=method,

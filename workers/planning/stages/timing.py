@@ -18,6 +18,13 @@ to integer starts.) The makespan of a plan is the latest job end or node start t
 ``max(max_j end_j, max_k F_k)``: a node still busy finishes no earlier than its
 ``free_at``, as in the rest of spanwright.
 
+A graph that starts while jobs still run (a re-planned one: :mod:`.carried`) adds, in
+ticks rounded the same way: a start time per *slot* (``slot_free``: ``F_k``, or later where
+a carried job keeps the slot), a **release** per job (it may not start earlier), and the
+holds of limits by carried jobs (``held_limit``, ``held_end``: one of the limit's places is
+taken until then). The makespan then counts every slot's start time:
+``max(max_j end_j, max_s slot_free_s)`` (with no carried job, ``max_k F_k`` as above).
+
 The tables are refused (:class:`~workers.planning.errors.InvalidInstance`) when a plan
 could span more than :data:`~workers.planning.rational.MAX_TICKS` ticks: the latest node
 start plus every job at its slowest eligible speed.
@@ -36,6 +43,7 @@ from ..errors import InvalidInstance, Issue
 from ..farm_bounds import eligibility
 from ..model import FloatArray, Instance
 from ..rational import MAX_TICKS
+from .carried import Carried
 
 I64 = npt.NDArray[np.int64]
 BoolArray = npt.NDArray[np.bool_]
@@ -84,7 +92,9 @@ class Timing:
     first) and ``speed_col[k]`` node ``k``'s column; ``free[k]`` is ``F_k``;
     ``eligible[job_type[j], k]`` says whether job ``j`` may run on node ``k``;
     ``dmin[j]`` / ``dmax[j]`` are its running times on its fastest / slowest eligible
-    nodes.
+    nodes. ``slot_base[k]:slot_base[k + 1]`` are node ``k``'s slots in ``slot_free``
+    (when each is free); ``release[j]`` is the tick before which job ``j`` may not start;
+    ``held_limit[h]`` / ``held_end[h]`` a limit place held until then (module docstring).
     """
 
     resolution: float
@@ -96,6 +106,11 @@ class Timing:
     eligible: BoolArray
     dmin: I64
     dmax: I64
+    slot_base: I64
+    slot_free: I64
+    release: I64
+    held_limit: I64
+    held_end: I64
 
     @property
     def all_eligible(self) -> bool:
@@ -106,14 +121,37 @@ class Timing:
         """Job ``j``'s running time on node ``k``."""
         return int(self.run[j, self.speed_col[k]])
 
+    @property
+    def node_ready(self) -> I64:
+        """Per node, the earliest tick one of its slots is free (``F_k`` unless a
+        carried job keeps every slot longer)."""
+        out: I64 = np.minimum.reduceat(self.slot_free, self.slot_base[:-1])
+        return out
+
+    @property
+    def carried_free(self) -> bool:
+        """Whether nothing is carried in: every slot free from its node's ``F_k``, no
+        release, no hold."""
+        return not (self.held_end.size or self.release.any()) and bool(
+            (self.slot_free == np.repeat(self.free, np.diff(self.slot_base))).all()
+        )
+
     def seconds(self, t: int) -> Fraction:
         """``t`` ticks as exact seconds."""
         return t * Fraction(self.resolution)
 
 
-def build_timing(inst: Instance, *, down: bool = False) -> Timing:
-    """The tick tables of ``inst``; raises :class:`InvalidInstance` past ``MAX_TICKS`` and
-    :class:`~workers.planning.errors.Infeasible` for a job no node may run.
+def build_timing(
+    inst: Instance,
+    *,
+    down: bool = False,
+    slots: I64 | None = None,
+    carried: Carried | None = None,
+) -> Timing:
+    """The tick tables of ``inst`` (``slots`` per node, 1 each by default; ``carried``:
+    the jobs running at time 0, see :mod:`.carried`); raises :class:`InvalidInstance`
+    past ``MAX_TICKS`` and :class:`~workers.planning.errors.Infeasible` for a job no node
+    may run.
 
     With ``down``, every running time and node start is rounded *down* instead: the
     tables of a relaxation whose optimum is at most the stated problem's (each job and
@@ -141,8 +179,22 @@ def build_timing(inst: Instance, *, down: bool = False) -> Timing:
     rows = np.arange(inst.n)
     dmin = run[rows, fast[jt]]
     dmax = run[rows, slow[jt]]
-    approx = float(free.max()) + float(dmax.sum(dtype=np.float64))
-    if approx > 2.0 * MAX_TICKS or int(free.max()) + int(dmax.sum()) > MAX_TICKS:
+    slot_counts = np.ones(inst.m, dtype=np.int64) if slots is None else slots
+    slot_base = np.concatenate(([0], np.cumsum(slot_counts))).astype(np.int64)
+    slot_free = np.repeat(free, slot_counts)
+    release = np.zeros(inst.n, dtype=np.int64)
+    held_limit = held_end = np.zeros(0, dtype=np.int64)
+    if carried is not None:
+        free, ends = carried.ticks(res, down=down)  # node starts, exactly (carried.py)
+        top = max([0, *free.tolist(), *ends.tolist()])
+        if top > MAX_TICKS:
+            raise _too_many_ticks(float(top))
+        slot_free = carried.slot_free(free, slot_counts, ends)
+        release = carried.release(ends)
+        held_limit, held_end = carried.held(ends)
+    start = max(int(slot_free.max()), int(release.max()) if release.size else 0)
+    approx = float(start) + float(dmax.sum(dtype=np.float64))
+    if approx > 2.0 * MAX_TICKS or start + int(dmax.sum()) > MAX_TICKS:
         raise _too_many_ticks(approx)  # (the float test first keeps the int64 sum in range)
     return Timing(
         resolution=res,
@@ -154,4 +206,9 @@ def build_timing(inst: Instance, *, down: bool = False) -> Timing:
         eligible=elig.eligible,
         dmin=np.ascontiguousarray(dmin),
         dmax=np.ascontiguousarray(dmax),
+        slot_base=slot_base,
+        slot_free=slot_free,
+        release=release,
+        held_limit=held_limit,
+        held_end=held_end,
     )
