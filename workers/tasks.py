@@ -62,6 +62,8 @@ def solve_plan(
     from service import reading
     from workers.planning import usecases
 
+    if not isinstance(body, payload.Columns) and "stage_replan" in body:
+        return _replan_stages(body, method=method, time_budget=time_budget, should_stop=should_stop)
     inst: reading.Problem
     if isinstance(body, payload.Columns):
         plain = reading.read_columns(body.envelope, body.ids, body.durations, body.groups)
@@ -91,6 +93,43 @@ def solve_plan(
         "deadline_met": None if dl is None else dl["met"],
     }
     return Outcome(result, summary, res.stop_reason == "cancelled", answer.to_json())
+
+
+def _replan_stages(
+    body: Mapping[str, Any],
+    *,
+    method: str,
+    time_budget: float,
+    should_stop: Callable[[], bool],
+) -> Outcome:
+    """A stage graph's re-plan queued by ``POST /v1/plans/{id}/replan`` (its stored request
+    names the original request, the original plan's nodes and the events)."""
+    from service import reading
+    from workers.planning.budget import Budget
+    from workers.planning.stages.replan import replan_stages
+
+    spec = body["stage_replan"]
+    problem = reading.read_problem(spec["request"])
+    res = replan_stages(
+        problem,  # type: ignore[arg-type]
+        spec["planned_on"],
+        reading.read_events(spec["events"]),
+        method=method,
+        budget=Budget(time_budget, should_stop),
+    )
+    result = res.to_dict(with_assignment=False)
+    dl = result.get("deadline")
+    summary = {
+        "makespan": res.makespan,
+        "lower_bound": res.lower_bound,
+        "gap": res.gap if res.gap != float("inf") else None,
+        "proven_optimal": res.proven_optimal,
+        "jobs": res.problem.n,
+        "nodes": res.problem.m,
+        "stop_reason": res.stop_reason,
+        "deadline_met": None if dl is None else dl["met"],
+    }
+    return Outcome(result, summary, res.stop_reason == "cancelled", res.to_json())
 
 
 def size_farm(

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+from typing import Any
 
 from workers.planning.errors import InvalidInstance, Issue
 from workers.planning.solve import METHODS
@@ -35,8 +36,10 @@ def _object(path: str) -> dict[str, object]:
 
 
 def run(args: argparse.Namespace) -> int:
-    from workers.planning.budget import DEFAULT_SECONDS
+    from workers.planning.budget import DEFAULT_SECONDS, Budget
     from workers.planning.replan import replan
+    from workers.planning.stages.problem import StageProblem
+    from workers.planning.stages.replan import replan_stages
 
     from .. import reading
     from ..schemas import load_plan_request, load_replan_request
@@ -52,19 +55,26 @@ def run(args: argparse.Namespace) -> int:
     budget = args.time_budget
     if budget is None:
         budget = ev.time_budget if ev.time_budget is not None else request.get("time_budget")
-    inst = reading.read_instance(load_plan_request(request, settings_from_env()))
-    res = replan(
-        inst,
-        reading.planned_nodes(result),
-        ev,
-        method=str(method),
-        time_budget=DEFAULT_SECONDS if budget is None else float(budget),
-    )
+    problem = reading.read_problem(load_plan_request(request, settings_from_env()))
+    seconds = DEFAULT_SECONDS if budget is None else float(budget)
+    if isinstance(problem, StageProblem):  # waits, limits and slots carried over
+        res: Any = replan_stages(
+            problem,
+            reading.planned_nodes(result),
+            ev,
+            method=str(method),
+            budget=Budget(seconds),
+        )
+    else:
+        res = replan(
+            problem, reading.planned_nodes(result), ev, method=str(method), time_budget=seconds
+        )
+    doc = res.to_dict()
     if args.json:
-        print_json(res.to_dict())
+        print_json(doc)
     else:
         print(res.summary())
-        info = res.extras["replan"]
+        info = doc["replan"]
         print(f"time origin     {info['time_origin']:.6g} s after the original start")
         print(
             f"kept running    {plural(len(info['running']), 'job')}; planned again "

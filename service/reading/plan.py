@@ -27,10 +27,9 @@ from workers.planning.model import (
     duplicates,
     identical_nodes,
 )
-from workers.planning.stages.problem import StageProblem
 
 from .spread import read_spread
-from .stages import Problem, refuse_stages, with_stages
+from .stages import Problem, with_stages
 
 
 def read_instance(body: Mapping[str, Any]) -> Instance:
@@ -50,13 +49,8 @@ def read_problem(body: Mapping[str, Any]) -> Problem:
 
 def read_plan_body(body: Mapping[str, Any]) -> tuple[Problem, SpreadRequest | None]:
     """What a ``POST /v1/plans`` body asks for: the batch (or stage graph) and, with
-    estimate spread, what to simulate. A stage graph with spread inputs is refused (the
-    simulation does not follow waits, limits and slots yet)."""
-    problem = read_problem(body)
-    spread = read_spread(body)
-    if spread is not None and isinstance(problem, StageProblem):
-        refuse_stages(body, "the confidence simulation")
-    return problem, spread
+    estimate spread, what to simulate."""
+    return read_problem(body), read_spread(body)
 
 
 def read_columns(

@@ -19,12 +19,15 @@ from typing import Any
 from flask import Blueprint, Response
 
 from workers.planning.replan import remaining_work
+from workers.planning.stages.problem import StageProblem
+from workers.planning.stages.replan import remaining_stages
 
 from ..problems import NotFinished, NotFound
-from ..reading import planned_nodes, read_events, read_instance, refuse_stages, replan_body
+from ..reading import planned_nodes, read_events, read_instance, read_problem, replan_body
+from ..reading.stages import is_staged
 from ..schemas import load_replan_request
 from ..services import services, tenant
-from .jobs import ID_RE, queue_record, read_json_body
+from .jobs import ID_RE, Validated, queue_record, read_json_body
 from .plans import RESOURCE, read_plan
 
 blueprint = Blueprint("replan", __name__)
@@ -46,10 +49,10 @@ def replan(rid: str) -> Response:
     raw_events, body = read_json_body()
     events = read_events(load_replan_request(body))
     original = json.loads(raw_request)
-    refuse_stages(original, "re-planning")  # never re-plan a graph as independent jobs
-    work = remaining_work(
-        read_instance(original), planned_nodes(json.loads(old.result_json)), events
-    )
+    planned_on = planned_nodes(json.loads(old.result_json))
+    if is_staged(original):  # waits, limits and slots: running jobs carried into the plan
+        return _replan_stages(rid, original, planned_on, body, raw_events)
+    work = remaining_work(read_instance(original), planned_on, events)
     request = replan_body(original, work, events)
     checked = read_plan(request, svc.settings)
     data = checked.data
@@ -63,4 +66,42 @@ def replan(rid: str) -> Response:
     fingerprint = hashlib.sha256(f"replan {rid}\n".encode() + raw_events).hexdigest()
     return queue_record(
         RESOURCE, raw, checked, meta, fingerprint, more={"replan": {"of": rid, **work.info()}}
+    )
+
+
+def _replan_stages(
+    rid: str,
+    original: dict[str, Any],
+    planned_on: dict[str, str],
+    events_body: dict[str, Any],
+    raw_events: bytes,
+) -> Response:
+    """A stage graph's re-plan: checked here (422 for events the graph contradicts), then
+    queued as a record whose stored request names the original, the original plan's
+    nodes and the events (``stage_replan``; the worker rebuilds what is left from them:
+    running jobs' slots, held limits and waits are not plan-request fields)."""
+    svc = services()
+    events = read_events(load_replan_request(events_body))
+    problem = read_problem(original)
+    assert isinstance(problem, StageProblem)  # is_staged said so
+    left = remaining_stages(problem, planned_on, events)
+    method = events.method or str(original.get("method") or "longest_first")
+    budget = events.time_budget
+    if budget is None:
+        budget = float(original.get("time_budget", svc.settings.default_time_budget))
+    request = {
+        "stage_replan": {"request": original, "planned_on": planned_on, "events": events_body},
+        "method": method,
+        "time_budget": budget,
+    }
+    checked = Validated({"method": method, "time_budget": budget})
+    meta: dict[str, Any] = {
+        "method": method,
+        "time_budget": repr(float(budget)),
+        "name": f"replan of {rid}",
+    }
+    fingerprint = hashlib.sha256(f"replan {rid}\n".encode() + raw_events).hexdigest()
+    raw = json.dumps(request, allow_nan=False).encode()
+    return queue_record(
+        RESOURCE, raw, checked, meta, fingerprint, more={"replan": {"of": rid, **left.info()}}
     )

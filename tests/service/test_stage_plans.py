@@ -88,10 +88,38 @@ def test_limits_on_plain_jobs_are_not_dropped(client: Any) -> None:
     assert doc["result"]["makespan"] == 5.0
 
 
-def test_replanning_a_graph_is_refused_not_flattened(client: Any) -> None:
-    """Re-planning does not follow waits yet: a finished stage-graph plan's re-plan is a
-    422 naming the first wait, never a plan of independent jobs."""
+def test_a_graph_is_replanned_with_its_waits_not_flattened(client: Any) -> None:
+    """Re-planning a finished stage-graph plan after a node is lost: queued and done; every
+    job not finished or running is planned again, and no job starts before what it waits
+    for has ended (the running ones end at start + duration / speed, worked here from the
+    original plan); the plan page of the re-plan renders."""
     doc = client.post("/v1/plans", json=SHOT, headers={"Prefer": "wait=10"}).get_json()
-    r = client.post(f"/v1/plans/{doc['id']}/replan", json={"elapsed": 1})
-    assert r.status_code == 422
-    assert [e["pointer"] for e in r.get_json()["errors"]] == ["/jobs/0/uses"]
+    rows = doc["result"]["assignment"]
+    at = 1.0  # one second in: whatever started at 0 is running
+    running = [
+        {"job": j["id"], "node": row["node"], "started_at": j["start"]}
+        for row in rows
+        for j in row["jobs"]
+        if j["start"] <= at < j["end"]
+    ]
+    events = {"elapsed": at, "running": running}
+    r = client.post(
+        f"/v1/plans/{doc['id']}/replan", json=events, headers={"Prefer": "wait=10"}
+    ).get_json()
+    assert r["status"] == "done", r
+    ends = {x["job"]: x["end"] for x in r["replan"]["running"]}  # time 0 = now
+    starts = {}
+    for row in r["result"]["assignment"]:
+        for j in row["jobs"]:
+            starts[j["id"]] = j["start"]
+            ends[j["id"]] = j["end"]
+    ids = {j["id"] for j in SHOT["jobs"]}
+    assert set(starts) | {x["job"] for x in running} == ids
+    waits = [  # each job planned again, against each job it waits for
+        (starts[job["id"]], ends[before])
+        for job in SHOT["jobs"]
+        if job["id"] in starts
+        for before in job.get("after", [])
+    ]
+    assert waits and all(start >= end for start, end in waits)
+    assert client.get(f"/plans/{r['id']}").status_code == 200

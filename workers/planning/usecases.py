@@ -81,11 +81,17 @@ def plan(
     if spread is not None:
         from .confidence import confidence_block
 
-        if not isinstance(res, PlanResult):
-            raise InvalidInstance(
-                "the confidence simulation does not handle stage graphs yet",
-                [Issue(("spread",), "not supported with after, uses, limits or slots yet")],
+        if not isinstance(res, PlanResult):  # a stage graph: waits, limits and slots
+            from .confidence.stages import stage_confidence_block
+
+            extra["confidence"] = stage_confidence_block(
+                res,
+                spread=spread.spread,
+                samples=spread.samples,
+                seed=spread.seed,
+                deadline=res.problem.instance.deadline,
             )
+            return PlanAnswer(res, extra)
         extra["confidence"] = confidence_block(
             res.schedule,
             spread=spread.spread,

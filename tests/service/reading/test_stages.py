@@ -64,16 +64,15 @@ def test_unknown_id_self_wait_and_unknown_limit_are_refused_by_path() -> None:
     assert paths(exc) == [("jobs", 0, "after", 0), ("jobs", 1, "after", 0), ("jobs", 2, "uses", 0)]
 
 
-def test_sizing_keeps_the_graph_and_simulation_refuses_it() -> None:
-    """A sizing body that uses a wait is sized as a graph (never as independent jobs); a
-    plan with spread inputs and a wait is refused (422): the simulation does not follow
-    waits yet."""
+def test_sizing_and_simulation_keep_the_graph() -> None:
+    """A sizing body that uses a wait is sized as a graph, and a plan with spread inputs
+    and a wait is read as a graph with its spread: never as independent jobs."""
     jobs = [{"id": "a", "duration": 5}, {"id": "b", "duration": 5, "after": ["a"]}]
     args = read_sizing_request({"jobs": jobs, "deadline": 100})
     assert isinstance(args, StageSizingArgs) and args.template.arcs == 1
-    with pytest.raises(InvalidInstance) as exc:
-        read_plan_body(body(jobs, spread=0.2))
-    assert paths(exc) == [("jobs", 1, "after")]
+    problem, spread = read_plan_body(body(jobs, spread=0.2))
+    assert isinstance(problem, StageProblem) and problem.arcs == 1
+    assert spread is not None and spread.spread == 0.2
 
 
 def test_csv_reads_after_uses_and_slots() -> None:
