@@ -182,7 +182,9 @@ def test_admin_reads_any_tenant(keyed_app: Any) -> None:
     """The admin key reads and lists another tenant's records (``?tenant=``); a tenant key
     asking for another tenant's list gets 400; the admin's own submissions are its own."""
     c = keyed_app.test_client()
-    loc = c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).headers["Location"]
+    loc = c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).headers[
+        "Location"
+    ]
     rid = loc.rsplit("/", 1)[1]
     assert c.get(loc, headers=bearer("ops")).status_code == 200
     items = c.get("/v1/plans?tenant=quillfernvale", headers=bearer("ops")).get_json()["items"]

@@ -55,7 +55,9 @@ def test_tenant_depth_limit(keyed_app: Any, drain_queue: Any) -> None:
     drain_queue()
     for rid in before:
         assert c.get(f"/v1/plans/{rid}", headers=bearer("quillfernvale")).json["status"] == "done"
-    assert c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code == 202
+    assert (
+        c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code == 202
+    )
 
 
 def test_global_depth_limit(keyed_app: Any) -> None:
@@ -77,9 +79,13 @@ def test_cancelled_records_free_their_slot(keyed_app: Any) -> None:
         c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).headers["Location"]
         for _ in range(5)
     ]
-    assert c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code == 429
+    assert (
+        c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code == 429
+    )
     assert c.delete(locs[0], headers=bearer("quillfernvale")).status_code == 200
-    assert c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code == 202
+    assert (
+        c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).status_code == 202
+    )
 
 
 def test_reserved_slot_without_record_is_not_pruned(keyed_app: Any) -> None:
@@ -185,7 +191,9 @@ def test_replan_is_admitted_like_a_submit(keyed_app: Any, drain_queue: Any) -> N
     stored); a retry with its bound Idempotency-Key still gets its plan at the limit; and
     it counts against the per-tenant request rate like every keyed request."""
     c = keyed_app.test_client()
-    loc = c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).headers["Location"]
+    loc = c.post("/v1/plans", json=small_batch(), headers=bearer("quillfernvale")).headers[
+        "Location"
+    ]
     drain_queue()
     events = {"elapsed": 10.0, "finished": ["sh010_f000"]}
     key = {"Idempotency-Key": '"lh-replan-0001"', **bearer("quillfernvale")}
