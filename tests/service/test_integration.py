@@ -100,10 +100,11 @@ def test_cancel_solving_returns_best_so_far(real_stack: Any) -> None:
     doc = poll(c, loc, lambda d: d["status"] not in ("queued", "solving"))
     assert time.monotonic() - t0 < 5.0
     res = doc["result"]
-    if doc["status"] == "cancelled":
-        assert res["stop_reason"] == "cancelled"
-    else:  # the search proved optimality between our poll and the cancel
-        assert doc["status"] == "done" and res["stop_reason"] == "proved_optimal"
+    # cancelled, or the search proved optimality between our poll and the cancel
+    assert (doc["status"], res["stop_reason"]) in (
+        ("cancelled", "cancelled"),
+        ("done", "proved_optimal"),
+    )
     assert res["makespan"] >= res["lower_bound"] > 0
 
 

@@ -127,10 +127,10 @@ def test_cancel_stops_a_real_search(client: Any) -> None:
     if doc["status"] == "solving":
         client.delete(loc)
     doc = poll(client, loc, lambda d: d["status"] in ("done", "cancelled", "failed"))
+    # done before the cancel arrived, or cancelled with a certificate that still holds
+    assert (doc["status"] == "done") or (doc["result"]["stop_reason"] == "cancelled")
     assert doc["status"] in ("done", "cancelled")
-    if doc["status"] == "cancelled":
-        assert doc["result"]["stop_reason"] == "cancelled"
-        assert doc["result"]["makespan"] >= doc["result"]["lower_bound"]
+    assert doc["result"]["makespan"] >= doc["result"]["lower_bound"]
 
 
 def test_simulation_widens_the_crash_guard_only_when_asked() -> None:

@@ -119,12 +119,13 @@ def run_case(mode: str, case: Any, app: Any) -> None:
     SENT[where] = SENT.get(where, 0) + 1
     response = case.call_and_validate(app=app, excluded_checks=EXCLUDED)
     assert response.status_code < 500, response.text[:300]
-    if response.status_code >= 400:
-        ERRORS["count"] += 1
-        media = response.headers.get("content-type", [""])[0]
-        assert media.startswith("application/problem+json"), media
-        doc = response.json()
-        assert doc["status"] == response.status_code and doc["type"].startswith("/problems/")
+    problem = response.status_code >= 400
+    ERRORS["count"] += problem
+    media = response.headers.get("content-type", [""])[0]
+    # every refusal is an RFC 9457 problem document naming its own status
+    assert not problem or media.startswith("application/problem+json"), media
+    doc = response.json() if problem else {"status": response.status_code, "type": "/problems/"}
+    assert doc["status"] == response.status_code and doc["type"].startswith("/problems/")
 
 
 _SETTINGS = settings(

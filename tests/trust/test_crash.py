@@ -150,13 +150,12 @@ def test_kill9_worker_mid_solve_ten_times(redis_server: str) -> None:
         [round(t, 1) for t in recoveries],
     )
     assert len(outcomes) == 10
-    for o in outcomes:
-        if o["status"] == "done":
-            assert o["attempts"] == "2"  # the first run was killed, the second finished
-            res = o["result"]
-            assert res["makespan"] >= res["lower_bound"] > 0
-        else:
-            assert o["status"] == "failed" and o["error"]["detail"]
+    done = [o for o in outcomes if o["status"] == "done"]
+    # the first run was killed, the second finished, with a certificate that holds
+    assert all(o["attempts"] == "2" for o in done)
+    assert all(o["result"]["makespan"] >= o["result"]["lower_bound"] > 0 for o in done)
+    # the others failed with a reason
+    assert all(o["status"] == "failed" and o["error"]["detail"] for o in outcomes if o not in done)
     assert max(recoveries) <= 90
 
 
