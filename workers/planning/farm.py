@@ -74,6 +74,13 @@ FINISH_SECONDS_PER_JOB = 4e-7
 TINY_WORK = 2_000
 #: random restarts from the local optimum (iterated local search) up to this many jobs
 MAX_KICK_JOBS = 20_000
+#: the exact decision search (``farm_exact.bisect``) runs on farms up to this many job x
+#: node pairs (above, the local search with restarts does better in the same time)
+MAX_DECISION_PAIRS = 50_000
+#: shares of the time left for the local search and then for HiGHS (where it runs) before
+#: the exact decision search takes the rest
+LOCAL_SHARE = 0.2
+MILP_SHARE = 0.5
 
 
 def ratio_for(
@@ -303,6 +310,12 @@ def solve_farm(
     return _search(inst, elig, method, budget, progress)
 
 
+def _net(inst: Instance, budget: Budget) -> Budget:
+    """What is left of ``budget`` minus the reserve for the final plan and certificate."""
+    left = budget.remaining() - _reserve(inst)
+    return budget.child(max(0.0, left) / max(budget.remaining(), 1e-9))
+
+
 def _closed(sched: Schedule, lb: float | Fraction) -> bool:
     """The bound meets the plan exactly (no tolerance)."""
     return Fraction(lb) >= sched.makespan_exact
@@ -322,25 +335,29 @@ def _search(
     if progress is not None:
         progress(Progress(budget.elapsed(), best.makespan, lower))
     small = farm_milp.small_enough(inst, elig)
+    decide = inst.n * inst.m <= MAX_DECISION_PAIRS
     choice = "milp" if small else "longest_first+local_search"
     info: dict[str, Any] = {"chose": choice}
+    if decide:
+        info["then"] = "exact decision search (farm_exact.bisect)"
     if method == "auto":
         info["why"] = (
             f"{inst.n} jobs x eligible nodes fits the MILP (HiGHS)"
             if small
             else f"too large for the MILP (more than {farm_milp.MAX_JOBS} jobs or "
             f"{farm_milp.MAX_PAIRS} job-node pairs): LPT then moves and swaps"
+            + (", then the exact decision search" if decide else "")
         )
     bounds = dict(cert.bounds)
     evidence = dict(cert.evidence)
     source, value = cert.source, cert.value
     if not _closed(best, exact) and not budget.expired():
-        # moves and swaps first: cheap, and they hand the MILP a better upper bound
+        # moves and swaps first: cheap, and they hand the exact search an upper bound
         best, steps, local_opt = local_search(
             inst,
             elig,
             best,
-            budget.child(0.2) if small else budget,
+            budget.child(LOCAL_SHARE) if decide else budget,
             lower,
             progress,
             lower,
@@ -350,9 +367,9 @@ def _search(
     if small and not _closed(best, exact) and not budget.expired():
         # HiGHS is a hint: its plan is kept when it checks (it is measured again here, in
         # exact arithmetic), its bound is never reported as proven (its tolerances make
-        # it false at large durations). Half the time goes to it, the rest to the exact
-        # search that proves (or finds) the optimum.
-        limit = max(0.01, 0.5 * budget.remaining() - 0.03)
+        # it false at large durations). A share of the time goes to it, the rest to the
+        # exact search that proves (or finds) the optimum.
+        limit = max(0.01, MILP_SHARE * budget.remaining() - 0.03)
         out = farm_milp.solve_milp(inst, elig, lower, best.makespan, limit)
         info["milp_status"] = out.message
         if out.node_of is not None and (out.node_of >= 0).all():
@@ -364,8 +381,8 @@ def _search(
             "claimed_optimal": out.optimal,
             "proof": False,
         }
-    if small and not _closed(best, exact) and not budget.expired():
-        proof = farm_exact.prove(inst, elig, best.node_of, lower, budget)
+    if decide and not _closed(best, exact) and not budget.expired():
+        proof = farm_exact.bisect(inst, elig, best.node_of, lower, _net(inst, budget))
         if proof.makespan < best.makespan_exact:
             best = schedule_from_nodes(inst, proof.node_of)
         proved = down(proof.lower_bound)
@@ -374,7 +391,7 @@ def _search(
             bounds["search"] = proved
             source, value, exact = "search", proved, proof.lower_bound
             evidence["search"] = {
-                "rule": "exhaustive branch and bound in exact arithmetic",
+                "rule": "exact decision search in whole ticks (a refuted C is exhausted)",
                 "nodes": proof.nodes,
                 "finished": proof.finished,
             }

@@ -63,8 +63,10 @@ from .farm_bounds import Eligibility
 from .model import FloatArray, Instance
 from .result import Schedule
 
-#: search nodes between two looks at the clock
+#: search nodes between two looks at the clock (at most; fewer on large farms, so that
+#: about CHECK_WORK node looks pass between two)
 CHECK_EVERY = 4096
+CHECK_WORK = 20_000
 #: states remembered as searched; the table is emptied when it holds this many ...
 MEMO_LIMIT = 200_000
 #: ... or when its keys hold this many bits in all
@@ -78,6 +80,8 @@ MAX_BIG_SUBSET_SUMS = 1 << 18
 #: at most this many sums per search node visited so far
 FIRST_SUBSET_SUMS = 1 << 14
 SUMS_PER_NODE = 128
+#: the share of the time left that one question of :func:`bisect` may take
+SLICE = 0.3
 #: with at most this many job types, every union of their eligible sets is checked for fit
 MAX_UNION_TYPES = 4
 
@@ -249,8 +253,15 @@ class _Search:
                 rem[i] = rem[i + 1] + (self.p[i] if self.typ[i] in inside else 0)
             self.sets.append((sorted(s), rem))
 
+        # the greatest common divisor of the jobs from depth i on (0 past the last)
+        self.gcd = [0] * (n + 1)
+        for i in range(n - 1, -1, -1):
+            self.gcd[i] = math.gcd(self.gcd[i + 1], self.p[i])
+
         # every sum of a subset of the jobs from depth i on, for the last depths: the room
         # a node can still use is the largest of them that fits
+        # a search node costs about one look at every node per node set
+        self.check_every = max(16, min(CHECK_EVERY, CHECK_WORK // (m * len(self.sets) + 1)))
         self.sums = SubsetSums(self.p)
         while 0 < self.sums.next_size() <= FIRST_SUBSET_SUMS:
             self.sums.grow()
@@ -262,6 +273,7 @@ class _Search:
             return max(t) <= limit
         smallest = self.p[-1]
         sums = self.sums.levels[depth]
+        step = self.gcd[depth]
         caps = []
         for k, w in enumerate(self.w):
             room = limit - t[k]
@@ -270,6 +282,8 @@ class _Search:
             c = room // w
             if sums is not None:
                 c = sums[bisect_right(sums, c) - 1]
+            else:
+                c -= c % step  # every sum of the jobs left is a multiple of their gcd
             caps.append(c if c >= smallest else 0)
         for nodes, rem in self.sets:
             need = rem[depth]
@@ -314,6 +328,126 @@ class _Search:
         return key
 
 
+def _dfs(
+    s: _Search, best: int, target: int, budget: Budget, max_nodes: int | None, fit: bool = False
+) -> tuple[int, list[int] | None, bool, int]:
+    """The branch and bound of the module doc: plans with a makespan below ``best`` (scaled
+    ticks), stopping at one ending by ``target``. Returns the best makespan found (``best``
+    if none), its choices (node of each job in search order, or ``None``), whether the
+    search was exhausted, and the search nodes visited. With ``fit`` a job tries the
+    nodes where it would end latest first (best fit: the decision view's order)."""
+    n = len(s.p)
+    count = 0
+    best_choice: list[int] | None = None
+    if not (target < best and s.fits(best - 1, s.g, 0)):
+        return best, None, True, 0
+    p, typ, w, cls, elig_nodes = s.p, s.typ, s.w, s.cls, s.elig_nodes
+    t = list(s.g)  # scaled finish of every node
+    loads = [0] * s.m
+    choice = [-1] * n
+    cands: list[list[int]] = [[] for _ in range(n)]
+    ptr = [0] * n
+    keys = [0] * n
+    memo: set[int] = set()
+    memo_limit = min(MEMO_LIMIT, MEMO_BITS // (s.bits * (s.m + 1)))
+    limit = max_nodes if max_nodes is not None else -1
+
+    def expand(i: int) -> list[int]:
+        """Nodes to try for job i: one per (class, load), earliest finish first."""
+        pi = p[i]
+        seen: set[tuple[int, int]] = set()
+        out: list[tuple[int, int]] = []
+        for k in elig_nodes[typ[i]]:
+            mark = (cls[k], loads[k])
+            if mark in seen:
+                continue
+            seen.add(mark)
+            end = t[k] + w[k] * pi
+            if end < best:
+                out.append((end, k))
+        out.sort(reverse=fit)
+        return [k for _, k in out]
+
+    keys[0] = s.key(0, loads)
+    cands[0] = expand(0)
+    depth = 0
+    while depth >= 0:
+        k = choice[depth]
+        if k >= 0:  # take back the job placed at this depth
+            loads[k] -= p[depth]
+            t[k] -= w[k] * p[depth]
+            choice[depth] = -1
+        c = cands[depth]
+        if ptr[depth] == len(c):
+            if len(memo) >= memo_limit:
+                memo.clear()
+            memo.add(keys[depth])  # searched to the end: nothing below beats best
+            depth -= 1
+            continue
+        k = c[ptr[depth]]
+        ptr[depth] += 1
+        end = t[k] + w[k] * p[depth]
+        if end >= best:  # in increasing end (not ``fit``): the rest are no better
+            if not fit:
+                ptr[depth] = len(c)
+            continue
+        if count == limit:
+            return best, best_choice, False, count
+        if count % s.check_every == 0 and count:
+            if budget.expired():
+                return best, best_choice, False, count
+            while 0 < s.sums.next_size() <= SUMS_PER_NODE * count:
+                s.sums.grow()
+        count += 1
+        loads[k] += p[depth]
+        t[k] = end
+        choice[depth] = k
+        nxt = depth + 1
+        if nxt == n:
+            span = max(t)
+            if span < best:
+                best = span
+                best_choice = list(choice)
+                if best <= target:
+                    break
+            continue
+        if not s.fits(best - 1, t, nxt):
+            continue
+        key = s.key(nxt, loads)
+        if key in memo:
+            continue
+        nc = expand(nxt)
+        if not nc:
+            continue
+        keys[nxt] = key
+        cands[nxt] = nc
+        ptr[nxt] = 0
+        depth = nxt
+    return best, best_choice, True, count
+
+
+def _plan(
+    s: _Search, incumbent: npt.NDArray[np.int32], choice: list[int] | None
+) -> npt.NDArray[np.int32]:
+    """The incumbent with the jobs of the search placed as ``choice`` says."""
+    if choice is None:
+        return incumbent
+    plan = incumbent.copy()
+    plan[np.asarray(s.order, dtype=np.intp)] = choice
+    return plan
+
+
+def _start(
+    inst: Instance, elig: Eligibility, node_of: npt.NDArray[np.int32], lower: float
+) -> tuple[_Search, npt.NDArray[np.int32], Fraction, int]:
+    """The search data, the incumbent, the known bound and the root bound (ticks)."""
+    incumbent = np.array(node_of, dtype=np.int32)
+    _check_plan(inst, elig, incumbent)
+    s = _Search(inst, elig, incumbent)
+    known = Fraction(lower) if math.isfinite(lower) and lower > 0 else Fraction(0)
+    return s, incumbent, known, s.root_bound(math.ceil(known * s.scale))
+
+
 def prove(
     inst: Instance,
     elig: Eligibility,
@@ -329,107 +463,49 @@ def prove(
     Returns the best plan found, its exact makespan and a proven lower bound;
     ``finished`` says the plan is proven optimal.
     """
-    incumbent = np.array(node_of, dtype=np.int32)
-    _check_plan(inst, elig, incumbent)
-    s = _Search(inst, elig, incumbent)
-    scale = s.scale
-    known = Fraction(lower) if math.isfinite(lower) and lower > 0 else Fraction(0)
-    target = s.root_bound(math.ceil(known * scale))
-    best = s.upper
-    n = len(s.p)
-    count = 0
-    finished = True
-    best_choice: list[int] | None = None
+    s, incumbent, known, target = _start(inst, elig, node_of, lower)
+    best, choice, finished, count = _dfs(s, s.upper, target, budget, max_nodes)
+    makespan = Fraction(best, s.scale)
+    bound = makespan if finished else max(Fraction(target, s.scale), known)
+    return FarmProof(_plan(s, incumbent, choice), makespan, min(bound, makespan), finished, count)
 
-    if target < best and s.fits(best - 1, s.g, 0):
-        p, typ, w, cls, elig_nodes = s.p, s.typ, s.w, s.cls, s.elig_nodes
-        t = list(s.g)  # scaled finish of every node
-        loads = [0] * s.m
-        choice = [-1] * n
-        cands: list[list[int]] = [[] for _ in range(n)]
-        ptr = [0] * n
-        keys = [0] * n
-        memo: set[int] = set()
-        memo_limit = min(MEMO_LIMIT, MEMO_BITS // (s.bits * (s.m + 1)))
-        limit = max_nodes if max_nodes is not None else -1
 
-        def expand(i: int) -> list[int]:
-            """Nodes to try for job i: one per (class, load), earliest finish first."""
-            pi = p[i]
-            seen: set[tuple[int, int]] = set()
-            out: list[tuple[int, int]] = []
-            for k in elig_nodes[typ[i]]:
-                mark = (cls[k], loads[k])
-                if mark in seen:
-                    continue
-                seen.add(mark)
-                end = t[k] + w[k] * pi
-                if end < best:
-                    out.append((end, k))
-            out.sort()
-            return [k for _, k in out]
-
-        keys[0] = s.key(0, loads)
-        cands[0] = expand(0)
-        depth = 0
-        while depth >= 0:
-            k = choice[depth]
-            if k >= 0:  # take back the job placed at this depth
-                loads[k] -= p[depth]
-                t[k] -= w[k] * p[depth]
-                choice[depth] = -1
-            c = cands[depth]
-            if ptr[depth] == len(c):
-                if len(memo) >= memo_limit:
-                    memo.clear()
-                memo.add(keys[depth])  # searched to the end: nothing below beats best
-                depth -= 1
-                continue
-            k = c[ptr[depth]]
-            ptr[depth] += 1
-            end = t[k] + w[k] * p[depth]
-            if end >= best:  # candidates are in increasing end: the rest are no better
-                ptr[depth] = len(c)
-                continue
-            if count == limit:
-                finished = False
+def bisect(
+    inst: Instance,
+    elig: Eligibility,
+    node_of: npt.NDArray[np.int32],
+    lower: float,
+    budget: Budget,
+) -> FarmProof:
+    """The decision view of the module doc: "does every node end by ``C``?" asked of the
+    same branch and bound at a fixed ``C`` (ticks), which either finds a plan ending by
+    ``C`` (a new upper bound) or, searched to the end, proves none does (the optimum is
+    then at least ``C + 1`` ticks: every makespan is a whole number of ticks). ``C`` is
+    first the lower bound (where the optimum most often lies), then the middle of the open
+    interval; a question left open by its time slice moves the next one up, towards plans.
+    Same contract as :func:`prove`; ``nodes`` counts the search nodes of every question.
+    """
+    s, incumbent, known, lo = _start(inst, elig, node_of, lower)
+    hi, plan, total = s.upper, incumbent, 0
+    stuck = -1  # the largest C a time slice left open
+    first = True
+    while lo < hi and not budget.expired():
+        # first the bound, then bisect what is left above the open question (or the bound)
+        c = lo if first else (max(lo, stuck) + hi) // 2
+        last = c == stuck  # only the open question is left: it gets all the time
+        best, choice, finished, count = _dfs(
+            s, c + 1, c, budget if last else budget.child(SLICE), None, fit=True
+        )
+        first = False
+        total += count
+        if choice is not None:
+            hi, plan = best, _plan(s, incumbent, choice)
+        elif finished:
+            lo = c + 1
+        else:
+            stuck = max(stuck, c)
+            if last:
                 break
-            if count % CHECK_EVERY == 0 and count:
-                if budget.expired():
-                    finished = False
-                    break
-                while 0 < s.sums.next_size() <= SUMS_PER_NODE * count:
-                    s.sums.grow()
-            count += 1
-            loads[k] += p[depth]
-            t[k] = end
-            choice[depth] = k
-            nxt = depth + 1
-            if nxt == n:
-                span = max(t)
-                if span < best:
-                    best = span
-                    best_choice = list(choice)
-                    if best <= target:
-                        break
-                continue
-            if not s.fits(best - 1, t, nxt):
-                continue
-            key = s.key(nxt, loads)
-            if key in memo:
-                continue
-            nc = expand(nxt)
-            if not nc:
-                continue
-            keys[nxt] = key
-            cands[nxt] = nc
-            ptr[nxt] = 0
-            depth = nxt
-
-    plan = incumbent
-    if best_choice is not None:
-        plan = incumbent.copy()
-        plan[np.asarray(s.order, dtype=np.intp)] = best_choice
-    makespan = Fraction(best, scale)
-    bound = makespan if finished else max(Fraction(target, scale), known)
-    return FarmProof(plan, makespan, min(bound, makespan), finished, count)
+    makespan = Fraction(hi, s.scale)
+    bound = min(max(Fraction(lo, s.scale), known), makespan)
+    return FarmProof(plan, makespan, bound, bound == makespan, total)

@@ -1,0 +1,242 @@
+"""`exact` at 1 s on generated farms (issue 21), with CP-SAT as a second opinion.
+
+    .venv/bin/python bench/farm_exact.py [--quick] [--per-mix 20] [--budget 1.0]
+                                         [--cpsat] [--cpsat-seconds 10] [--cpsat-cache F]
+
+Farms (seeded; every name is our own coined one): 5 to 40 nodes named after an invented
+valley, ``rill-NN``, speed 1, 2 or 4; a GPU subset of about a quarter of the nodes (tag
+``gpu``); a quarter of the nodes still busy, ``free_at`` a whole number of seconds up to
+20 minutes. 2 to 10 jobs per node; about one job in five requires ``gpu``. Durations are
+multiples of 4 s, so every finish ``free_at + p / s`` is a whole number of seconds and our
+plan, our bound and CP-SAT's plan are compared in the same integers. Three duration mixes:
+
+``uniform``    uniform in 60..1,800 s;
+``shots``      lognormal render shots, median 10 minutes (sigma 0.9), 1 minute to 4 hours;
+``bimodal``    70 % comps of 1-5 minutes, 30 % simulations of 30-120 minutes.
+
+Printed per instance: jobs, nodes, our makespan and bound (ceiling of the certified bound:
+times are whole seconds), certified gap, proven or not, the bound's rule, wall time over
+the budget, and with ``--cpsat`` CP-SAT's makespan and bound and whether ours is no worse.
+Then per mix and overall: share proven, median and worst certified gap, largest wall time
+over the budget, and the comparison.
+
+The CP-SAT model is the plain assignment model the issue names: one boolean per job and
+eligible node, every job on exactly one node, ``free_at_k + sum p_j / s_k x_jk <= C`` per
+node, minimise ``C``; ``--cpsat-seconds`` of search on 2 workers, no hint from our plans
+or bounds. Its answers do not depend on ours, so ``--cpsat-cache`` keeps them in a JSON
+file between runs.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import statistics
+import sys
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from workers.planning import Instance, Node, solve
+
+MIXES = ("uniform", "shots", "bimodal")
+SPEEDS = (1.0, 2.0, 4.0)
+
+
+@dataclass
+class Case:
+    """One generated farm as plain values."""
+
+    name: str
+    mix: str
+    durations: list[float]
+    requires: list[list[str]]
+    speeds: list[float]
+    gpu: list[bool]
+    free_at: list[float]
+
+    def instance(self) -> Instance:
+        nodes = [
+            Node(
+                f"rill-{k:02d}",
+                speed=s,
+                provides=frozenset({"gpu"}) if g else frozenset(),
+                free_at=f,
+            )
+            for k, (s, g, f) in enumerate(zip(self.speeds, self.gpu, self.free_at, strict=True))
+        ]
+        return Instance.build(self.durations, nodes, requires=self.requires)
+
+
+def _fours(x: np.ndarray) -> list[float]:
+    """Durations rounded to a multiple of 4 s (at least 4 s)."""
+    return [float(4 * max(1, round(v / 4))) for v in x.tolist()]
+
+
+def generate(mix: str, index: int, seed: int) -> Case:
+    """The farm of the module doc for ``mix``, instance ``index``."""
+    rng = np.random.default_rng([seed, MIXES.index(mix), index])
+    m = int(rng.integers(5, 41))
+    n = int(m * rng.uniform(2, 10))
+    speeds = [float(x) for x in rng.choice(SPEEDS, m)]
+    gpu = [False] * m
+    for k in rng.choice(m, max(1, round(m / 4)), replace=False).tolist():
+        gpu[k] = True
+    free = [0.0] * m
+    for k in rng.choice(m, max(1, round(m / 4)), replace=False).tolist():
+        free[k] = float(rng.integers(1, 1201))
+    if mix == "uniform":
+        d = rng.uniform(60, 1800, n)
+    elif mix == "shots":
+        d = np.clip(rng.lognormal(np.log(600), 0.9, n), 60, 14400)
+    else:
+        sim = rng.random(n) < 0.3
+        d = np.where(sim, rng.uniform(1800, 7200, n), rng.uniform(60, 300, n))
+    req = [["gpu"] if x else [] for x in (rng.random(n) < 0.2).tolist()]
+    return Case(f"{mix}-{index}", mix, _fours(d), req, speeds, gpu, free)
+
+
+# -- CP-SAT: the plain assignment model -------------------------------------------------
+def cpsat(case: Case, seconds: float, workers: int = 2) -> tuple[int | None, int]:
+    """CP-SAT's best makespan (whole seconds; ``None`` if it found no plan) and its bound."""
+    from ortools.sat.python import cp_model
+
+    n, m = len(case.durations), len(case.speeds)
+    dur = [int(d) for d in case.durations]
+    free = [int(f) for f in case.free_at]
+    spd = [int(s) for s in case.speeds]
+    horizon = max(free) + sum(dur)
+    model = cp_model.CpModel()
+    span = model.new_int_var(max(free), horizon, "makespan")
+    per_node: list[list[tuple[Any, int]]] = [[] for _ in range(m)]
+    for j in range(n):
+        xs = []
+        for k in range(m):
+            if "gpu" in case.requires[j] and not case.gpu[k]:
+                continue
+            x = model.new_bool_var(f"x{j}_{k}")
+            per_node[k].append((x, dur[j] // spd[k]))
+            xs.append(x)
+        model.add_exactly_one(xs)
+    for k in range(m):
+        model.add(free[k] + sum(t * x for x, t in per_node[k]) <= span)
+    model.minimize(span)
+    solver = cp_model.CpSolver()
+    solver.parameters.max_time_in_seconds = seconds
+    solver.parameters.num_workers = workers
+    status = solver.solve(model)
+    if status in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+        return int(solver.objective_value), int(solver.best_objective_bound)
+    return None, int(solver.best_objective_bound)
+
+
+# -- the run ----------------------------------------------------------------------------
+@dataclass
+class Row:
+    mix: str
+    ours: int
+    bound: int
+    gap: float
+    proven: bool
+    over: float
+    cp: int | None
+    cp_bound: int | None
+
+
+def run_case(
+    case: Case, budget: float, cp_seconds: float | None, cache: dict[str, Any], key: str
+) -> Row:
+    inst = case.instance()
+    t0 = time.perf_counter()
+    result = solve(inst, "exact", time_budget=budget)
+    wall = time.perf_counter() - t0
+    ours = result.schedule.makespan_exact
+    assert ours.denominator == 1, "times are whole seconds by construction"
+    lb = math.ceil(result.certificate.exact_value)  # the optimum is a whole number
+    cp = cpb = None
+    if cp_seconds is not None:
+        if key not in cache:
+            cache[key] = cpsat(case, cp_seconds)
+        cp, cpb = cache[key]
+    row = Row(case.mix, int(ours), lb, result.gap, result.proven_optimal, wall - budget, cp, cpb)
+    cmp = ""
+    if cp_seconds is not None:
+        ok = cp is None or row.ours <= cp
+        cmp = f"  cpsat {cp} (bound {cpb}) {'ours<=cpsat' if ok else 'OURS WORSE'}"
+    print(
+        f"{case.name:11s} n={inst.n:4d} m={inst.m:2d} ours={row.ours:6d} lb={row.bound:6d} "
+        f"({result.certificate.source:17s}) gap={100 * row.gap:6.3f}% "
+        f"{'proven' if row.proven else '      '} wall-budget={row.over:+.3f}s{cmp}",
+        flush=True,
+    )
+    return row
+
+
+def summary(label: str, rows: list[Row], budget: float, cpsat_on: bool) -> None:
+    gaps = [r.gap for r in rows]
+    proven = sum(r.proven for r in rows)
+    over = max(r.over for r in rows)
+    allowed = 0.05 * budget + 0.05
+    line = (
+        f"{label:8s} {len(rows):3d} inst  proven {proven}/{len(rows)} "
+        f"({100 * proven / len(rows):5.1f} %)  gap median {100 * statistics.median(gaps):.3f} % "
+        f"worst {100 * max(gaps):.3f} %  wall over budget max {over:+.3f} s "
+        f"({'ok' if over <= allowed else 'OVER'} <= {allowed:.3f})"
+    )
+    if cpsat_on:
+        no_worse = sum(1 for r in rows if r.cp is None or r.ours <= r.cp)
+        better = sum(1 for r in rows if r.cp is None or r.ours < r.cp)
+        cp_proven = sum(1 for r in rows if r.cp is not None and r.cp == r.cp_bound)
+        line += (
+            f"  ours<=cpsat {no_worse}/{len(rows)} ({100 * no_worse / len(rows):.1f} %, "
+            f"strictly better {better}); cpsat proven {cp_proven}/{len(rows)}"
+        )
+    print(line)
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=(__doc__ or "").splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="four instances per mix")
+    ap.add_argument("--per-mix", type=int, default=20)
+    ap.add_argument("--budget", type=float, default=1.0)
+    ap.add_argument("--seed", type=int, default=21)
+    ap.add_argument("--cpsat", action="store_true")
+    ap.add_argument("--cpsat-seconds", type=float, default=10.0)
+    ap.add_argument("--mix", choices=MIXES, action="append")
+    ap.add_argument("--cpsat-cache", type=Path, help="a JSON file of CP-SAT's answers")
+    args = ap.parse_args()
+    cache: dict[str, Any] = {}
+    if args.cpsat_cache and args.cpsat_cache.exists():
+        cache = json.loads(args.cpsat_cache.read_text())
+    per = 4 if args.quick else args.per_mix
+    mixes = args.mix or list(MIXES)
+    # a throwaway solve first, so that imports and compiled kernels are not charged
+    solve(generate("uniform", 99, 0).instance(), "exact", time_budget=0.5)
+    rows: list[Row] = []
+    for mix in mixes:
+        for i in range(per):
+            rows.append(
+                run_case(
+                    generate(mix, i, args.seed),
+                    args.budget,
+                    args.cpsat_seconds if args.cpsat else None,
+                    cache,
+                    f"{mix}/{i}/seed{args.seed}/{args.cpsat_seconds}s",
+                )
+            )
+            if args.cpsat_cache and args.cpsat:
+                args.cpsat_cache.write_text(json.dumps(cache))
+    print()
+    for mix in mixes:
+        summary(mix, [r for r in rows if r.mix == mix], args.budget, args.cpsat)
+    summary("overall", rows, args.budget, args.cpsat)
+
+
+if __name__ == "__main__":
+    main()
