@@ -28,6 +28,7 @@ from workers.planning.model import CONTROL, CONTROL_WORDS, MAX_ID_LENGTH
 from workers.planning.solve import METHODS
 
 from .problems import LimitExceeded
+from .reading.clock import parse_time
 from .settings import Settings
 
 #: largest coefficient of variation accepted for estimate spread
@@ -71,12 +72,7 @@ class WholeNumber(fields.Field):  # type: ignore[type-arg]
         return int(value)
 
 
-#: physically sensible ranges (common practice: refuse values no farm has, so the
-#: arithmetic downstream never overflows or underflows): times in seconds, speeds relative
-MAX_SECONDS = 1e10  # about 317 years
-MIN_DEADLINE = 1e-3
-SPEEDS = (1e-3, 1e3)
-RESOLUTIONS = (1e-6, 1e6)
+from .ranges import MAX_SECONDS, MIN_DEADLINE, RESOLUTIONS, SPEEDS  # noqa: E402
 
 
 def _seconds(lowest: float = 0.0) -> validate.Range:
@@ -100,6 +96,19 @@ def _ident() -> fields.String:
 
 def _tags() -> fields.List:  # type: ignore[type-arg]
     return fields.List(fields.String(validate=_text(1, MAX_ID_LENGTH)))
+
+
+def _rfc3339(value: str) -> None:
+    """An RFC 3339 timestamp with an offset (``service/reading/clock.py`` reads it)."""
+    try:
+        parse_time(value)
+    except ValueError as exc:
+        raise ValidationError(f"{str(exc)[0].upper()}{str(exc)[1:]}.") from None
+
+
+def _clock_time() -> fields.String:
+    """A time on a clock: ``start_at``, ``deadline_at``, a node's ``free_at_time``."""
+    return fields.String(validate=[validate.Length(max=64), _rfc3339])
 
 
 class StrictSchema(Schema):
@@ -194,6 +203,8 @@ class NodeSchema(StrictSchema):
     speed = FiniteNumber(validate=validate.Range(*SPEEDS))
     provides = _tags()
     free_at = FiniteNumber(validate=_seconds())
+    #: when the node is free, on a clock (instead of ``free_at``; ``reading/clock.py``)
+    free_at_time = _clock_time()
     #: how many jobs the node runs at once, each at its speed
     slots = WholeNumber(validate=validate.Range(min=1, max=MAX_SLOTS))
 
@@ -216,6 +227,9 @@ class PlanRequestSchema(StrictSchema):
     method = fields.String(load_default="longest_first", validate=validate.OneOf(METHODS))
     time_budget = FiniteNumber(validate=validate.Range(min=0))
     deadline = FiniteNumber(allow_none=True, validate=_seconds(MIN_DEADLINE))
+    #: time 0 and the deadline on a clock (``service/reading/clock.py``)
+    start_at = _clock_time()
+    deadline_at = _clock_time()
     resolution = FiniteNumber(validate=validate.Range(*RESOLUTIONS))
     spread = FiniteNumber(validate=validate.Range(0, MAX_SPREAD))
     confidence_samples = WholeNumber(validate=validate.Range(min=10, max=MAX_SAMPLES))
@@ -264,7 +278,9 @@ class SizingRequestSchema(StrictSchema):
 
     name = fields.String(validate=_text(0, 200))
     jobs = JobList(required=True)
-    deadline = FiniteNumber(required=True, validate=_seconds(MIN_DEADLINE))
+    deadline = FiniteNumber(validate=_seconds(MIN_DEADLINE))
+    start_at = PlanRequestSchema._declared_fields["start_at"]
+    deadline_at = PlanRequestSchema._declared_fields["deadline_at"]
     node = fields.Nested(SizingNodeSchema)
     #: renting to a deadline: the farm you have and the kinds you may rent
     farm = fields.List(fields.Nested(FarmNodeSchema))
@@ -286,6 +302,14 @@ class SizingRequestSchema(StrictSchema):
     confidence = FiniteNumber(
         validate=validate.Range(0, 1, min_inclusive=False, max_inclusive=False)
     )
+
+    @validates_schema(pass_original=True, skip_on_field_errors=False)
+    def _a_deadline(self, data: Mapping[str, Any], original: Any, **kwargs: Any) -> None:
+        """``deadline`` (seconds) or ``deadline_at`` (a time): one is required."""
+        if not isinstance(original, Mapping):
+            return
+        if "deadline" not in original and "deadline_at" not in original:
+            raise ValidationError("Missing data for required field.", "deadline")
 
 
 SIZING_SCHEMA = SizingRequestSchema()

@@ -81,18 +81,23 @@ def solve_plan(
     )
     res = answer.result
     result = answer.to_dict(with_assignment=False)
+    return plan_outcome(res, result, answer.to_json(), inst.n, inst.m)
+
+
+def plan_outcome(res: Any, result: dict[str, Any], text: str, jobs: int, nodes: int) -> Outcome:
+    """A plan's outcome: the result, its JSON, and the summary the lists show."""
     dl = result.get("deadline")
     summary = {
         "makespan": res.makespan,
         "lower_bound": res.lower_bound,
         "gap": res.gap if res.gap != float("inf") else None,
         "proven_optimal": res.proven_optimal,
-        "jobs": inst.n,
-        "nodes": inst.m,
+        "jobs": jobs,
+        "nodes": nodes,
         "stop_reason": res.stop_reason,
         "deadline_met": None if dl is None else dl["met"],
     }
-    return Outcome(result, summary, res.stop_reason == "cancelled", answer.to_json())
+    return Outcome(result, summary, res.stop_reason == "cancelled", text)
 
 
 def _replan_stages(
@@ -118,18 +123,7 @@ def _replan_stages(
         budget=Budget(time_budget, should_stop),
     )
     result = res.to_dict(with_assignment=False)
-    dl = result.get("deadline")
-    summary = {
-        "makespan": res.makespan,
-        "lower_bound": res.lower_bound,
-        "gap": res.gap if res.gap != float("inf") else None,
-        "proven_optimal": res.proven_optimal,
-        "jobs": res.problem.n,
-        "nodes": res.problem.m,
-        "stop_reason": res.stop_reason,
-        "deadline_met": None if dl is None else dl["met"],
-    }
-    return Outcome(result, summary, res.stop_reason == "cancelled", res.to_json())
+    return plan_outcome(res, result, res.to_json(), res.problem.n, res.problem.m)
 
 
 def size_farm(
@@ -249,16 +243,30 @@ def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 
     text = out.result_json
     if text is None:
         text = json.dumps(out.result, allow_nan=False, separators=(",", ":"))
+    summary = out.summary
+    clock = clock_block(body)
+    if clock is not None:  # the request's clock, echoed beside the seconds
+        text = text[: text.rindex("}")] + ',"clock":' + json.dumps(clock) + "}"
+        summary = {**summary, "clock": clock}
     store.finish(
         kind,
         rid,
         status,
         result_json=text,
-        summary=out.summary,
+        summary=summary,
         progress=final,
         counters=finish_counters(store.prefix, kind, out.result),
     )
     return status
+
+
+def clock_block(body: Any) -> dict[str, Any] | None:
+    """A result's ``clock`` (``{start_at, deadline_at}``) from the stored request, which
+    holds the ``start_at`` the API filled in; None for a request in seconds only. The core
+    works in seconds and never sees it (``service/reading/clock.py``)."""
+    from service.reading import clock
+
+    return clock.echo(body.envelope if isinstance(body, payload.Columns) else body)
 
 
 def on_failure(job: Any, connection: Any, exc_type: Any, exc: Any, tb: Any) -> None:

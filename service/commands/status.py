@@ -6,7 +6,7 @@ import argparse
 from typing import Any
 
 from ..csvio import plural
-from ..web.pages import certificate_sentence
+from ..web.pages import certificate_sentence, deadline_text
 from ..web.svg import fmt_duration
 from . import _remote
 from ._io import print_json
@@ -26,8 +26,8 @@ def sizing_sentence(result: dict[str, Any]) -> str:
     need, low = int(result["nodes_needed"]), int(result["nodes_lower_bound"])
     text = (
         f"{plural(need, 'node')} {'meets' if need == 1 else 'meet'} the deadline of "
-        f"{fmt_duration(float(result['deadline']))} for these estimates (the plan finishes "
-        f"in {fmt_duration(float(result['makespan']))})"
+        f"{deadline_text(result, float(result['deadline']))} for these estimates (the plan "
+        f"finishes in {fmt_duration(float(result['makespan']))})"
     )
     if need == low:
         text += "; no fewer can (proven), so this is the fewest."

@@ -16,6 +16,7 @@ from ..cli import (
     EXIT_SERVER,
 )
 from ..client import ClientError
+from ..web.pages import deadline_text
 from ..web.svg import fmt_duration
 from . import _remote
 from ._io import add_plan_options, plan_batch
@@ -52,7 +53,7 @@ def deadline_verdict(result: dict[str, Any]) -> tuple[str, int] | None:
     dl = result.get("deadline")
     if not dl:
         return None
-    when = fmt_duration(float(dl["deadline"]))
+    when = deadline_text(result, float(dl["deadline"]))
     if dl.get("met"):
         return f"deadline {when}: met, {fmt_duration(float(dl['slack']))} to spare", EXIT_OK
     late = fmt_duration(-float(dl["slack"]))

@@ -11,6 +11,8 @@ from workers.planning.errors import InvalidInstance, Issue
 from workers.planning.model import Node
 from workers.planning.replan import Events, RemainingWork, Running
 
+from .clock import NODE_FIELD, parse_time
+
 
 def _num(x: object) -> TypeGuard[int | float]:
     return isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x)
@@ -79,6 +81,10 @@ def read_events(body: Mapping[str, Any]) -> Events:
         if not isinstance(nd, Mapping) or not isinstance(nd.get("id"), str) or not nd["id"]:
             issues.append(Issue((*ptr, "id"), "must be a node with a non-empty string id"))
             continue
+        if nd.get(NODE_FIELD) is not None:
+            issues.append(
+                Issue((*ptr, NODE_FIELD), "not used in events: give free_at, seconds from now")
+            )
         speed, free = nd.get("speed", 1.0), nd.get("free_at", 0.0)
         tags = nd.get("provides") or []
         if not _num(speed) or speed <= 0:
@@ -134,14 +140,19 @@ def replan_body(
     Every field of the original body is kept (name, method, spread, ...) but the jobs (the
     original objects of the jobs left, as they were sent), the nodes (as they are now) and
     the deadline (shifted, or dropped once passed); the events' ``method`` and
-    ``time_budget`` win over the original's.
+    ``time_budget`` win over the original's. A clock (``start_at``) moves to the
+    re-planning moment, the deadline kept in seconds from there (``deadline_at`` dropped).
     """
     left = work.instance
     request: dict[str, Any] = {
         key: value
         for key, value in original_request.items()
-        if key not in ("jobs", "nodes", "node_count", "deadline")
+        if key not in ("jobs", "nodes", "node_count", "deadline", "deadline_at", "start_at")
     }
+    if original_request.get("start_at") is not None:
+        moved = parse_time(original_request["start_at"]).shifted(events.elapsed)
+        if moved is not None:  # else past the year 9999: the re-plan runs in seconds only
+            request["start_at"] = moved
     jobs_in = original_request.get("jobs") or []
     request["jobs"] = [dict(jobs_in[j]) for j in work.to_plan_index]
     request["nodes"] = [

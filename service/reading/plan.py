@@ -28,6 +28,7 @@ from workers.planning.model import (
     identical_nodes,
 )
 
+from .clock import in_seconds
 from .spread import read_spread
 from .stages import Problem, with_stages
 
@@ -36,9 +37,10 @@ def read_instance(body: Mapping[str, Any]) -> Instance:
     """Build from a ``POST /v1/plans`` body (see ``openapi/openapi.yaml``).
 
     Type errors and semantic errors are collected and raised together as one
-    :class:`InvalidInstance` whose issues carry JSON Pointers into ``body``.
+    :class:`InvalidInstance` whose issues carry JSON Pointers into ``body``. Clock-time
+    fields are read as seconds first (``service/reading/clock.py``).
     """
-    return PlanReader(body).read()
+    return PlanReader(in_seconds(body)).read()
 
 
 def read_problem(body: Mapping[str, Any]) -> Problem:
@@ -68,6 +70,7 @@ def read_columns(
     checked column by column (no Python object per job), so this is the fast way in
     for a batch that was already read into columns.
     """
+    body = in_seconds(body)
     ids = tuple(job_ids)
     d = np.asarray(durations, dtype=np.float64)
     grp = tuple(groups) if groups is not None else None

@@ -9,6 +9,7 @@ from typing import Any
 from workers.planning.errors import InvalidInstance, Issue
 from workers.planning.rental import Kind, RentalArgs, rental_instance
 
+from .clock import in_seconds
 from .plan import read_instance
 
 
@@ -21,6 +22,7 @@ def read_rental(body: Mapping[str, Any]) -> RentalArgs:
     """The jobs, the farm (free nodes, or priced with ``hour_cost``), the kinds, the
     deadline and the billing; each problem by field path. ``node`` (one kind of the
     single-kind sizing) and graph fields are refused beside ``kinds`` and ``farm``."""
+    body = in_seconds(body)  # deadline_at, the farm's free_at_time: seconds from here on
     issues: list[Issue] = []
     if not body.get("kinds"):
         issues.append(Issue(("kinds",), "required with farm: the kinds you may rent"))

@@ -12,6 +12,7 @@ from workers.planning.sizing_request import SizingArgs
 from workers.planning.stage_sizing import StageSizingArgs
 from workers.planning.stages.problem import StageProblem
 
+from .clock import in_seconds
 from .plan import read_instance
 from .rental import is_rental, read_rental
 from .stages import is_staged, names_of
@@ -27,6 +28,7 @@ def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs | StageSizingArgs
         raise InvalidInstance(
             "the request body must be a JSON object", [Issue((), "not an object")]
         )
+    body = in_seconds(body)  # deadline_at, a farm's free_at_time: seconds from here on
     if is_rental(body):
         return read_rental(body)
     issues: list[Issue] = []

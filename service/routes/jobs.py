@@ -8,6 +8,7 @@ first, ``status``/``limit``/``cursor``). Only the validation differs between kin
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import io
 import json
@@ -36,6 +37,7 @@ from ..problems import (
     UnsupportedMediaType,
 )
 from ..queue import simulation_allowance
+from ..reading import clock
 from ..services import may_read, services, tenant
 from ..settings import Settings
 from ..store import FINISHED, STATUSES, Record, new_id
@@ -434,12 +436,32 @@ def _queue_record(
     return _respond(rec, res, 201 if done_in_wait else 202, extra, more)
 
 
+def with_start(raw: bytes, body: Any) -> tuple[bytes, Any]:
+    """A body with clock times but no ``start_at`` starts now (``reading/clock.py``): the
+    time the request is accepted goes into the body that is checked and stored, so the
+    worker and every re-read measure from the same start. The raw body gets the field
+    spliced in after its opening brace (no second encoding of a large body)."""
+    envelope = body.envelope if isinstance(body, Columns) else body
+    if not clock.needs_start(envelope):
+        return raw, body
+    start = clock.now_text()
+    filled = clock.with_start(envelope, start)
+    body = dataclasses.replace(body, envelope=filled) if isinstance(body, Columns) else filled
+    if json.detect_encoding(raw) in ("utf-8", "utf-8-sig"):
+        at = raw.index(b"{") + 1  # an object (it has fields): only blanks before its brace
+        field = json.dumps({"start_at": start})[1:-1].encode()
+        return raw[:at] + field + b"," + raw[at:], body
+    return json.dumps(body, allow_nan=False).encode(), body
+
+
 def make_blueprint(res: Resource) -> Blueprint:
     bp = Blueprint(f"{res.kind}s", __name__)
 
     @bp.post(res.path)
     def submit() -> Response:
         raw, body = read_json_body(res.columns)
+        fingerprint = hashlib.sha256(raw).hexdigest()  # of what the client sent
+        raw, body = with_start(raw, body)
         checked = res.validate(body, services().settings)
         data = checked.data
         meta = {
@@ -447,7 +469,6 @@ def make_blueprint(res: Resource) -> Blueprint:
             "time_budget": repr(float(data["time_budget"])),
             "name": data.get("name"),
         }
-        fingerprint = hashlib.sha256(raw).hexdigest()
         counted = jobscan.counted(body) if isinstance(body, Columns) else body
         extra = simulation_allowance(res.kind, counted)
         return queue_record(res, raw, checked, meta, fingerprint, extra_seconds=extra)

@@ -8,10 +8,13 @@ from __future__ import annotations
 
 import math
 import re
+from collections.abc import Mapping
+from html import escape
 from typing import Any
 
+from ..reading.clock import parse_time
 from .stage_svg import StageRequest, limit_chart
-from .svg import fmt_duration, fmt_tick, line_chart, timeline
+from .svg import FarmNode, fmt_duration, line_chart, timeline
 
 #: seconds between self-refreshes of a page whose plan is still being worked on
 REFRESH_SECONDS = 2
@@ -42,14 +45,6 @@ BOUND_WORDS = {
 
 #: at most this many ids of the critical path are named in the page's facts
 MAX_PATH_NAMED = 12
-
-#: what proved a sizing's node lower bound, to read after "proven by"
-SIZING_BOUND_WORDS = {
-    "total_work": "the total work divided by the deadline",
-    "L2": "a bin-packing argument (Martello-Toth L2)",
-    "cardinality": "counting how many jobs can share a node before the deadline",
-    "search": "an exhaustive search that ruled out every smaller farm",
-}
 
 
 def fmt_percent(fraction: float) -> str:
@@ -118,14 +113,15 @@ def certificate_sentence(result: dict[str, Any]) -> str:
         )
     dl = result.get("deadline")
     if dl:
+        when = deadline_text(result, float(dl["deadline"]))
         if dl.get("met"):
-            text += f" It meets the deadline of {fmt_duration(dl['deadline'])}"
+            text += f" It meets the deadline of {when}"
             text += f" with {fmt_duration(dl['slack'])} to spare."
         elif dl.get("provably_unreachable"):
-            text += f" No plan can meet the deadline of {fmt_duration(dl['deadline'])}."
+            text += f" No plan can meet the deadline of {when}."
         else:
             text += (
-                f" It misses the deadline of {fmt_duration(dl['deadline'])} by "
+                f" It misses the deadline of {when} by "
                 f"{fmt_duration(-dl['slack'])}; a better plan might still meet it."
             )
     return text
@@ -172,14 +168,15 @@ def list_rows(items: list[dict[str, Any]]) -> list[dict[str, str]]:
                 "gap": fmt_percent(r["gap"]) if "gap" in r else "-",
                 "met": met,
                 "met_class": {"met": "met-yes", "missed": "met-no"}.get(met, ""),
+                "deadline_at": clock_deadline(r),
                 "submitted_at": it.get("submitted_at", ""),
-                "submitted": _when(it.get("submitted_at") or ""),
+                "submitted": when(it.get("submitted_at") or ""),
             }
         )
     return rows
 
 
-def _record_context(kind: str, record: dict[str, Any]) -> tuple[dict[str, Any], bool]:
+def record_context(kind: str, record: dict[str, Any]) -> tuple[dict[str, Any], bool]:
     """The template values every record's page starts from (title, the record under the name
     of its ``kind``, the self-refresh while it is worked on), and whether it is."""
     working = record.get("status") in ("queued", "solving")
@@ -192,7 +189,10 @@ def _record_context(kind: str, record: dict[str, Any]) -> tuple[dict[str, Any], 
 
 
 def plan_context(
-    plan: dict[str, Any], groups: dict[str, str], graph: StageRequest | None = None
+    plan: dict[str, Any],
+    groups: dict[str, str],
+    graph: StageRequest | None = None,
+    farm: Mapping[str, FarmNode] | None = None,
 ) -> dict[str, Any]:
     """Template values for one plan's page (``plan`` is the API's status body).
 
@@ -201,7 +201,7 @@ def plan_context(
     and the limit-usage chart under it, and its graph in the facts (issue 17 point 6).
     """
     result = plan.get("result")
-    ctx, working = _record_context("plan", plan)
+    ctx, working = record_context("plan", plan)
     progress = plan.get("progress") or {}
     history = plan.get("progress_history") or []
     if history:
@@ -238,7 +238,8 @@ def plan_context(
     if result:
         ctx["sentence"] = certificate_sentence(result)
         stages = result.get("stages")
-        ctx["timeline"] = timeline(result, groups, waits=graph.after if graph else None)
+        ctx["timeline"] = timeline(result, groups, waits=graph.after if graph else None, farm=farm)
+        ctx["timeline"] = with_clock_label(ctx["timeline"], result)
         facts = [
             ("method", result.get("method", "")),
             ("stopped because", result.get("stop_reason", "")),
@@ -290,159 +291,7 @@ def stage_facts(result: dict[str, Any]) -> list[tuple[str, str]]:
     return out
 
 
-def sizing_context(sizing: dict[str, Any]) -> dict[str, Any]:
-    """Template values for one sizing's page (``sizing`` is the API's status body).
-
-    Two charts over the node counts of the curve: makespan (plan found and lower bound,
-    with the deadline) and, when the request gave a node-hour price, the estimated cost.
-    Both mark the answer (``nodes_needed``) with a labelled line; the table marks its row.
-    """
-    result = sizing.get("result")
-    ctx, working = _record_context("sizing", sizing)
-    progress = sizing.get("progress") or {}
-    if working and progress.get("nodes_needed") is not None:
-        text = (
-            f"After {float(progress.get('elapsed') or 0):.1f} s, {progress['nodes_needed']} "
-            "nodes meet the deadline so far"
-        )
-        low = progress.get("nodes_lower_bound")
-        if low is not None:
-            text += f", and no plan with fewer than {low} nodes can"
-        ctx["progress_sentence"] = text + "."
-    if not result:
-        return ctx
-    if "rent" in result:  # renting to a deadline: what to rent and its proven floor
-        ctx["sentence"] = rental_sentence(result)
-        return ctx
-    curve = result.get("curve") or []
-    deadline = float(result.get("deadline", 0) or 0)
-    need, low = result.get("nodes_needed"), result.get("nodes_lower_bound")
-    answer = {f"answer: {need} nodes": float(need)} if need is not None else None
-    ctx["curve_chart"] = line_chart(
-        {
-            "plan makespan": [(c["nodes"], c["makespan"]) for c in curve if c.get("makespan")],
-            "lower bound": [(c["nodes"], c["lower_bound"]) for c in curve],
-        },
-        x_label="nodes",
-        y_label="makespan",
-        marks={f"deadline {fmt_tick(deadline)}": deadline} if deadline else None,
-        x_marks=answer,
-        x_kind="integer",
-        y_kind="time",
-        width=480,
-        right=108,
-        css_class="chart curve",
-    )
-    costs = [(c["nodes"], c["cost"]) for c in curve if c.get("cost") is not None]
-    if costs:
-        ctx["cost_chart"] = line_chart(
-            {"estimated cost": costs},
-            x_label="nodes",
-            y_label="cost",
-            x_marks=answer,
-            x_kind="integer",
-            y_kind="number",
-            width=480,
-            right=108,
-            y_from_zero=True,
-            css_class="chart cost",
-        )
-        ctx["cost_note"] = (
-            f"Estimated cost at {float(result.get('node_hour_cost') or 0):,.2f} per node-hour, "
-            f"billed per {result.get('billing', 'second')}: {result.get('cost_model', '')}."
-        )
-    rows = []
-    for c in curve:
-        meets = bool(c.get("meets_deadline", c.get("makespan", math.inf) <= deadline))
-        if meets:
-            met, met_class = "yes", "met-yes"
-        elif c.get("provably_misses"):
-            met, met_class = "no (none can)", "met-no"
-        else:
-            met, met_class = "no", "met-no"
-        rows.append(
-            {
-                "nodes": c["nodes"],
-                "answer": c["nodes"] == need,
-                "makespan": fmt_duration(c["makespan"]) if c.get("makespan") else "-",
-                "lower_bound": fmt_duration(c["lower_bound"]),
-                "met": met,
-                "met_class": met_class,
-                "cost": f"{c['cost']:,.2f}" if c.get("cost") is not None else "-",
-            }
-        )
-    ctx["rows"] = rows
-    if need is not None:
-        text = f"{need} nodes meet the deadline of {fmt_duration(deadline)}"
-        if result.get("makespan") is not None:
-            text += f": their plan finishes in {fmt_duration(float(result['makespan']))}"
-        if result.get("estimated_cost") is not None:
-            text += f", at an estimated cost of {float(result['estimated_cost']):,.2f}"
-        source = str(result.get("bound_source") or "")
-        why = SIZING_BOUND_WORDS.get(source, source.replace("_", " ") or "a bound")
-        if result.get("proven_optimal"):
-            text += f". No plan with fewer nodes can meet it (proven by {why})."
-        else:
-            maybe = f"{low} nodes" if low == need - 1 else f"{low} to {need - 1} nodes"
-            text += f". No plan with fewer than {low} nodes can meet it (proven by {why}); "
-            text += f"{maybe} might."
-        ctx["sentence"] = text
-    conf_text = sizing_confidence_sentence(result)
-    if conf_text:
-        ctx["confidence_sentence"] = conf_text
-    return ctx
-
-
-def rental_sentence(result: dict[str, Any]) -> str:
-    """One paragraph: what to rent, at what cost, how close to the cheapest, the caution."""
-    rent = [f"{n} {kind}" for kind, n in result["rent"].items() if n]
-    what = "Rent " + (", ".join(rent) if rent else "nothing: the farm you have is enough")
-    text = (
-        f"{what}, for an estimated {float(result['cost']):,.2f}; no plan meeting the "
-        f"deadline costs less than {float(result['cost_lower_bound']):,.2f}"
-    )
-    if result.get("proven_optimal"):
-        text += " (proven cheapest)"
-    text += f". {result.get('caution', '')}"
-    return text
-
-
-def sizing_confidence_sentence(result: dict[str, Any]) -> str | None:
-    """One sentence: how likely the sizing's answer makes the deadline, and to a confidence.
-
-    From the result's ``confidence`` block (the answer's plan simulated) and, when the
-    request asked for a confidence q, its ``confidence_sizing``. None without a block.
-    """
-    conf = result.get("confidence")
-    if not conf or conf.get("deadline_probability") is None:
-        return None
-    p = float(conf["deadline_probability"])
-    runs = int(conf["samples"])
-    need = result.get("nodes_needed")
-    plan = f"the {need}-node plan" if need is not None else "the plan"
-    if conf.get("interval_method") == "exact":  # no spread: every run is the plan itself
-        verdict = "meets" if p == 1.0 else "misses"
-        text = f"With no spread in the estimates, {plan} {verdict} the deadline in every run"
-    else:
-        lo, hi = conf["interval"]
-        text = (
-            f"With the estimates' spread, {plan} meets the deadline in {fmt_percent(p)} of {runs} "
-            f"simulated runs (95% interval {fmt_percent(lo)} to {fmt_percent(hi)})"
-        )
-    target = result.get("confidence_sizing")
-    if target:
-        text += (
-            f"; to meet it with probability at least {100 * float(target['confidence']):g}% "
-            "(judged by the lower end of each node count's 95% interval) takes "
-            f"{target['nodes_needed']} nodes"
-        )
-        fewer = target.get("fewer")
-        if fewer:
-            text += f"; with one node fewer it is only {fmt_percent(fewer['interval'][0])}"
-    return text + "."
-
-
-def _when(iso: str) -> str:
+def when(iso: str) -> str:
     """'2026-12-02T03:07:37.421Z' -> '2026-12-02 03:07 UTC' (the ISO text if it is not one)."""
     m = re.fullmatch(r"(\d{4}-\d\d-\d\d)T(\d\d:\d\d)(:\d\d(\.\d+)?)?Z", iso)
     return f"{m.group(1)} {m.group(2)} UTC" if m else iso
@@ -450,3 +299,51 @@ def _when(iso: str) -> str:
 
 def _ratio(x: Any) -> str:
     return "none known" if x is None else f"within {float(x):.4f} x optimal"
+
+
+# -- clock times (a result's ``clock``: the request's start_at and deadline_at) ----------
+
+_DEADLINE_LABEL = re.compile(r'(<text class="mark-label"[^>]*>deadline [^<]*)</text>')
+
+
+def fmt_clock(text: str) -> str:
+    """'2026-12-04T06:00:00+01:00' -> '2026-12-04 06:00 +01:00': in the timestamp's own
+    offset ('UTC' for ``Z`` or +00:00), seconds shown when not zero; the text itself if
+    it is not RFC 3339."""
+    try:
+        t = parse_time(text)
+    except ValueError:
+        return str(text)
+    w = t.when
+    shown = w.strftime("%Y-%m-%d %H:%M")
+    if w.second or t.fraction:
+        shown += f":{w.second:02d}"
+    z = w.strftime("%z")
+    return f"{shown} {'UTC' if z in ('+0000', '-0000') else z[:3] + ':' + z[3:5]}"
+
+
+def deadline_text(result: Mapping[str, Any], seconds: float) -> str:
+    """A deadline for people: with a ``clock``, its time (and the seconds from the start);
+    otherwise the seconds as a duration."""
+    clock = result.get("clock") or {}
+    at = clock.get("deadline_at")
+    if not at:
+        return fmt_duration(seconds)
+    return (
+        f"{fmt_clock(at)} ({fmt_duration(seconds)} after the start at "
+        f"{fmt_clock(clock['start_at'])})"
+    )
+
+
+def clock_deadline(summary: Mapping[str, Any]) -> str:
+    """A list row's deadline time (its result's or summary's ``clock``), or ''."""
+    at = (summary.get("clock") or {}).get("deadline_at")
+    return fmt_clock(at) if at else ""
+
+
+def with_clock_label(svg: str, result: Mapping[str, Any]) -> str:
+    """The timeline with its deadline line's label also giving the clock time."""
+    at = (result.get("clock") or {}).get("deadline_at")
+    if not at:
+        return svg
+    return _DEADLINE_LABEL.sub(lambda m: f"{m.group(1)} · {escape(fmt_clock(at))}</text>", svg, 1)

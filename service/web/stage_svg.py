@@ -20,7 +20,9 @@ from html import escape
 from itertools import pairwise
 from typing import Any
 
-from .svg import CHAR_W, PALETTE, fmt_duration, fmt_tick, nice_step, nice_ticks, timeline_span
+from ..csvio import plural
+from .svg import PALETTE, fit_text, fmt_duration, timeline_span
+from .ticks import nice_step, time_ticks
 
 #: one step of a limit's usage: from, to (seconds from the start) and how many jobs run
 Step = tuple[float, float, int]
@@ -67,12 +69,6 @@ def usage_steps(
     return steps
 
 
-def _fit(text: str, room: float) -> str:
-    """``text`` cut to what fits in ``room`` pixels, with an ellipsis when cut."""
-    most = max(int(room / CHAR_W), 2)
-    return text if len(text) <= most else text[: most - 1] + "…"
-
-
 def limit_chart(
     result: Mapping[str, Any], uses: Mapping[str, Sequence[str]], width: int = 960
 ) -> str:
@@ -89,6 +85,7 @@ def limit_chart(
     left, top, right, ph, gap = 150, 16, 40, 56, 34
     plot_w = width - left - right
     height = top + len(limits) * (ph + gap) + 10
+    ticks, tick_texts = time_ticks(span)
 
     def x(t: float) -> float:
         return left + plot_w * t / span
@@ -97,7 +94,7 @@ def limit_chart(
         f'<svg xmlns="http://www.w3.org/2000/svg" class="chart limits" role="img" '
         f'width="{width}" height="{height}" viewBox="0 0 {width} {height}" '
         f'data-span="{span:.6g}" data-left="{left}" data-plot-width="{plot_w}">'
-        f"<title>Limit usage over time: {len(limits)} limit(s)</title>",
+        f"<title>Limit usage over time: {plural(len(limits), 'limit')}</title>",
     ]
     for i, (name, cap) in enumerate(limits.items()):
         users = {jid for jid, names in uses.items() if name in names}
@@ -114,15 +111,15 @@ def limit_chart(
         parts.append(
             f'<g class="limit" data-limit="{escape(name)}" data-capacity="{int(cap)}" '
             f'data-top="{ptop}" data-plot-height="{ph}" data-y1="{y1}">'
-            f"<title>{escape(name)}: at most {int(cap)} of its {len(users)} job(s) at once; "
-            f"at most {peak} ran at once in this plan</title>"
+            f"<title>{escape(name)}: at most {int(cap)} of its "
+            f"{plural(len(users), 'job')} at once; at most {peak} ran at once in this plan</title>"
             f'<text class="limit-name" x="{left - 34}" y="{ptop + ph / 2 - 2:.1f}" '
-            f'text-anchor="end">{escape(_fit(name, left - 40))}</text>'
+            f'text-anchor="end">{escape(fit_text(name, left - 40))}</text>'
             f'<text class="tick-label" x="{left - 34}" y="{ptop + ph / 2 + 12:.1f}" '
             f'text-anchor="end">jobs at once</text>'
             f'<rect class="frame" x="{left}" y="{ptop}" width="{plot_w}" height="{ph}" />'
         )
-        for t in nice_ticks(span):
+        for t in ticks:
             parts.append(
                 f'<line class="tick" x1="{x(t):.1f}" x2="{x(t):.1f}" y1="{ptop}" y2="{base}" />'
             )
@@ -154,10 +151,10 @@ def limit_chart(
             f'text-anchor="end">capacity {int(cap)}</text></g>'
         )
     last = top + (len(limits) - 1) * (ph + gap) + ph
-    for t in nice_ticks(span):
+    for t, tick in zip(ticks, tick_texts, strict=True):
         parts.append(
             f'<text class="tick-label" x="{x(t):.1f}" y="{last + 14}" text-anchor="middle">'
-            f"{fmt_tick(t)}</text>"
+            f"{tick}</text>"
         )
     parts.append("</svg>")
     return "".join(parts)

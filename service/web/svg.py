@@ -15,9 +15,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Iterable, Mapping, Sequence
+from dataclasses import dataclass
 from html import escape
 from itertools import pairwise
-from typing import Any, Literal
+from typing import Any
+
+from ..csvio import plural
+from .ticks import AxisKind, axis_range, axis_ticks, time_ticks
 
 #: our own palette: eight hues distinguishable in print and for most colour vision, each
 #: dark or light enough that white or dark text on it reads at WCAG AA contrast (4.5:1)
@@ -43,8 +47,6 @@ TEXTURES = (
 #: rough width of one character of the 10-11 px chart font, for fitting labels
 CHAR_W = 6.2
 
-AxisKind = Literal["time", "integer", "number"]
-
 
 def fmt_duration(seconds: float) -> str:
     """3725 -> '1h 02m 05s'; short values keep decimals."""
@@ -56,42 +58,6 @@ def fmt_duration(seconds: float) -> str:
     h, rem = divmod(s, 3600)
     m, s = divmod(rem, 60)
     return f"{h}h {m:02d}m {s:02d}s" if h else f"{m}m {s:02d}s"
-
-
-def fmt_tick(seconds: float) -> str:
-    """Compact axis labels: 0, 45s, 30m, 2h, 2h30."""
-    s = round(seconds)
-    h, rem = divmod(s, 3600)
-    m, sec = divmod(rem, 60)
-    if h:
-        return f"{h}h{m:02d}" if m else f"{h}h"
-    if m:
-        return f"{m}m{sec:02d}" if sec else f"{m}m"
-    return f"{sec}s" if sec else "0"
-
-
-#: round steps of a time axis, in seconds
-TIME_STEPS = (1, 2, 5, 10, 15, 30, 60, 120, 300, 600, 900, 1800, 3600, 7200, 10800, 21600)
-
-
-def nice_ticks(hi: float, count: int = 8) -> list[float]:
-    """Round tick positions from 0 to about ``hi`` (seconds, in 1-2-5 steps of time units)."""
-    if hi <= 0:
-        return [0.0]
-    raw = hi / count
-    step = next((s for s in TIME_STEPS if s >= raw), 3600 * math.ceil(raw / 3600))
-    return [i * step for i in range(int(hi // step) + 1)]
-
-
-def nice_step(raw: float, kind: AxisKind = "number") -> float:
-    """The smallest round step >= ``raw``: time units on a time axis, else 1-2-2.5-5 x 10^k."""
-    if raw <= 0 or not math.isfinite(raw):
-        return 1.0
-    if kind == "time" and raw >= 1:
-        return float(next((s for s in TIME_STEPS if s >= raw), 3600 * math.ceil(raw / 3600)))
-    exp = 10.0 ** math.floor(math.log10(raw))
-    step = next(m * exp for m in (1, 2, 2.5, 5, 10) if m * exp >= raw * (1 - 1e-9))
-    return max(step, 1.0) if kind == "integer" else step
 
 
 def group_colours(groups: Iterable[str]) -> dict[str, str]:
@@ -170,19 +136,96 @@ def _waits_text(ids: Sequence[str]) -> str:
     return f"; waits for {named}" + (f" and {more} more" if more > 0 else "")
 
 
+def fit_text(text: str, room: float) -> str:
+    """``text`` cut to what fits in ``room`` pixels of the chart font, with an ellipsis
+    when cut (the caller gives the whole text in a ``<title>``)."""
+    most = max(int(room / CHAR_W), 2)
+    return text if len(text) <= most else text[: most - 1] + "…"
+
+
+@dataclass(frozen=True)
+class FarmNode:
+    """What a farm plan's page shows of one node from its stored request: its speed, the
+    tags it provides and when it is free of earlier work (seconds from the start)."""
+
+    speed: float = 1.0
+    provides: tuple[str, ...] = ()
+    free_at: float = 0.0
+
+    @property
+    def plain(self) -> bool:
+        return self.speed == 1.0 and not self.provides and self.free_at <= 0
+
+    def details(self) -> str:
+        """'speed 2 · gpu, exr': the node's speed and tags, in words."""
+        text = f"speed {self.speed:g}"
+        return text + (f" · {', '.join(self.provides)}" if self.provides else "")
+
+    @classmethod
+    def from_request(cls, body: Mapping[str, Any]) -> dict[str, FarmNode]:
+        """The ``nodes`` of a plan request (none for a ``node_count`` one), by id."""
+        out: dict[str, FarmNode] = {}
+        for n in body.get("nodes") or ():
+            if not isinstance(n, Mapping) or not isinstance(n.get("id"), str):
+                continue
+            free_at = n.get("free_at")
+            out[n["id"]] = cls(
+                speed=float(n.get("speed") or 1.0),
+                provides=tuple(str(t) for t in n.get("provides") or ()),
+                free_at=float(free_at) if isinstance(free_at, int | float) else 0.0,
+            )
+        return out
+
+
+#: a busy node's block: dark hatching on a light ground, so "busy" is told by texture and
+#: by its label, not by colour alone (WCAG 2.1 1.4.1 "Use of Color")
+BUSY_PATTERN = (
+    '<pattern id="sw-busy" width="6" height="6" patternUnits="userSpaceOnUse" '
+    'patternTransform="rotate(-45)"><rect width="6" height="6" fill="#e6e8ec" />'
+    '<rect width="1.6" height="6" fill="#5d6675" /></pattern>'
+)
+#: the height of a farm plan's row: the node id over its speed and tags
+FARM_ROW_HEIGHT = 32
+#: a legend swatch and the gap after its text, in pixels
+SWATCH_W, LEGEND_GAP = 28, 18
+
+
+def legend_layout(names: Sequence[str], room: float) -> tuple[list[tuple[float, int]], int]:
+    """Where each legend entry goes ((x offset, row) per name) and how many rows it takes.
+
+    Four columns a row while every name fits its column (the layout of a short legend);
+    else the entries flow left to right and wrap to a new row before one would pass
+    ``room``, so that no two overlap (issue 19 point 7). A name longer than a whole row is
+    cut by the caller (:func:`fit_text`)."""
+    column = room / 4
+    if all(SWATCH_W + CHAR_W * len(n) + 6 <= column for n in names):
+        return [((i % 4) * column, i // 4) for i in range(len(names))], math.ceil(len(names) / 4)
+    out: list[tuple[float, int]] = []
+    x, row = 0.0, 0
+    for n in names:
+        w = SWATCH_W + CHAR_W * min(len(n), int((room - SWATCH_W) / CHAR_W)) + LEGEND_GAP
+        if x > 0 and x + w - LEGEND_GAP > room:
+            x, row = 0.0, row + 1
+        out.append((x, row))
+        x += w
+    return out, (row + 1 if names else 0)
+
+
 def timeline(
     result: dict[str, Any],
     groups: dict[str, str] | None = None,
     width: int = 960,
     row_height: int = 20,
     waits: Mapping[str, Sequence[str]] | None = None,
+    farm: Mapping[str, FarmNode] | None = None,
 ) -> str:
     """The plan as a timeline: one row per node, one bar per job (its id on hover).
 
     ``groups`` maps job id -> group name. Each group has a colour and a texture, both shown
     in the legend; a bar wide enough carries its job id, else its group name, as text. A
     solid line marks the deadline, a dashed line the proven lower bound, each labelled on
-    its own line under the chart.
+    its own line under the chart. A node id longer than the margin is cut with an
+    ellipsis, the whole id in its ``<title>``; legend entries wrap rather than overlap.
 
     A stage-graph plan (a result with ``stages``; issue 17 point 6) draws each node's
     slots as lanes under its one label (``rect.lane``, a job in the lane of its ``slot``),
@@ -190,12 +233,24 @@ def timeline(
     their group's fill, named in the legend, so the mark is not colour alone (WCAG 2.1
     1.4.1 "Use of Color"), and, given ``waits`` (job id -> the ids of the request's
     ``after``), names in each bar's ``<title>`` what the job waits for.
+
+    Given ``farm`` (node id -> :class:`FarmNode`, from the request) with a node that is
+    not plain, each row carries the node's speed and tags under its id, and a node busy
+    with earlier work a hatched, labelled ``rect.busy`` block from 0 to its ``free_at``,
+    named in the legend (issue 19 point 7).
     """
     groups = groups or {}
+    farm = farm or {}
     stages = result.get("stages")
     critical = set((stages or {}).get("critical_path") or ())
     assignment: Sequence[dict[str, Any]] = result.get("assignment") or []
     shown = assignment[:MAX_ROWS]
+    detailed = any(not f.plain for f in farm.values())
+    two_lines = detailed and stages is None
+    if two_lines:
+        row_height = max(row_height, FARM_ROW_HEIGHT)
+    busy = {a["node"]: farm[a["node"]].free_at for a in shown if a["node"] in farm}
+    busy = {k: v for k, v in busy.items() if v > 0}
     makespan = float(result.get("makespan") or 0.0)
     lower = result.get("lower_bound")
     dl = (result.get("deadline") or {}).get("deadline")
@@ -217,7 +272,8 @@ def timeline(
         if at is not None
     ]
     legend_top = bottom + 16 * len(marks) + 34
-    legend_rows = math.ceil(len(colours) / 4) + (1 if critical else 0)
+    places, group_rows = legend_layout(list(colours), plot_w)
+    legend_rows = group_rows + (1 if critical else 0) + (1 if busy else 0)
     height = legend_top + 22 * legend_rows + 6
 
     def x(t: float) -> float:
@@ -227,7 +283,8 @@ def timeline(
         f'<svg xmlns="http://www.w3.org/2000/svg" class="timeline" role="img" '
         f'width="{width}" height="{_px(height)}" viewBox="0 0 {width} {_px(height)}" '
         f'data-span="{span:.6g}" data-left="{left}" data-plot-width="{plot_w}">',
-        f"<title>Plan timeline: {len(assignment)} nodes, makespan {fmt_duration(makespan)}</title>",
+        f"<title>Plan timeline: {plural(len(assignment), 'node')}, makespan "
+        f"{fmt_duration(makespan)}</title>",
         "<defs>",
         *(
             _group_pattern(
@@ -236,38 +293,54 @@ def timeline(
             for g, i in index.items()
         ),
         CRITICAL_PATTERN if critical else "",
+        BUSY_PATTERN if busy else "",
         "</defs>",
         f'<text class="tick-label" x="{left - 8}" y="{top - 8}" text-anchor="end">'
         "time from start</text>",
     ]
-    for t in nice_ticks(span):
+    for t, tick in zip(*time_ticks(span), strict=True):
         parts.append(
             f'<line class="tick" x1="{x(t):.1f}" x2="{x(t):.1f}" y1="{top - 4}" '
             f'y2="{_px(bottom)}" />'
             f'<text class="tick-label" x="{x(t):.1f}" y="{top - 8}" text-anchor="middle">'
-            f"{fmt_tick(t)}</text>"
+            f"{tick}</text>"
         )
     y: float = top  # an int while every row is (a plain plan), so its text stays as before
     for node, k, lane, h in zip(shown, slots, lanes, heights, strict=True):
+        nid = node["node"]
+        info = farm.get(nid)
+        shown_id = fit_text(nid, left - 12)
+        hover = nid if info is None or info.plain else f"{nid}: {info.details()}"
+        if info is not None and info.free_at > 0:
+            hover += f", busy until {fmt_duration(info.free_at)}"
+        hover_title = f"<title>{escape(hover)}</title>" if hover != shown_id else ""
         if stages is None:
+            label_y = y + 13 if two_lines else y + row_height * 0.7
             parts.append(
-                f'<g class="node-row" data-node="{escape(node["node"])}">'
-                f'<text class="node-label" x="{left - 8}" y="{y + row_height * 0.7:.1f}">'
-                f"{escape(node['node'])}</text>"
+                f'<g class="node-row" data-node="{escape(nid)}">'
+                f'<text class="node-label" x="{left - 8}" y="{label_y:.1f}">'
+                f"{escape(shown_id)}{hover_title}</text>"
             )
+            if two_lines and info is not None:
+                parts.append(
+                    f'<text class="node-detail" x="{left - 8}" y="{y + 26:.1f}">'
+                    f"{escape(fit_text(info.details(), left - 12))}</text>"
+                )
         else:
             parts.append(
-                f'<g class="node-row" data-node="{escape(node["node"])}" data-slots="{k}">'
+                f'<g class="node-row" data-node="{escape(nid)}" data-slots="{k}">'
                 f'<line class="node-sep" x1="{left}" x2="{left + plot_w}" y1="{y:.2f}" '
                 f'y2="{y:.2f}" />'
                 f'<text class="node-label" x="{left - 8}" y="{y + h / 2 + 4:.1f}">'
-                f"{escape(node['node'])}</text>"
+                f"{escape(shown_id)}{hover_title}</text>"
             )
             parts.extend(
                 f'<rect class="lane" data-slot="{s}" x="{left}" y="{y + s * lane:.2f}" '
                 f'width="{plot_w}" height="{lane:.2f}" fill="{LANE_FILLS[s % 2]}" />'
                 for s in range(k)
             )
+        if nid in busy:
+            parts.append(_busy_block(nid, busy[nid], left, x(busy[nid]), y, h))
         for j in node["jobs"]:
             g = groups.get(j["id"], UNGROUPED)
             x0, x1 = x(j["start"]), x(j["end"])
@@ -328,16 +401,21 @@ def timeline(
             f'<text class="legend-title" x="{left - 8}" y="{_px(legend_top)}" text-anchor="end">'
             "job group</text>"
         )
-    for i, g in enumerate(colours):
-        lx = left + (i % 4) * (plot_w / 4)
-        ly = legend_top + 22 * (i // 4)
+    for i, (g, (dx, row)) in enumerate(zip(colours, places, strict=True)):
+        lx = left + dx
+        ly = legend_top + 22 * row
+        cut = fit_text(g, plot_w - SWATCH_W)
         parts.append(
             f'<g class="legend-item" data-group="{escape(g)}"><rect x="{lx:.1f}" '
             f'y="{_px(ly - 12)}" width="22" height="15" fill="url(#sw-group-{i})" />'
-            f'<text x="{lx + 28:.1f}" y="{_px(ly)}">{escape(g)}</text></g>'
+            f'<text x="{lx + 28:.1f}" y="{_px(ly)}">{escape(cut)}</text>'
+            + (f"<title>{escape(g)}</title>" if cut != g else "")
+            + "</g>"
         )
+    mark_row = group_rows
     if critical:
-        ly = legend_top + 22 * math.ceil(len(colours) / 4)
+        ly = legend_top + 22 * mark_row
+        mark_row += 1
         parts.append(
             f'<g class="legend-mark" data-mark="critical path">'
             f'<text class="legend-title" x="{left - 8}" y="{_px(ly)}" text-anchor="end">'
@@ -348,70 +426,35 @@ def timeline(
             f'<text x="{left + 28:.1f}" y="{_px(ly)}">critical path: the longest chain of jobs '
             "waiting for one another</text></g>"
         )
+    if busy:
+        ly = legend_top + 22 * mark_row
+        parts.append(
+            f'<g class="legend-mark" data-mark="busy">'
+            f'<text class="legend-title" x="{left - 8}" y="{_px(ly)}" text-anchor="end">'
+            "node</text>"
+            f'<rect x="{left:.1f}" y="{_px(ly - 12)}" width="22" height="15" '
+            'fill="url(#sw-busy)" stroke="#5d6675" />'
+            f'<text x="{left + 28:.1f}" y="{_px(ly)}">busy: still running earlier work, '
+            "until the time the request gave (free_at)</text></g>"
+        )
     parts.append("</svg>")
     return "".join(parts)
 
 
-def _axis(
-    lo: float, hi: float, kind: AxisKind, count: int, pad: bool
-) -> tuple[float, float, float]:
-    """(low end, high end, tick step) of an axis showing ``lo`` .. ``hi``."""
-    if kind == "integer":
-        step = nice_step((hi - lo) / count, kind)
-        return lo - 0.5, hi + 0.5, step
-    if hi - lo <= 0:
-        spread = abs(hi) * 0.05 or 1.0
-        lo, hi = lo - spread, hi + spread
-    if pad:
-        extra = 0.04 * (hi - lo)
-        lo, hi = lo - extra, hi + extra
-    step = nice_step((hi - lo) / count, kind)
-    lo = math.floor(lo / step + 1e-9) * step
-    hi = math.ceil(hi / step - 1e-9) * step
-    return lo, hi, step
-
-
-def _multiples(lo: float, hi: float, step: float) -> list[float]:
-    """The multiples of ``step`` from ``lo`` to ``hi`` (both ends included, with round-off)."""
-    out, k = [], math.ceil(lo / step - 1e-9)
-    while k * step <= hi + 1e-9 * max(1.0, abs(hi)):
-        out.append(k * step)
-        k += 1
+def _busy_block(node: str, free_at: float, x0: float, x1: float, y: float, h: float) -> str:
+    """A node's busy time, 0 to ``free_at``: a hatched block with its word on it when it
+    fits and its meaning in its ``<title>``."""
+    w = max(x1 - x0, 0.5)
+    out = (
+        f'<rect class="busy" data-node="{escape(node)}" data-free-at="{free_at:.6g}" '
+        f'x="{x0:.2f}" y="{_px(y + 2)}" width="{w:.2f}" height="{_px(h - 4)}" '
+        f'fill="url(#sw-busy)" stroke="#5d6675" stroke-width=".8">'
+        f"<title>{escape(node)} is busy with earlier work until {fmt_duration(free_at)}"
+        "</title></rect>"
+    )
+    if w > CHAR_W * 4 + 8:
+        out += f'<text class="busy-label" x="{x0 + 4:.1f}" y="{y + h / 2 + 4:.1f}">busy</text>'
     return out
-
-
-def _decimals(step: float) -> int:
-    """Decimal places that show every multiple of ``step`` exactly (at most 6)."""
-    d = 0
-    while d < 6 and abs(step * 10**d - round(step * 10**d)) > 1e-6:
-        d += 1
-    return d
-
-
-def fmt_fine_tick(seconds: float, decimals: int) -> str:
-    """Axis labels finer than a second: 3725.25 -> '1h02m05.25s', 5.5 -> '5.5s'."""
-    rounded = round(seconds, decimals)
-    whole = math.floor(rounded)
-    frac = f"{rounded - whole:.{decimals}f}"[1:] if decimals else ""
-    h, rem = divmod(whole, 3600)
-    m, sec = divmod(rem, 60)
-    if h:
-        return f"{h}h{m:02d}m{sec:02d}{frac}s"
-    if m:
-        return f"{m}m{sec:02d}{frac}s"
-    return f"{sec}{frac}s"
-
-
-def _tick_text(kind: AxisKind, step: float) -> Callable[[float], str]:
-    if kind == "time":
-        if step >= 1:
-            return fmt_tick
-        decimals = _decimals(step)
-        return lambda v: fmt_fine_tick(v, decimals)
-    if kind == "integer":
-        return lambda v: f"{round(v)}"
-    decimals = _decimals(step)
-    return lambda v: f"{v:,.{decimals}f}"
 
 
 def _value_text(kind: AxisKind) -> Callable[[float], str]:
@@ -461,22 +504,34 @@ def line_chart(
     ys = [p[1] for p in pts] + list(marks.values()) + ([0.0] if y_from_zero else [])
     if x_range is not None:
         xs += list(x_range)
-    x0, x1, x_step = _axis(min(xs), max(xs), x_kind, 6, pad=False)
-    y0, y1, y_step = _axis(min(ys), max(ys), y_kind, 5, pad=True)
+    x0, x1, x_step = axis_range(min(xs), max(xs), x_kind, 6, pad=False)
+    y0, y1, y_step = axis_range(min(ys), max(ys), y_kind, 5, pad=True)
     if y_from_zero and min(ys) >= 0:
         y0 = 0.0  # the padding stops at zero
     if x_range is not None and x_kind != "integer":
         x0, x1 = min(x_range[0], min(xs)), max(x_range[1], max(xs))
-    tick_x, tick_y = _tick_text(x_kind, x_step), _tick_text(y_kind, y_step)
     val_x, val_y = _value_text(x_kind), _value_text(y_kind)
-    x_ticks, y_ticks = _multiples(x0, x1, x_step), _multiples(y0, y1, y_step)
-    y_texts = [tick_y(v) for v in y_ticks]
+    _, x_ticks, x_texts = axis_ticks(x0, x1, x_step, x_kind)
+    _, y_ticks, y_texts = axis_ticks(y0, y1, y_step, y_kind)
     # room on the left for the longest value label and the rotated axis label
     left = max(64, math.ceil(30 + CHAR_W * max(map(len, y_texts), default=0)))
     bottom = 44
     top = 48 if x_marks else 36  # the x marks' labels sit between the legend and the plot
     if right is None:
         right = 108 if marks else 24
+    # the legend: entries left to right from the plot's left edge, wrapping to a new line
+    # (18 px lower, the plot moved down as much) before one would pass the chart's edge
+    legend: list[tuple[float, float, str]] = []
+    lx, row = 0.0, 0
+    for name in series:
+        cut = fit_text(name, width - left - 34)
+        w = 30 + CHAR_W * len(cut)
+        if lx > 0 and left + lx + w > width - 4:
+            lx, row = 0.0, row + 1
+        legend.append((left + lx, 14.0 + 18 * row, cut))
+        lx += w + 22
+    top += 18 * row
+    height += 18 * row
     pw, ph = width - left - right, height - top - bottom
 
     def sx(v: float) -> float:
@@ -492,11 +547,11 @@ def line_chart(
         f'data-left="{left}" data-top="{top}" data-plot-width="{pw}" data-plot-height="{ph}">'
         f"<title>{escape(y_label)} by {escape(x_label)}</title>",
     ]
-    for v in x_ticks:
+    for v, text in zip(x_ticks, x_texts, strict=True):
         out.append(
             f'<line class="tick" x1="{sx(v):.1f}" x2="{sx(v):.1f}" y1="{top}" y2="{top + ph}" />'
             f'<text class="tick-label" x="{sx(v):.1f}" y="{top + ph + 14}" '
-            f'text-anchor="middle">{tick_x(v)}</text>'
+            f'text-anchor="middle">{text}</text>'
         )
     for v, text in zip(y_ticks, y_texts, strict=True):
         out.append(
@@ -525,20 +580,20 @@ def line_chart(
             f'x="{sx(at) + (-5 if right_half else 5):.1f}" y="{top - 4}" '
             f'text-anchor="{"end" if right_half else "start"}">{escape(name)}</text>'
         )
-    lx = float(left)
-    for i, (name, s) in enumerate(series.items()):
+    for i, ((name, s), (lx, ly, cut)) in enumerate(zip(series.items(), legend, strict=True)):
         colour = PALETTE[i % len(PALETTE)]
         dash = ' stroke-dasharray="6 3"' if i % 2 else ""
         fill = "#ffffff" if i % 2 else colour
         # legend: a sample of the line and its mark, then the name
         out.append(
             f'<g class="legend-item" data-series="{escape(name)}">'
-            f'<line x1="{lx:.1f}" x2="{lx + 24:.1f}" y1="14" y2="14" stroke="{colour}" '
-            f'stroke-width="2"{dash} /><circle cx="{lx + 12:.1f}" cy="14" r="3" fill="{fill}" '
-            f'stroke="{colour}" stroke-width="1.5" />'
-            f'<text x="{lx + 30:.1f}" y="18">{escape(name)}</text></g>'
+            f'<line x1="{lx:.1f}" x2="{lx + 24:.1f}" y1="{ly:g}" y2="{ly:g}" stroke="{colour}" '
+            f'stroke-width="2"{dash} /><circle cx="{lx + 12:.1f}" cy="{ly:g}" r="3" '
+            f'fill="{fill}" stroke="{colour}" stroke-width="1.5" />'
+            f'<text x="{lx + 30:.1f}" y="{ly + 4:g}">{escape(cut)}</text>'
+            + (f"<title>{escape(name)}</title>" if cut != name else "")
+            + "</g>"
         )
-        lx += 30 + CHAR_W * len(name) + 22
         if not s:
             continue
         line = list(s)

@@ -59,8 +59,9 @@ def _need_browser() -> None:
 
 @pytest.fixture
 def settings(settings: Settings) -> Settings:
-    """The service tests' settings with room for a multi-second exact search."""
-    return replace(settings, max_time_budget=SOLVING_BUDGET)
+    """The service tests' settings with room for a multi-second exact search and for the
+    demo batches (the largest has 72 nodes)."""
+    return replace(settings, max_time_budget=SOLVING_BUDGET, max_nodes=100)
 
 
 @pytest.fixture
@@ -426,3 +427,52 @@ def test_stage_page_lanes_critical_path_and_limits(browser: Any, url: str) -> No
             assert step["count"] <= panel["capacity"]
             assert step["top"] >= panel["capTop"] - 1.0
     shot(browser, "stage-page.png")
+
+
+#: the layout facts of a page as the browser drew it, read in one script
+READ_LAYOUT = """
+const main = document.querySelector('main').getBoundingClientRect();
+const boxes = sel => Array.from(document.querySelectorAll(sel)).map(e => {
+  const b = e.getBoundingClientRect(); return {left: b.left, right: b.right}; });
+const svg = document.querySelector('svg.timeline');
+return {inner: window.innerWidth, scroll: document.documentElement.scrollWidth,
+        main: main.width, rows: document.querySelectorAll('table tbody tr').length,
+        svg: svg ? svg.getBoundingClientRect().left : null,
+        labels: boxes('svg.timeline .node-label'),
+        ticks: Array.from(document.querySelectorAll('svg .tick-label')).map(t => t.textContent),
+        busy: document.querySelectorAll('svg.timeline rect.busy').length};
+"""
+
+
+def test_sizings_list_fluid_width_and_a_busy_farm(browser: Any, url: str) -> None:
+    """Issue 19 points 3 and 7 in Chromium on a 1800 px window: the sizings list shows
+    both sizings submitted; it and the plans list take the window's width (main as wide
+    as the window, no sideways scroll); a busy farm's plan page draws its two busy
+    blocks, every node label inside the chart (a long id cut, not clipped) and no tick
+    label twice."""
+    from tests.service.conftest import PRICED_SIZING
+    from tests.service.test_rentals import RENTAL
+    from tests.service.web.test_page_polish import BUSY_FARM
+
+    for body in (PRICED_SIZING, RENTAL):
+        assert post(url, body, wait=10, path="/v1/sizings")["status"] == "done"
+    plan = post(url, BUSY_FARM, wait=10)
+    browser.set_window_size(1800, 1000)
+    for path, rows in (("/sizings", 2), ("/", 1)):
+        browser.get(url + path)
+        seen = browser.execute_script(READ_LAYOUT)
+        assert seen["rows"] == rows
+        assert seen["scroll"] <= seen["inner"]
+        assert seen["main"] == pytest.approx(seen["inner"], abs=1)
+    browser.get(url + "/sizings")
+    shot_path = ARTIFACTS / "sizings-list.png"
+    ARTIFACTS.mkdir(exist_ok=True)
+    browser.save_screenshot(str(shot_path))
+    browser.get(f"{url}/plans/{plan['id']}")
+    seen = browser.execute_script(READ_LAYOUT)
+    assert seen["busy"] == 2 and len(seen["labels"]) == 3
+    assert all(box["left"] >= seen["svg"] for box in seen["labels"])
+    assert seen["scroll"] <= seen["inner"]
+    shot(browser, "busy-farm-page.png")
+    ticks = [t for t in seen["ticks"] if t]
+    assert len(set(ticks)) == len(ticks)

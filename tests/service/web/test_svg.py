@@ -9,7 +9,8 @@ from itertools import pairwise
 
 import pytest
 
-from service.web.pages import certificate_sentence, plan_context, sizing_context
+from service.web.pages import certificate_sentence, plan_context
+from service.web.sizings import sizing_context
 from service.web.svg import INK, PALETTE, contrast, fmt_duration, label_ink, line_chart, timeline
 from tests.bodies import size_body
 from workers.planning import Instance, solve
