@@ -298,6 +298,8 @@ class SizingRequestSchema(StrictSchema):
     spread = PlanRequestSchema._declared_fields["spread"]
     confidence_samples = PlanRequestSchema._declared_fields["confidence_samples"]
     confidence_seed = PlanRequestSchema._declared_fields["confidence_seed"]
+    #: how the sizing to ``confidence`` dispatches jobs in its simulation
+    confidence_policy = fields.String(validate=validate.OneOf(("static", "dynamic")))
     #: size to this confidence q: the fewest nodes with P(meet deadline) >= q
     confidence = FiniteNumber(
         validate=validate.Range(0, 1, min_inclusive=False, max_inclusive=False)

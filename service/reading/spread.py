@@ -53,6 +53,9 @@ def read_spread(body: Mapping[str, Any]) -> SpreadRequest | None:
     max_nodes = body.get("max_nodes")
     if max_nodes is not None and not (_whole_number(max_nodes) and max_nodes >= 1):
         issues.append(Issue(("max_nodes",), "must be a whole number >= 1"))
+    policy = body.get("confidence_policy", "static")
+    if policy not in ("static", "dynamic"):
+        issues.append(Issue(("confidence_policy",), "must be static or dynamic"))
     if issues:
         raise InvalidInstance(f"{len(issues)} problem(s) with the spread inputs", issues)
     return SpreadRequest(
@@ -61,4 +64,5 @@ def read_spread(body: Mapping[str, Any]) -> SpreadRequest | None:
         seed=int(seed),
         target=None if target is None else float(target),
         max_nodes=None if max_nodes is None else int(max_nodes),
+        policy=str(policy),
     )

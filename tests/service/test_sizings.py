@@ -172,3 +172,28 @@ def test_confidence_needing_more_than_max_nodes_fails_with_a_pointer(client: Any
     doc = r.get_json()
     assert doc["status"] == "failed" and doc["error"]["status"] == 422
     assert [e["pointer"] for e in doc["error"]["errors"]] == ["/max_nodes"]
+
+
+def test_confidence_policy_is_the_requests_choice(client: Any) -> None:
+    """Issue 19: the sizing to a confidence uses the dispatch policy the request names
+    (``static`` by default, ``dynamic`` when asked) and says which it used; any other
+    value is a 422 at /confidence_policy. Plumbing (the simulation itself is checked
+    against independent recounts in tests/workers/test_confidence.py)."""
+    body = {
+        "jobs": [{"id": f"qv_sh{k:03d}", "duration": 600} for k in range(6)],
+        "deadline": 1800,
+        "spread": 0.1,
+        "confidence": 0.8,
+        "confidence_samples": 100,
+    }
+    for policy in ("static", "dynamic"):
+        doc = client.post(
+            "/v1/sizings",
+            json={**body, "confidence_policy": policy},
+            headers={"Prefer": "wait=20"},
+        ).get_json()
+        assert doc["status"] == "done", doc
+        assert doc["result"]["confidence_sizing"]["policy"] == policy
+    r = client.post("/v1/sizings", json={**body, "confidence_policy": "sometimes"})
+    assert r.status_code == 422
+    assert [e["pointer"] for e in r.get_json()["errors"]] == ["/confidence_policy"]

@@ -44,6 +44,10 @@ class SpreadRequest:
     target: float | None = None
     #: most nodes the sizing to ``target`` may answer (None: the sizing's default)
     max_nodes: int | None = None
+    #: how the sizing to ``target`` dispatches jobs in the simulation: ``static`` (each
+    #: job on its planned node, in plan order) or ``dynamic`` (to whichever node frees
+    #: first); the request's choice, ``static`` when not given
+    policy: str = "static"
 
     def check(self, inst: Instance, speed: float) -> tuple[Instance, SpreadModel] | None:
         """The checks that need no sampling, for the jobs and deadline of ``inst``.
@@ -68,6 +72,7 @@ class SpreadRequest:
             duration_p90=inst.duration_p90,
             spread=self.spread,
             samples=self.samples,
+            policy="dynamic" if self.policy == "dynamic" else "static",
             job_ids=inst.job_ids,
         )
 
@@ -113,7 +118,7 @@ def sizing_confidence(
             speed=speed,
             samples=asked.samples,
             seed=asked.seed,
-            policy="static",
+            policy="dynamic" if asked.policy == "dynamic" else "static",
             threads=threads,
             max_nodes=DEFAULT_MAX_NODES if asked.max_nodes is None else asked.max_nodes,
         )
