@@ -201,7 +201,7 @@ def test_validation_problems_have_pointers(client: Any) -> None:
 
 
 def test_semantic_problems_come_from_the_core(client: Any) -> None:
-    """Duplicate job ids pass the shape check and are refused by ``Instance.from_request``."""
+    """Duplicate job ids pass the shape check and are refused by ``reading.read_instance``."""
     body = {"jobs": [{"id": "a", "duration": 1}, {"id": "a", "duration": 2}], "node_count": 1}
     doc = assert_problem(client.post("/v1/plans", json=body), 422, "invalid-request")
     assert doc["errors"][0]["pointer"] == "/jobs/1/id"

@@ -195,9 +195,9 @@ def test_read_once_in_columns_agrees_with_the_per_job_path(
 ) -> None:
     """``read_plan`` (jobs read in columns when they are all plain) gives exactly the verdict
     of the per-job path it replaces, marshmallow's ``load_plan_request`` then the core's
-    ``Instance.from_request``: the same loaded body, or the same problem with the same
+    ``reading.read_instance``: the same loaded body, or the same problem with the same
     issues (pointers and messages, in order). When it stores a worker's copy, that copy
-    builds the very instance ``from_request`` builds from the body."""
+    builds the very instance ``read_instance`` builds from the body."""
     from service import payload
     from service.routes.plans import read_plan
 

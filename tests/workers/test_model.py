@@ -130,8 +130,8 @@ _envelopes = st.fixed_dictionaries(
 def test_columns_read_exactly_like_the_request(
     jobs: list[tuple[Any, Any, Any]], envelope: dict[str, Any]
 ) -> None:
-    """``Instance.from_columns`` gives the instance, or the very issues (pointers and
-    messages, in order), that ``Instance.from_request`` gives for the same body with its
+    """``reading.read_columns`` gives the instance, or the very issues (pointers and
+    messages, in order), that ``reading.read_instance`` gives for the same body with its
     jobs written out as objects: the per-job reader is the reference, on random columns
     with bad ids (empty, too long, control characters, duplicates, not strings), bad
     durations (negative, NaN, infinite) and bad node lists, counts, deadlines."""

@@ -120,7 +120,7 @@ def test_audit_overflow_body_is_refused_at_resolution() -> None:
     """Regression (audit): jobs of 1e10 and 5e9 s, deadline 1e10 s, speed 1000, resolution
     1e-6 s. A node holds 1e10 * 1000 / 1e-6 = 1e19 ticks, past 2**53 (arithmetic): the
     request is refused with InvalidInstance pointing at /resolution and naming the limit,
-    from size_from_request and from size(), never an OverflowError."""
+    from a sizing body (read at the edge) and from size(), never an OverflowError."""
     for call in (
         lambda: size_body(AUDIT_BODY, time_budget=0.2),
         lambda: size([1e10, 5e9], 1e10, Node("node", speed=1000.0), resolution=1e-6),
