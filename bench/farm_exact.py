@@ -32,7 +32,6 @@ from __future__ import annotations
 import argparse
 import json
 import math
-import statistics
 import sys
 import time
 from dataclasses import dataclass
@@ -40,6 +39,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from exact_rows import Row, cpsat_note, summary  # bench/, beside this script
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
@@ -137,18 +137,6 @@ def cpsat(case: Case, seconds: float, workers: int = 2) -> tuple[int | None, int
 
 
 # -- the run ----------------------------------------------------------------------------
-@dataclass
-class Row:
-    mix: str
-    ours: int
-    bound: int
-    gap: float
-    proven: bool
-    over: float
-    cp: int | None
-    cp_bound: int | None
-
-
 def run_case(
     case: Case, budget: float, cp_seconds: float | None, cache: dict[str, Any], key: str
 ) -> Row:
@@ -165,10 +153,7 @@ def run_case(
             cache[key] = cpsat(case, cp_seconds)
         cp, cpb = cache[key]
     row = Row(case.mix, int(ours), lb, result.gap, result.proven_optimal, wall - budget, cp, cpb)
-    cmp = ""
-    if cp_seconds is not None:
-        ok = cp is None or row.ours <= cp
-        cmp = f"  cpsat {cp} (bound {cpb}) {'ours<=cpsat' if ok else 'OURS WORSE'}"
+    cmp = cpsat_note(row, cp_seconds is not None)
     print(
         f"{case.name:11s} n={inst.n:4d} m={inst.m:2d} ours={row.ours:6d} lb={row.bound:6d} "
         f"({result.certificate.source:17s}) gap={100 * row.gap:6.3f}% "
@@ -176,28 +161,6 @@ def run_case(
         flush=True,
     )
     return row
-
-
-def summary(label: str, rows: list[Row], budget: float, cpsat_on: bool) -> None:
-    gaps = [r.gap for r in rows]
-    proven = sum(r.proven for r in rows)
-    over = max(r.over for r in rows)
-    allowed = 0.05 * budget + 0.05
-    line = (
-        f"{label:8s} {len(rows):3d} inst  proven {proven}/{len(rows)} "
-        f"({100 * proven / len(rows):5.1f} %)  gap median {100 * statistics.median(gaps):.3f} % "
-        f"worst {100 * max(gaps):.3f} %  wall over budget max {over:+.3f} s "
-        f"({'ok' if over <= allowed else 'OVER'} <= {allowed:.3f})"
-    )
-    if cpsat_on:
-        no_worse = sum(1 for r in rows if r.cp is None or r.ours <= r.cp)
-        better = sum(1 for r in rows if r.cp is None or r.ours < r.cp)
-        cp_proven = sum(1 for r in rows if r.cp is not None and r.cp == r.cp_bound)
-        line += (
-            f"  ours<=cpsat {no_worse}/{len(rows)} ({100 * no_worse / len(rows):.1f} %, "
-            f"strictly better {better}); cpsat proven {cp_proven}/{len(rows)}"
-        )
-    print(line)
 
 
 def main() -> None:
@@ -234,8 +197,8 @@ def main() -> None:
                 args.cpsat_cache.write_text(json.dumps(cache))
     print()
     for mix in mixes:
-        summary(mix, [r for r in rows if r.mix == mix], args.budget, args.cpsat)
-    summary("overall", rows, args.budget, args.cpsat)
+        summary(mix, [r for r in rows if r.group == mix], args.budget, args.cpsat, 8)
+    summary("overall", rows, args.budget, args.cpsat, 8)
 
 
 if __name__ == "__main__":

@@ -36,13 +36,13 @@ from __future__ import annotations
 
 import argparse
 import json
-import statistics
 import time
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
+from exact_rows import Row, cpsat_note, summary  # bench/, beside this script
 
 from workers.planning import Instance, Node
 from workers.planning.budget import Budget
@@ -256,18 +256,6 @@ def cpsat(problem: StageProblem, seconds: float, workers: int = 2) -> tuple[int 
 
 
 # -- the run ----------------------------------------------------------------------------
-@dataclass
-class Row:
-    family: str
-    ours: int
-    bound: int
-    gap: float
-    proven: bool
-    over: float
-    cp: int | None
-    cp_bound: int | None
-
-
 def run_case(
     case: Case, budget: float, cp_seconds: float | None, cache: dict[str, Any], key: str
 ) -> Row:
@@ -291,10 +279,7 @@ def run_case(
         cp,
         cpb,
     )
-    cmp = ""
-    if cp_seconds is not None:
-        ok = cp is None or row.ours <= cp
-        cmp = f"  cpsat {cp} (bound {cpb}) {'ours<=cpsat' if ok else 'OURS WORSE'}"
+    cmp = cpsat_note(row, cp_seconds is not None)
     print(
         f"{case.name:16s} n={problem.n:5d} arcs={problem.arcs:5d} m={problem.m:2d} "
         f"slots={int(problem.slots.sum()):3d} ours={row.ours:7d} lb={row.bound:7d} "
@@ -304,28 +289,6 @@ def run_case(
         flush=True,
     )
     return row
-
-
-def summary(label: str, rows: list[Row], budget: float, cpsat_on: bool) -> None:
-    gaps = [r.gap for r in rows]
-    proven = sum(r.proven for r in rows)
-    over = max(r.over for r in rows)
-    allowed = 0.05 * budget + 0.05
-    line = (
-        f"{label:14s} {len(rows):3d} inst  proven {proven}/{len(rows)} "
-        f"({100 * proven / len(rows):5.1f} %)  gap median {100 * statistics.median(gaps):.3f} % "
-        f"worst {100 * max(gaps):.3f} %  wall over budget max {over:+.3f} s "
-        f"({'ok' if over <= allowed else 'OVER'} <= {allowed:.3f})"
-    )
-    if cpsat_on:
-        no_worse = sum(1 for r in rows if r.cp is None or r.ours <= r.cp)
-        better = sum(1 for r in rows if r.cp is None or r.ours < r.cp)
-        cp_proven = sum(1 for r in rows if r.cp is not None and r.cp == r.cp_bound)
-        line += (
-            f"  ours<=cpsat {no_worse}/{len(rows)} (strictly better {better}); "
-            f"cpsat proven {cp_proven}/{len(rows)}"
-        )
-    print(line)
 
 
 def main() -> None:
@@ -366,8 +329,8 @@ def main() -> None:
                 args.cpsat_cache.write_text(json.dumps(cache))
     print()
     for fam in fams:
-        summary(fam, [r for r in rows if r.family == fam], args.budget, args.cpsat)
-    summary("overall", rows, args.budget, args.cpsat)
+        summary(fam, [r for r in rows if r.group == fam], args.budget, args.cpsat, 14)
+    summary("overall", rows, args.budget, args.cpsat, 14)
 
 
 if __name__ == "__main__":

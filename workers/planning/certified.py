@@ -16,6 +16,7 @@ from fractions import Fraction
 from typing import Any
 
 from .budget import StopReason
+from .rational import down
 
 
 class Certified(ABC):
@@ -112,8 +113,7 @@ class MakespanAnswer(Certified):
     @property
     def lower_bound(self) -> float:
         """The best proven bound, rounded down (never above the proof)."""
-        f = float(self.exact_lower_bound)
-        return f if Fraction(f) <= self.exact_lower_bound else math.nextafter(f, -math.inf)
+        return down(self.exact_lower_bound)
 
     def deadline_dict(self) -> dict[str, Any] | None:
         """The contract's ``deadline`` object: met, slack, provably unreachable (exact)."""

@@ -284,40 +284,6 @@ def greedy(mk: Market) -> tuple[Plan, list[int]]:
     return plan, left
 
 
-def pack(mk: Market, caps: list[tuple[int | None, int | None, float]]) -> tuple[Plan, list[int]]:
-    """Best fit decreasing of every job into the given nodes ``(offer, farm, work
-    capacity)``; returns the plan and the jobs that did not fit."""
-    p = mk.instance.durations
-    names, cls = mk.classes
-    plan = [Bin(o, f) for o, f, _ in caps]
-    rem = np.array([cap * (1 - MARGIN) for _, _, cap in caps], dtype=np.float64)
-    masks: list[npt.NDArray[np.bool_]] = []
-    for c in range(len(names)):
-        masks.append(
-            np.array(
-                [
-                    mk.offer_serves(o, c) if o is not None else mk.farm_serves(f, c)  # type: ignore[arg-type]
-                    for o, f, _ in caps
-                ],
-                dtype=np.bool_,
-            )
-        )
-    left = []
-    inf = np.inf
-    for j in mk.instance.order_longest_first.tolist():
-        pj = float(p[j])
-        slack = np.where(masks[cls[j]], rem - pj, -1.0)
-        slack[slack < 0] = inf
-        k = int(np.argmin(slack))
-        if slack[k] == inf:
-            left.append(j)
-            continue
-        rem[k] -= pj
-        plan[k].jobs.append(j)
-        plan[k].work += pj
-    return [b for b in plan if b.jobs or b.offer is None], left
-
-
 @dataclass(frozen=True, eq=False)
 class Verified:
     """A plan checked exactly: its schedule, exact cost, rented count per kind."""

@@ -133,7 +133,7 @@ def remaining_work(inst: Instance, planned_on: Mapping[str, str], events: Events
     kept_ids: set[str] = set()
     from_lost: list[str] = []
     for i, r in enumerate(events.running):
-        bad_job = _first_failed(
+        bad_job = first_failed(
             (r.job not in index, f"no job {r.job!r} in the original batch"),
             (r.job in finished, f"{r.job!r} is also listed as finished"),
             (r.job in kept_ids or r.job in from_lost, f"{r.job!r} is listed as running twice"),
@@ -144,7 +144,7 @@ def remaining_work(inst: Instance, planned_on: Mapping[str, str], events: Events
         if r.node in lost:
             from_lost.append(r.job)  # its run is lost with the node: plan it again
             continue
-        bad_node = _first_failed(
+        bad_node = first_failed(
             (r.node not in nodes, f"no node {r.node!r} in the farm"),
             (r.node in busy_until, f"node {r.node!r} already runs a job"),
         )
@@ -193,22 +193,17 @@ def remaining_work(inst: Instance, planned_on: Mapping[str, str], events: Events
         job_ids=tuple(inst.job_ids[j] for j in to_plan),
         durations=inst.durations[keep],
         nodes=tuple(node_list),
-        requires=_subset(inst.requires, to_plan),
-        groups=_subset(inst.groups, to_plan),
+        requires=subset(inst.requires, to_plan),
+        groups=subset(inst.groups, to_plan),
         deadline=None if inst.deadline is None or passed else inst.deadline - t0,
         resolution=inst.resolution,
-        duration_p90=_subset(inst.duration_p90, to_plan),
+        duration_p90=subset(inst.duration_p90, to_plan),
     )
     left.validate()
     try:
         eligibility(left)
     except Infeasible as exc:
-        names = ", ".join(exc.jobs[:10]) + (" ..." if len(exc.jobs) > 10 else "")
-        raise Infeasible(
-            f"{len(exc.jobs)} job(s) left require tags that no remaining node provides",
-            jobs=exc.jobs,
-            issues=[Issue(("lost_nodes",), f"the nodes left cannot run: {names}")],
-        ) from exc
+        raise unrunnable_left(exc) from exc
     return RemainingWork(
         instance=left,
         to_plan_index=tuple(to_plan),
@@ -244,14 +239,25 @@ def replan(
     return replace(res, extras=extras)
 
 
-def _first_failed(*checks: tuple[bool, str]) -> str | None:
+def first_failed(*checks: tuple[bool, str]) -> str | None:
     """The message of the first check that failed (``True``), if any."""
     return next((message for failed, message in checks if failed), None)
 
 
-def _subset(column: tuple[T, ...] | None, keep: list[int]) -> tuple[T, ...] | None:
+def subset(column: tuple[T, ...] | None, keep: list[int]) -> tuple[T, ...] | None:
     """The rows ``keep`` of an optional per-job column (None stays None)."""
     if column is None:
         return None
     out = tuple(column[j] for j in keep)
     return out if any(x for x in out) else None
+
+
+def unrunnable_left(exc: Infeasible) -> Infeasible:
+    """The refusal when the nodes left cannot run some jobs (``exc`` names them), placed
+    at ``lost_nodes`` of the events."""
+    names = ", ".join(exc.jobs[:10]) + (" ..." if len(exc.jobs) > 10 else "")
+    return Infeasible(
+        f"{len(exc.jobs)} job(s) left require tags that no remaining node provides",
+        jobs=exc.jobs,
+        issues=[Issue(("lost_nodes",), f"the nodes left cannot run: {names}")],
+    )

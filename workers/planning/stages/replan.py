@@ -43,7 +43,7 @@ from ..budget import Budget
 from ..errors import Infeasible, InvalidInstance, Issue
 from ..model import Instance, Node
 from ..rational import down, up
-from ..replan import Events, RemainingWork, _first_failed, _subset
+from ..replan import Events, RemainingWork, first_failed, subset, unrunnable_left
 from .carried import Carried
 from .problem import StageProblem, gather
 from .result import StageResult
@@ -139,7 +139,7 @@ def remaining_stages(
     on_node: dict[str, int] = {}
     for i, r in enumerate(events.running):
         j = index.get(r.job, -1)
-        bad_job = _first_failed(
+        bad_job = first_failed(
             (j < 0, f"no job {r.job!r} in the original batch"),
             (j in finished, f"{r.job!r} is also listed as finished"),
             (j in seen, f"{r.job!r} is listed as running twice"),
@@ -153,7 +153,7 @@ def remaining_stages(
             from_lost.append(r.job)  # its run is lost with the node: plan it again
             continue
         count = on_node.get(r.node, 0) + 1
-        bad_node = _first_failed(
+        bad_node = first_failed(
             (r.node not in nodes, f"no node {r.node!r} in the farm"),
             (
                 count > slots_of.get(r.node, 1),
@@ -216,11 +216,11 @@ def remaining_stages(
             Node(k, nodes[k].speed, nodes[k].provides, up(f))
             for k, f in zip(node_ids, node_free, strict=True)
         ),
-        requires=_subset(inst.requires, keep),
-        groups=_subset(inst.groups, keep),
+        requires=subset(inst.requires, keep),
+        groups=subset(inst.groups, keep),
         deadline=None if inst.deadline is None or passed else down(Fraction(inst.deadline) - t0),
         resolution=inst.resolution,
-        duration_p90=_subset(inst.duration_p90, keep),
+        duration_p90=subset(inst.duration_p90, keep),
     )
     left.validate()
     new_of = np.full(n, -1, dtype=np.int64)
@@ -256,12 +256,7 @@ def remaining_stages(
             carried,
         )
     except Infeasible as exc:
-        names = ", ".join(exc.jobs[:10]) + (" ..." if len(exc.jobs) > 10 else "")
-        raise Infeasible(
-            f"{len(exc.jobs)} job(s) left require tags that no remaining node provides",
-            jobs=exc.jobs,
-            issues=[Issue(("lost_nodes",), f"the nodes left cannot run: {names}")],
-        ) from exc
+        raise unrunnable_left(exc) from exc
     work = RemainingWork(
         instance=left,
         to_plan_index=tuple(keep),

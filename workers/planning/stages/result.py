@@ -83,11 +83,6 @@ class StageResult(MakespanAnswer):
         return up(self.exact_value)
 
     @property
-    def lower_bound(self) -> float:
-        """The best bound, rounded down to a float (never above the proof)."""
-        return down(self.exact_lower_bound)
-
-    @property
     def deadline(self) -> float | None:
         return self.problem.instance.deadline
 
