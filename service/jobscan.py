@@ -31,6 +31,7 @@ import json
 import re
 from array import array
 from collections.abc import Callable
+from itertools import accumulate
 from typing import Any
 
 import numpy as np
@@ -62,17 +63,34 @@ def _constant(name: str) -> Any:
     raise ValueError(f"{name} is not a JSON number")
 
 
-def scan(raw: bytes, parse_int: Callable[[str], Any] | None = None) -> Columns | None:
+def scan(
+    raw: bytes, parse_int: Callable[[str], Any] | None = None, keep: int | None = None
+) -> Columns | None:
     """The body's other top-level fields and its plain jobs in columns, exactly as
     ``json.loads(raw, parse_int=parse_int)`` reads them; None when the body is not of
-    that shape (see above)."""
+    that shape (see above).
+
+    With ``keep``, plain jobs after the first ``keep`` are counted (``Columns.more``),
+    not held: a batch past the service's ``max_jobs`` is refused by its count before any
+    job is read, so holding its ids would only grow the worker (issue 16)."""
     if json.detect_encoding(raw) != "utf-8" or b'"duration"' not in raw:
         return None  # (a body without a plain job is not parsed twice)
-    ids: list[str] = []
+    ids: list[str] = []  # the ids of the jobs read since the last pack()
     seconds = array("d")
     grouped = b'"group"' in raw  # a group key written with escapes is not plain here
     groups: list[str | None] = []
     add_id, add_seconds, add_group = ids.append, seconds.append, groups.append
+    packed = _Packed(len(raw) if keep is None else keep)
+
+    def pack() -> None:
+        """Hold the batch's ids in one string (a Python str per id costs ~50 bytes more
+        than its text, more than the body's bytes for short ids); past ``keep``, count."""
+        kept = packed.add(ids)
+        if kept < len(ids):
+            del seconds[packed.kept :]
+            if grouped:
+                del groups[packed.kept :]
+        ids.clear()
 
     def hook(pairs: list[tuple[str, Any]]) -> Any:
         if len(pairs) == 2:  # the common case first: {"id": ..., "duration": ...}
@@ -84,6 +102,8 @@ def scan(raw: bytes, parse_int: Callable[[str], Any] | None = None) -> Columns |
                     add_seconds(v2)
                     if grouped:
                         add_group(None)
+                    if len(ids) == _BATCH:
+                        pack()
                     return _MARK
         elif len(pairs) != 3 or not grouped:
             return dict(pairs)
@@ -95,6 +115,8 @@ def scan(raw: bytes, parse_int: Callable[[str], Any] | None = None) -> Columns |
                     add_id(v1)
                     add_seconds(v2)
                     add_group(v3)
+                    if len(ids) == _BATCH:
+                        pack()
                     return _MARK
         job = dict(pairs)  # any other order, or not plain
         if len(job) == len(pairs) and _KEYS.issuperset(job) and "id" in job:
@@ -109,27 +131,73 @@ def scan(raw: bytes, parse_int: Callable[[str], Any] | None = None) -> Columns |
                 add_seconds(x)
                 if grouped:
                     add_group(group)
+                if len(ids) == _BATCH:
+                    pack()
                 return _MARK
         return job
 
     try:
-        top = json.loads(raw, object_pairs_hook=hook, parse_constant=_constant, parse_int=parse_int)
+        top = json.loads(
+            raw,
+            object_pairs_hook=hook,
+            parse_constant=_constant,
+            parse_int=parse_int,
+        )
     except (ValueError, RecursionError, OverflowError):  # OverflowError: a huge duration
         return None
+    pack()
     jobs = top.get("jobs") if type(top) is dict else None
-    n = len(ids)
+    n = packed.kept + packed.more
     if type(jobs) is not list or not jobs or len(jobs) != n or jobs.count(_MARK) != n:
         return None  # not all jobs plain, or a plain-looking object elsewhere
-    del jobs
+    envelope = {k: v for k, v in top.items() if k != "jobs"}
+    del jobs, top  # the list of markers goes before the ids are unpacked
     columns = Columns(
-        {k: v for k, v in top.items() if k != "jobs"},
-        ids,
+        envelope,
+        packed.unpack(),
         np.frombuffer(seconds, dtype=np.float64),
         groups if any(g is not None for g in groups) else None,
+        packed.more,
     )
     if (b"\\u" in raw or b"\xed" in raw) and _surrogate(columns):  # an escape or UTF-8 of
         return None  # a surrogate ("surrogatepass", as json.loads decodes bytes)
     return columns
+
+
+#: ids read between two packs
+_BATCH = 4096
+
+
+class _Packed:
+    """Ids held as joined text and lengths while the body is parsed (its decoded text is
+    alive then), at most ``keep`` of them; the rest only counted."""
+
+    def __init__(self, keep: int) -> None:
+        self.keep, self.kept, self.more = keep, 0, 0
+        self.texts: list[str] = []
+        self.lengths: list[array[int]] = []
+
+    def add(self, ids: list[str]) -> int:
+        """Holds the first of ``ids`` up to ``keep`` in all, counts the others; returns
+        how many it held."""
+        take = min(len(ids), self.keep - self.kept)
+        self.more += len(ids) - take
+        if take > 0:
+            batch = ids if take == len(ids) else ids[:take]
+            self.texts.append("".join(batch))
+            self.lengths.append(array("L", map(len, batch)))
+            self.kept += take
+        return take
+
+    def unpack(self) -> list[str]:
+        """The ids held, in order, as separate strings (equal to the ones read)."""
+        out: list[str] = []
+        for text, lengths in zip(self.texts, self.lengths, strict=True):
+            ends = list(accumulate(lengths))
+            out.extend([text[a:b] for a, b in zip([0, *ends[:-1]], ends, strict=True)])
+        self.texts.clear()
+        self.lengths.clear()
+        return out
 
 
 def _surrogate(columns: Columns) -> bool:
@@ -157,10 +225,12 @@ def plain(columns: Columns) -> bool:
     return max(map(len, named)) <= MAX_ID_LENGTH and not CONTROL.search("".join(named))
 
 
-def read_plain(raw: bytes, parse_int: Callable[[str], Any] | None = None) -> Columns | None:
-    """:func:`scan`, when every job is :func:`plain`; else None (the per-job path then
-    names each problem)."""
-    columns = scan(raw, parse_int)
+def read_plain(
+    raw: bytes, parse_int: Callable[[str], Any] | None = None, keep: int | None = None
+) -> Columns | None:
+    """:func:`scan`, when every job kept is :func:`plain`; else None (the per-job path
+    then names each problem)."""
+    columns = scan(raw, parse_int, keep)
     return columns if columns is not None and plain(columns) else None
 
 
@@ -168,4 +238,4 @@ def counted(columns: Columns) -> dict[str, Any]:
     """The body as the checks that only count its jobs see it (the limits of
     ``schemas.check_plan_limits``, ``queue.simulation_allowance``): its other fields and a
     placeholder per job, as a plain job has none of the fields they read."""
-    return {**columns.envelope, "jobs": [None] * len(columns.ids)}
+    return {**columns.envelope, "jobs": [None] * (len(columns.ids) + columns.more)}

@@ -40,6 +40,9 @@ class Columns:
     ids: list[str]
     durations: npt.NDArray[np.float64]
     groups: list[str | None] | None = None
+    #: plain jobs read past the last one kept (``jobscan.scan``'s ``keep``): a batch that
+    #: long is refused by its count, so its ids are not held
+    more: int = 0
 
 
 #: ids (or groups) written to JSON at a time: the stored copy is built in one buffer

@@ -148,7 +148,8 @@ def read_json_body(columns: bool = False) -> tuple[bytes, Any]:
     _check_elements(raw, services().settings)  # before a Python object is made for each
     parse_int = _int_parser(raw)
     big = columns and len(raw) >= jobscan.MIN_BYTES
-    plain = jobscan.read_plain(raw, parse_int) if big else None
+    keep = services().settings.max_jobs  # past it, the count alone refuses the batch
+    plain = jobscan.read_plain(raw, parse_int, keep) if big else None
     if plain is not None:
         return raw, plain
     try:

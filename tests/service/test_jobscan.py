@@ -10,6 +10,7 @@ the reader), on the same bodies.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 from typing import Any
 
@@ -357,27 +358,52 @@ _api_jobs = st.lists(
 )
 
 
-@settings(max_examples=1000, deadline=None)
-@given(_api_jobs, _envelopes)
-def test_api_verdicts_match_the_per_job_path(jobs: list[Any], envelope: dict[str, Any]) -> None:
+@settings(max_examples=1500, deadline=None)
+@given(_api_jobs, _envelopes, st.one_of(st.none(), st.integers(1, 5)))
+def test_api_verdicts_match_the_per_job_path(
+    jobs: list[Any], envelope: dict[str, Any], most: int | None
+) -> None:
     """What the route does (columns when ``read_plain`` gives them, else the parsed body)
     gives exactly the verdict of the per-job path it replaces (``load_plan_request`` then
     ``read_instance``, on ``json.loads`` of the same bytes): the same problem with the same
-    issues (pointers and messages, in order), or the same loaded fields."""
+    issues (pointers and messages, in order), or the same loaded fields. With a ``max_jobs``
+    of ``most``, the route holds at most that many plain jobs and counts the rest (issue
+    16: a batch past the limit must not grow the worker by its ids), same verdicts."""
     from service.routes.plans import read_plan
 
+    limits = S if most is None else dataclasses.replace(S, max_jobs=most)
     raw = json.dumps({**envelope, "jobs": jobs}).encode()
     body = json.loads(raw)
 
     def reference() -> Any:
-        data = load_plan_request(body, S)
+        data = load_plan_request(body, limits)
         read_instance(data)
         return {k: v for k, v in data.items() if k != "jobs"}
 
-    cols = jobscan.read_plain(raw)  # what the route hands read_plan: columns, or the body
-    event("read in columns" if cols is not None else "read per job")
+    cols = jobscan.read_plain(raw, keep=most)  # what the route hands read_plan
+    event("read per job" if cols is None else "counted past" if cols.more else "all held")
+    assert cols is None or len(cols.ids) <= (most or len(jobs))
     routed = body if cols is None else cols
-    assert _verdict(lambda: read_plan(routed, S).data) == _verdict(reference)
+    assert _verdict(lambda: read_plan(routed, limits).data) == _verdict(reference)
+
+
+@settings(max_examples=500, deadline=None)
+@given(st.one_of(_body(), _plain_bodies), st.integers(1, 3), st.integers(1, 6))
+def test_ids_packed_in_batches_are_what_json_loads_reads(raw: bytes, batch: int, keep: int) -> None:
+    """Ids are held as joined text between batches while the body is parsed; with batches
+    of 1 to 3 jobs (so every body crosses several) and at most ``keep`` jobs held, the
+    columns are still exactly ``json.loads``'s, cut after ``keep`` with the rest counted."""
+    old = jobscan._BATCH
+    jobscan._BATCH = batch
+    try:
+        whole, cut = jobscan.scan(raw), jobscan.scan(raw, keep=keep)
+    finally:
+        jobscan._BATCH = old
+    assert (whole is None) == (cut is None)
+    assert whole is None or _same(whole, raw)
+    assert whole is None or cut is None or cut.ids == whole.ids[:keep]
+    assert whole is None or cut is None or len(cut.ids) + cut.more == len(whole.ids)
+    assert whole is None or cut is None or list(cut.durations) == list(whole.durations[:keep])
 
 
 def test_worker_copy_is_the_bodys_columns() -> None:
