@@ -149,7 +149,8 @@ class JobQueue:
         expired at once; then ``StartedJobRegistry.cleanup()`` runs RQ's own abandoned-job
         path (``Retry(max=1)`` re-queues it, else it fails via ``on_failure``). Workers on
         other hosts are left to the entry's expiry, which this cleanup also serves, so a
-        dead worker's plan is never left ``solving`` for more than that expiry.
+        dead worker's plan is never left ``solving`` for more than that expiry (or, should a
+        worker die while it holds the queue's maintenance lock, than that lock's 15 minutes).
         """
         conn = self.queue.connection
         # the failure callback runs under a death penalty: a timer, since API threads
@@ -166,7 +167,15 @@ class JobQueue:
             if host == here and pid.isdigit() and not _alive(int(pid)):
                 conn.zadd(reg.key, {member: 0}, xx=True)
                 dead += 1
-        reg.cleanup()
+        # RQ's cleanup reads the expired entries, handles each, then removes them: two at
+        # once would retry one job twice (two runs, a third attempt). Workers clean under
+        # the queue's maintenance lock; so does this (if a worker holds it, that worker's
+        # cleanup or the next reap takes what was expired here).
+        if self.queue.acquire_maintenance_lock():
+            try:
+                reg.cleanup()
+            finally:
+                self.queue.release_maintenance_lock()
         return dead + self._rescue_stranded()
 
     def _rescue_stranded(self, after: float = 5.0) -> int:
