@@ -3,6 +3,7 @@ as a second opinion.
 
     .venv/bin/python bench/stages_exact.py [--quick] [--per-family 10] [--budget 1.0]
                                            [--cpsat] [--cpsat-seconds 10]
+                                           [--seed 17] [--search-seed 0]
 
 Families (seeded; every name is our own coined one, nodes are ``node-NN``):
 
@@ -21,7 +22,8 @@ Families (seeded; every name is our own coined one, nodes are ``node-NN``):
 1 s, so the plan, the bound and CP-SAT's plan are all in the same integer ticks.
 
 Printed per instance: jobs, arcs, nodes, slots, our makespan and bound (ticks), certified
-gap, proven or not, wall time over the budget, and with ``--cpsat`` CP-SAT's makespan and
+gap, proven or not, wall time over the budget, the search's moves (list schedules of its
+local walk), and with ``--cpsat`` CP-SAT's makespan and
 bound and whether ours is no worse. Then per family and overall: share proven, median and
 worst certified gap, the largest wall time over the budget, and the comparison.
 
@@ -34,18 +36,19 @@ workers, no hint from our plans or bounds.
 
 from __future__ import annotations
 
-import argparse
-import json
 import time
+from collections.abc import Sequence
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import numpy as np
-from exact_rows import Row, cpsat_note, summary  # bench/, beside this script
+
+# exact_rows: bench/, beside this script
+from exact_rows import CpSat, Row, cpsat_note, minimise, options, run_groups
 
 from workers.planning import Instance, Node
 from workers.planning.budget import Budget
+from workers.planning.stages.listing import warm_up
 from workers.planning.stages.problem import StageProblem
 from workers.planning.stages.search import solve_stages
 
@@ -84,16 +87,38 @@ def _sizes(rng: np.random.Generator) -> tuple[int, int]:
     return n, m
 
 
+class Batch:
+    """Jobs being generated, in batch order: ids, durations, waits and limits used."""
+
+    def __init__(self) -> None:
+        self.ids: list[str] = []
+        self.dur: list[float] = []
+        self.after: list[list[str]] = []
+        self.uses: list[list[str]] = []
+
+    def add(self, jid: str, seconds: float, after: list[str], uses: list[str]) -> str:
+        self.ids.append(jid)
+        self.dur.append(float(seconds))
+        self.after.append(after)
+        self.uses.append(uses)
+        return jid
+
+    def fan_in(
+        self, parts: Sequence[tuple[str, float, list[str]]], join: str, seconds: float
+    ) -> str:
+        """The jobs ``parts`` (id, seconds, limits used), then ``join`` waiting for all."""
+        for jid, sec, use in parts:
+            self.add(jid, sec, [], use)
+        return self.add(join, seconds, [jid for jid, _, _ in parts], [])
+
+
 def shots(rng: np.random.Generator, index: int, licence: bool) -> Case:
     """Layers -> comp -> encode per shot (see the module docstring)."""
     target, m = _sizes(rng)
     show = SHOW_WORDS[index % len(SHOW_WORDS)]
-    ids: list[str] = []
-    dur: list[float] = []
-    after: list[list[str]] = []
-    uses: list[list[str]] = []
+    b = Batch()
     shot = 0
-    while len(ids) < target:
+    while len(b.ids) < target:
         chunks = int(rng.integers(1, 7))
         nlayers = int(rng.integers(2, 6))
         base = rng.uniform(120, 2400, nlayers)
@@ -101,67 +126,48 @@ def shots(rng: np.random.Generator, index: int, licence: bool) -> Case:
         tag = f"{show}-sh{shot:03d}"
         comps: list[str] = []
         for c in range(chunks):
-            layer_ids = []
-            for layer in range(nlayers):
-                jid = f"{tag}-c{c}-layer{layer}"
-                ids.append(jid)
-                dur.append(float(max(1, round(base[layer] * rng.uniform(0.7, 1.3)))))
-                after.append([])
-                uses.append(["renderer-lic"] if licence and fx[layer] else [])
-                layer_ids.append(jid)
-            cid = f"{tag}-c{c}-comp"
-            ids.append(cid)
-            dur.append(float(rng.integers(60, 600)))
-            after.append(layer_ids)
-            uses.append([])
-            comps.append(cid)
-        ids.append(f"{tag}-encode")
-        dur.append(float(rng.integers(120, 900)))
-        after.append(comps)
-        uses.append([])
+            layers = [
+                (
+                    f"{tag}-c{c}-layer{layer}",
+                    max(1, round(base[layer] * rng.uniform(0.7, 1.3))),
+                    ["renderer-lic"] if licence and fx[layer] else [],
+                )
+                for layer in range(nlayers)
+            ]
+            comps.append(b.fan_in(layers, f"{tag}-c{c}-comp", float(rng.integers(60, 600))))
+        b.add(f"{tag}-encode", float(rng.integers(120, 900)), comps, [])
         shot += 1
     limits = {"renderer-lic": max(1, int(m * rng.uniform(0.15, 0.6)))} if licence else {}
     family = "shots_licence" if licence else "shots"
-    return Case(f"{family}-{index}", family, dur, after, uses, limits, [1] * m, ids)
+    return Case(f"{family}-{index}", family, b.dur, b.after, b.uses, limits, [1] * m, b.ids)
 
 
 def titles(rng: np.random.Generator, index: int) -> Case:
     """Chunk -> concat -> package per title (see the module docstring)."""
     target, m = _sizes(rng)
-    ids: list[str] = []
-    dur: list[float] = []
-    after: list[list[str]] = []
-    uses: list[list[str]] = []
+    b = Batch()
     title = 0
-    while len(ids) < target:
+    while len(b.ids) < target:
         word = SHOW_WORDS[(index + title) % len(SHOW_WORDS)]
         tag = f"{word}-t{title:03d}"
         chunks = int(rng.integers(2, 21))
         concats: list[str] = []
         for rend in range(int(rng.integers(2, 7))):
             cost = rng.uniform(20, 400)
-            chunk_ids = []
-            for c in range(chunks):
-                jid = f"{tag}-r{rend}-chunk{c}"
-                ids.append(jid)
-                dur.append(float(max(1, round(cost * rng.uniform(0.8, 1.2)))))
-                after.append([])
-                uses.append(["storage-read"])
-                chunk_ids.append(jid)
-            cid = f"{tag}-r{rend}-concat"
-            ids.append(cid)
-            dur.append(float(rng.integers(5, 60)))
-            after.append(chunk_ids)
-            uses.append([])
-            concats.append(cid)
-        ids.append(f"{tag}-package")
-        dur.append(float(rng.integers(10, 120)))
-        after.append(concats)
-        uses.append([])
+            parts = [
+                (
+                    f"{tag}-r{rend}-chunk{c}",
+                    max(1, round(cost * rng.uniform(0.8, 1.2))),
+                    ["storage-read"],
+                )
+                for c in range(chunks)
+            ]
+            concats.append(b.fan_in(parts, f"{tag}-r{rend}-concat", float(rng.integers(5, 60))))
+        b.add(f"{tag}-package", float(rng.integers(10, 120)), concats, [])
         title += 1
     slots = [int(rng.choice([1, 2, 4])) for _ in range(m)]
     limits = {"storage-read": max(1, int(sum(slots) * rng.uniform(0.3, 1.2)))}
-    return Case(f"titles-{index}", "titles", dur, after, uses, limits, slots, ids)
+    return Case(f"titles-{index}", "titles", b.dur, b.after, b.uses, limits, slots, b.ids)
 
 
 def layered(rng: np.random.Generator, index: int) -> Case:
@@ -246,29 +252,17 @@ def cpsat(problem: StageProblem, seconds: float, workers: int = 2) -> tuple[int 
     span = model.new_int_var(int(t.free.max()), horizon, "makespan")
     model.add_max_equality(span, ends)
     model.minimize(span)
-    solver = cp_model.CpSolver()
-    solver.parameters.max_time_in_seconds = seconds
-    solver.parameters.num_workers = workers
-    status = solver.solve(model)
-    if status in (cp_model.OPTIMAL, cp_model.FEASIBLE):
-        return int(solver.objective_value), int(solver.best_objective_bound)
-    return None, int(solver.best_objective_bound)
+    return minimise(model, seconds, workers)
 
 
 # -- the run ----------------------------------------------------------------------------
-def run_case(
-    case: Case, budget: float, cp_seconds: float | None, cache: dict[str, Any], key: str
-) -> Row:
+def run_case(case: Case, budget: float, cpsat_runs: CpSat, key: str, search_seed: int = 0) -> Row:
     problem = case.problem()
     t0 = time.perf_counter()
-    result = solve_stages(problem, "exact", Budget(budget))
+    result = solve_stages(problem, "exact", Budget(budget), seed=search_seed)
     wall = time.perf_counter() - t0
     result.plan.check()
-    cp = cpb = None
-    if cp_seconds is not None:
-        if key not in cache:
-            cache[key] = cpsat(problem, cp_seconds)
-        cp, cpb = cache[key]
+    cp, cpb = cpsat_runs.answer(key, lambda seconds: cpsat(problem, seconds))
     row = Row(
         case.family,
         result.plan.makespan_ticks,
@@ -279,58 +273,35 @@ def run_case(
         cp,
         cpb,
     )
-    cmp = cpsat_note(row, cp_seconds is not None)
+    cmp = cpsat_note(row, cpsat_runs.on)
     print(
         f"{case.name:16s} n={problem.n:5d} arcs={problem.arcs:5d} m={problem.m:2d} "
         f"slots={int(problem.slots.sum()):3d} ours={row.ours:7d} lb={row.bound:7d} "
         f"({result.bounds.best.name:13s}) gap={100 * row.gap:6.3f}% "
         f"{'proven' if row.proven else '      '} wall-budget={row.over:+.3f}s "
-        f"rule={result.rule}{cmp}",
+        f"rule={result.rule} moves={result.rounds}{cmp}",
         flush=True,
     )
     return row
 
 
 def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--quick", action="store_true", help="one instance per family")
-    ap.add_argument("--per-family", type=int, default=10)
-    ap.add_argument("--budget", type=float, default=1.0)
-    ap.add_argument("--seed", type=int, default=17)
-    ap.add_argument("--cpsat", action="store_true")
-    ap.add_argument("--cpsat-seconds", type=float, default=10.0)
-    ap.add_argument("--family", choices=FAMILIES, action="append")
-    ap.add_argument(
-        "--cpsat-cache",
-        type=Path,
-        help="a JSON file keeping CP-SAT's answers between runs (they do not depend on ours)",
-    )
+    ap = options(__doc__, "family", FAMILIES, per=10, quick="one instance per family", seed=17)
+    ap.add_argument("--search-seed", type=int, default=0, help="our search's seed")
     args = ap.parse_args()
-    cache: dict[str, Any] = {}
-    if args.cpsat_cache and args.cpsat_cache.exists():
-        cache = json.loads(args.cpsat_cache.read_text())
-    per = 1 if args.quick else args.per_family
-    fams = args.family or list(FAMILIES)
-    # a throwaway solve first, so that imports and caches are not charged to instance 0
+    # load the compiled kernels and make a throwaway solve first, so that imports and
+    # caches are not charged to instance 0
+    warm_up()
     solve_stages(generate("layered", 0, 0).problem(), "exact", Budget(0.05))
-    rows: list[Row] = []
-    for fam in fams:
-        for i in range(per):
-            rows.append(
-                run_case(
-                    generate(fam, i, args.seed),
-                    args.budget,
-                    args.cpsat_seconds if args.cpsat else None,
-                    cache,
-                    f"{fam}/{i}/seed{args.seed}/{args.cpsat_seconds}s",
-                )
-            )
-            if args.cpsat_cache and args.cpsat:
-                args.cpsat_cache.write_text(json.dumps(cache))
-    print()
-    for fam in fams:
-        summary(fam, [r for r in rows if r.group == fam], args.budget, args.cpsat, 14)
-    summary("overall", rows, args.budget, args.cpsat, 14)
+    run_groups(
+        args,
+        args.family or list(FAMILIES),
+        1 if args.quick else args.per_family,
+        lambda fam, i, cp, key: run_case(
+            generate(fam, i, args.seed), args.budget, cp, key, args.search_seed
+        ),
+        14,
+    )
 
 
 if __name__ == "__main__":

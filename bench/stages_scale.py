@@ -19,15 +19,19 @@ import argparse
 import gc
 import graphlib
 import time
+from typing import Any
 
 import numpy as np
 
 from workers.planning import Instance, Node
+from workers.planning.stages.list_kernel import kernel_loaded
+from workers.planning.stages.listing import Lister, priority, warm_up
+from workers.planning.stages.paths import longest_paths
 from workers.planning.stages.problem import StageProblem
 from workers.planning.stages.search import solve_stages
 
 
-def generate(jobs: int, arcs: int, nodes: int, seed: int = 1) -> dict[str, object]:
+def generate(jobs: int, arcs: int, nodes: int, seed: int = 1) -> dict[str, Any]:
     """Plain Python values of a random layered stage graph (see the module docstring)."""
     rng = np.random.default_rng(seed)
     layers = 200
@@ -75,10 +79,25 @@ def main() -> None:
     ap.add_argument("--arcs", type=int, default=200_000)
     ap.add_argument("--nodes", type=int, default=500)
     ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument(
+        "--warm-up",
+        action="store_true",
+        help="load the compiled list scheduler first (as a warmed worker has), timed apart",
+    )
+    ap.add_argument(
+        "--compare-pure",
+        action="store_true",
+        help="after the runs, time one longest_first list schedule in plain Python and "
+        "one compiled (loading the kernel first if need be) on the same graph",
+    )
     args = ap.parse_args()
     v = generate(args.jobs, args.arcs, args.nodes)
-    arcs = sum(map(len, v["after"]))  # type: ignore[arg-type]
+    arcs = sum(map(len, v["after"]))
     print(f"stage graph: {args.jobs} jobs, {arcs} arcs, {args.nodes} nodes")
+    if args.warm_up:
+        t0 = time.perf_counter()
+        warm_up()
+        print(f"warm-up (load the compiled kernels) {time.perf_counter() - t0:.3f} s")
     for _ in range(args.repeat):
         gc.collect()
         t0 = time.perf_counter()
@@ -86,7 +105,7 @@ def main() -> None:
             v["durations"],
             v["nodes"],
             job_ids=v["ids"],
-            requires=v["requires"],  # type: ignore[arg-type]
+            requires=v["requires"],
         )
         t1 = time.perf_counter()
         problem = StageProblem.build(
@@ -94,13 +113,14 @@ def main() -> None:
             after=v["after"],
             uses=v["uses"],
             limits=v["limits"],
-            slots=v["slots"],  # type: ignore[arg-type]
+            slots=v["slots"],
         )
         t2 = time.perf_counter()
         result = solve_stages(problem, "longest_first")
         t3 = time.perf_counter()
         assert not result.plan.violations()
-        graph = dict(zip(v["ids"], v["after"], strict=True))  # type: ignore[call-overload]
+        kind = "compiled" if kernel_loaded() else "plain Python"
+        graph = dict(zip(v["ids"], v["after"], strict=True))
         t4 = time.perf_counter()
         order = list(graphlib.TopologicalSorter(graph).static_order())
         t5 = time.perf_counter()
@@ -108,10 +128,31 @@ def main() -> None:
         print(
             f"longest_first end to end {t3 - t0:.3f} s "
             f"(instance {t1 - t0:.3f}, stage graph + cycle check {t2 - t1:.3f}, "
-            f"plan + bounds {t3 - t2:.3f}); makespan {result.plan.makespan:.1f} s, "
+            f"plan + bounds {t3 - t2:.3f}, list scheduler {kind}); "
+            f"makespan {result.plan.makespan:.1f} s, "
             f"bound {result.bounds.seconds:.1f} s ({result.bounds.best.name}); "
             f"graphlib static_order {t5 - t4:.3f} s"
         )
+    if args.compare_pure:
+        compare_pure(problem)
+
+
+def compare_pure(problem: StageProblem) -> None:
+    """One longest_first pass by the plain-Python twin and one by the compiled kernel."""
+    warm_up()
+    lister = Lister(problem)
+    rank = priority(longest_paths(problem), "longest_first")
+    t0 = time.perf_counter()
+    slow = lister.schedule_pure(rank)
+    t1 = time.perf_counter()
+    fast = Lister(problem, compiled=True).schedule(rank)
+    t2 = time.perf_counter()
+    assert np.array_equal(slow.start, fast.start) and np.array_equal(slow.node, fast.node)
+    n = problem.n
+    print(
+        f"one list schedule: plain Python {t1 - t0:.3f} s ({1e6 * (t1 - t0) / n:.2f} us a job), "
+        f"compiled {t2 - t1:.3f} s ({1e6 * (t2 - t1) / n:.2f} us a job), same plan"
+    )
 
 
 if __name__ == "__main__":

@@ -18,7 +18,7 @@ import math
 import time
 from dataclasses import dataclass
 from fractions import Fraction
-from typing import Any
+from typing import Any, NamedTuple
 
 from .budget import Budget, StopReason
 from .certified import NodeCountAnswer
@@ -35,6 +35,15 @@ from .stages.search import solve_stages
 #: energetic reasoning is left out of the refutations above this many jobs (it is
 #: quadratic); the other bounds stay
 ENERGETIC_UP_TO = 300
+
+
+class NodeFloor(NamedTuple):
+    """The fewest nodes no bound refutes, the rule that refuted the count below (or
+    ``mean_load``), and the count each rule proves."""
+
+    nodes: int
+    rule: str
+    counts: dict[str, int]
 
 
 @dataclass(frozen=True, eq=False)
@@ -78,10 +87,10 @@ class StageSizingArgs:
             [self.slots] * k,
         )
 
-    def check(self) -> tuple[int, str, dict[str, int]]:
+    def check(self) -> NodeFloor:
         """The checks that need no plan: the critical path against the deadline (refused
         naming the path), and the lower bound against ``max_nodes``. Returns the lower
-        bound, its rule and every rule's count."""
+        bound with its rule and every rule's count."""
         d = Fraction(self.deadline)
         one = self.template.relaxed()
         paths = longest_paths(one)
@@ -97,16 +106,17 @@ class StageSizingArgs:
                     Issue(("deadline",), "shorter than the critical path: " + " -> ".join(ids))
                 ],
             )
-        lower, source, counts = self._lower()
-        if lower > self.max_nodes:
+        floor = self._lower()
+        if floor.nodes > self.max_nodes:
             raise Infeasible(
-                f"at least {lower} nodes are needed ({source}), above max_nodes ({self.max_nodes})",
+                f"at least {floor.nodes} nodes are needed ({floor.rule}), above max_nodes "
+                f"({self.max_nodes})",
                 jobs=[],
-                issues=[Issue(("max_nodes",), f"at least {lower} nodes are needed")],
+                issues=[Issue(("max_nodes",), f"at least {floor.nodes} nodes are needed")],
             )
-        return lower, source, counts
+        return floor
 
-    def _lower(self) -> tuple[int, str, dict[str, int]]:
+    def _lower(self) -> NodeFloor:
         """The fewest nodes no bound refutes (see the module docstring)."""
         inst = self.template.instance
         node = self.node
@@ -117,7 +127,7 @@ class StageSizingArgs:
         lower, source = mean, "mean_load"
         cap = min(self.max_nodes, max(inst.n, 1))
         if lower >= cap:
-            return lower, source, counts
+            return NodeFloor(lower, source, counts)
         # the largest count refuted by the stage bounds (any refuted count refutes all
         # below it, so a binary search for one is enough)
         lo, hi = lower, cap  # lo: not yet refuted, hi: an upper end
@@ -134,7 +144,7 @@ class StageSizingArgs:
         if best + 1 > lower:
             lower, source = best + 1, refuted_by
             counts[refuted_by] = lower
-        return lower, source, counts
+        return NodeFloor(lower, source, counts)
 
     def _refutes(self, k: int) -> str:
         """The name of a stage bound proving no plan on ``k`` nodes meets the deadline."""
@@ -170,14 +180,7 @@ class StageSizingResult(NodeCountAnswer):
         deadline = self.args.deadline
         plan = self.plan.to_dict(with_assignment=with_plan)
         out: dict[str, Any] = {
-            "nodes_needed": self.nodes_needed,
-            "nodes_lower_bound": self.nodes_lower_bound,
-            "bound_source": self.bound_source,
-            "bounds": dict(self.bounds),
-            "proven_optimal": self.proven_optimal,
-            "gap": self.gap,
-            "stop_reason": self.stop_reason,
-            "solve_seconds": self.solve_seconds,
+            **self.contract_head(self.bounds, self.gap),
             "method": "stages",
             "plan_method": self.plan.method,
             "deadline": deadline,
@@ -223,9 +226,9 @@ def size_stages(args: StageSizingArgs, budget: Budget) -> StageSizingResult:
     that misses sends the search one node up (plans never get worse with more nodes).
     """
     t0 = time.perf_counter()
-    lower, source, counts = args.check()
+    floor = args.check()
     deadline = Fraction(args.deadline)
-    k = lower
+    k = floor.nodes
     best: StageResult | None = None
     while k <= args.max_nodes:
         problem = args.on(k)
@@ -242,15 +245,14 @@ def size_stages(args: StageSizingArgs, budget: Budget) -> StageSizingResult:
             jobs=[],
             issues=[Issue(("max_nodes",), "no plan found within this many nodes")],
         )
-    proven = lower == k
     return StageSizingResult(
         args=args,
         nodes_needed=k,
-        nodes_lower_bound=lower,
-        bound_source=source,
-        bounds=counts,
+        nodes_lower_bound=floor.nodes,
+        bound_source=floor.rule,
+        bounds=floor.counts,
         plan=best,
-        stop_reason=budget.stop_reason(proven=proven, ran_out=budget.expired()),
+        stop_reason=budget.stop_reason(proven=floor.nodes == k, ran_out=budget.expired()),
         solve_seconds=time.perf_counter() - t0,
     )
 

@@ -5,7 +5,6 @@ from __future__ import annotations
 from reference_stages import Tiny
 
 from workers.planning import Instance, Node
-from workers.planning.stages.plan import StagePlan
 from workers.planning.stages.problem import StageProblem
 
 
@@ -23,17 +22,4 @@ def to_problem(g: Tiny) -> StageProblem:
         uses=[[f"L{x}" for x in row] for row in g.uses],
         limits={f"L{x}": c for x, c in enumerate(g.caps)},
         slots=g.slots,
-    )
-
-
-def rows_of(plan: StagePlan) -> list[tuple[int, int, int, int]]:
-    """(node, slot, start, end) ticks per job."""
-    return list(
-        zip(
-            plan.node.tolist(),
-            plan.slot.tolist(),
-            plan.start.tolist(),
-            plan.end.tolist(),
-            strict=True,
-        )
     )

@@ -13,7 +13,7 @@ from fractions import Fraction
 
 import pytest
 from reference_stages import Tiny, brute_force_optimum, check_rows, makespan
-from stage_helpers import rows_of, to_problem
+from stage_helpers import to_problem
 
 from workers.planning.stages.search import solve_stages
 
@@ -34,35 +34,25 @@ def random_tiny(rng: random.Random, *, plain: bool = False, unit: bool = False) 
         p_new[inv[old]] = p[old]
     if plain:
         return Tiny(p=p_new, speeds=[1.0] * m, after=after_new)
-    speeds = [rng.choice([1.0, 1.0, 2.0, 0.5, 1.5]) for _ in range(m)]
-    free_at = [rng.choice([0.0, 0.0, 1.0, 2.5]) for _ in range(m)]
-    slots = [rng.choice([1, 1, 2]) for _ in range(m)]
-    provides = [set() for _ in range(m)]
-    requires = [set() for _ in range(n)]
+    g = Tiny(
+        p=p_new,
+        speeds=[rng.choice([1.0, 1.0, 2.0, 0.5, 1.5]) for _ in range(m)],
+        after=after_new,
+        free_at=[rng.choice([0.0, 0.0, 1.0, 2.5]) for _ in range(m)],
+        slots=[rng.choice([1, 1, 2]) for _ in range(m)],
+    )  # no tags and no limits yet: Tiny fills them in empty
     if m > 1 and rng.random() < 0.4:
-        provides[0] = {"gpu"}
+        g.provides[0] = {"gpu"}
         for j in range(n):
             if rng.random() < 0.3:
-                requires[j] = {"gpu"}
-    caps: list[int] = []
-    uses: list[list[int]] = [[] for _ in range(n)]
+                g.requires[j] = {"gpu"}
     if rng.random() < 0.5:
-        caps = [rng.choice([1, 2])]
+        g.caps = [rng.choice([1, 2])]
         for j in range(n):
             if rng.random() < 0.6:
-                uses[j] = [0]
-    return Tiny(
-        p=p_new,
-        speeds=speeds,
-        after=after_new,
-        free_at=free_at,
-        slots=slots,
-        requires=requires,
-        provides=provides,
-        uses=uses,
-        caps=caps,
-        resolution=rng.choice([1.0, 0.5, 1.0]),
-    )
+                g.uses[j] = [0]
+    g.resolution = rng.choice([1.0, 0.5, 1.0])
+    return g
 
 
 @pytest.mark.parametrize("seed", range(6))
@@ -78,7 +68,7 @@ def test_bounds_never_above_brute_force_and_plans_feasible(seed: int) -> None:
         problem = to_problem(g)
         for method in ("list", "longest_first", "exact"):
             result = solve_stages(problem, method, max_rounds=3)
-            rows = rows_of(result.plan)
+            rows = result.plan.rows()
             assert check_rows(g, rows) == [], (g, method)
             assert makespan(g, rows) == result.plan.makespan_ticks
             assert result.plan.makespan_ticks >= opt

@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 import pytest
 from reference_stages import Tiny, brute_force_optimum, check_rows, makespan
-from stage_helpers import rows_of, to_problem
+from stage_helpers import to_problem
 from test_stage_reference import random_tiny
 
 from workers.planning import Instance, Node
@@ -112,8 +112,8 @@ def test_carried_plans_and_bounds_against_brute_force(seed: int) -> None:
             got = lister.schedule(priority(paths, rule))
             plan = StagePlan(problem, got.node, got.slot, got.start)
             assert plan.violations() == [], (g, rule)
-            assert check_rows(g, rows_of(plan)) == [], (g, rule)
-            assert makespan(g, rows_of(plan)) == plan.makespan_ticks
+            assert check_rows(g, plan.rows()) == [], (g, rule)
+            assert makespan(g, plan.rows()) == plan.makespan_ticks
             spans.append(plan.makespan_ticks)
         assert min(spans) >= best, g
         for b in stage_bounds(problem, paths, upper=min(spans)).bounds:

@@ -8,7 +8,7 @@ import random
 
 import numpy as np
 from reference_stages import brute_force_optimum, check_rows, makespan
-from stage_helpers import rows_of, to_problem
+from stage_helpers import to_problem
 from test_stage_reference import random_tiny
 
 from workers.planning.stages.search import solve_stages
@@ -24,7 +24,7 @@ def test_improver_plans_feasible_and_never_below_optimum() -> None:
         g = random_tiny(rng)
         opt = brute_force_optimum(g)
         result = solve_stages(to_problem(g), "exact", max_rounds=60, seed=3)
-        rows = rows_of(result.plan)
+        rows = result.plan.rows()
         assert check_rows(g, rows) == []
         assert makespan(g, rows) == result.plan.makespan_ticks >= opt
         assert max(b.ticks for b in result.bounds.bounds) <= opt

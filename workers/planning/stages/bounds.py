@@ -68,6 +68,7 @@ dropping them only adds room), so every bound stays valid. Without carried jobs
 from __future__ import annotations
 
 import heapq
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from fractions import Fraction
 from typing import Any
@@ -77,7 +78,7 @@ import numpy.typing as npt
 
 from ..rational import array_sum, down
 from .paths import Paths
-from .problem import StageProblem
+from .problem import StageProblem, sorted_unique
 
 I64 = npt.NDArray[np.int64]
 
@@ -238,12 +239,12 @@ def _heads_tails_on(paths: Paths, jobs: I64, cap: int) -> tuple[int, dict[str, A
     d = paths.d[jobs]
     by_tail = np.argsort(-q, kind="stable")
     rs, qs, ds = r[by_tail], q[by_tail], d[by_tail]
-    heads = np.unique(r)
+    heads = sorted_unique(r)
     if heads.size > HEADS_TAILS_ALL_UP_TO or (
         jobs.size > HEADS_TAILS_ALL_UP_TO and heads.size > HEADS_TAILS_THRESHOLDS
     ):
         pick = np.linspace(0, heads.size - 1, HEADS_TAILS_THRESHOLDS).round().astype(np.int64)
-        heads = np.unique(heads[pick])
+        heads = sorted_unique(heads[pick])
     best, ev = -1, {}
     for a in heads.tolist():
         take = rs >= a
@@ -260,17 +261,27 @@ def _heads_tails_on(paths: Paths, jobs: I64, cap: int) -> tuple[int, dict[str, A
     return best, ev
 
 
-def heads_tails(paths: Paths) -> Bound:
-    """The parallel-machines relaxation with release and delivery times (module doc)."""
+def _over_sets(
+    paths: Paths, on: Callable[[Paths, I64, int], tuple[int, dict[str, Any]]], label: str
+) -> tuple[int, dict[str, Any]]:
+    """The best of ``on`` over all jobs (on every slot) and over each limit's jobs (on
+    ``min(c_L, M)`` lanes), with the evidence of the set that gave it (``label`` names
+    the set of all jobs)."""
     p = paths.problem
     slots = int(p.slots.sum())
-    best, ev = _heads_tails_on(paths, np.arange(p.n, dtype=np.int64), slots)
-    ev["jobs"] = "all"
+    best, ev = on(paths, np.arange(p.n, dtype=np.int64), slots)
+    ev[label] = "all"
     for lim, jobs in enumerate(_users(p)):
         if jobs.size:
-            val, e = _heads_tails_on(paths, jobs, min(int(p.capacities[lim]), slots))
+            val, e = on(paths, jobs, min(int(p.capacities[lim]), slots))
             if val > best:
                 best, ev = val, {**e, "limit": p.limit_names[lim]}
+    return best, ev
+
+
+def heads_tails(paths: Paths) -> Bound:
+    """The parallel-machines relaxation with release and delivery times (module doc)."""
+    best, ev = _over_sets(paths, _heads_tails_on, "jobs")
     return Bound("heads_tails", best, ev)
 
 
@@ -327,15 +338,7 @@ def _lanes_on(paths: Paths, jobs: I64, cap: int) -> tuple[int, dict[str, Any]]:
 def lanes(paths: Paths) -> Bound:
     """Carlier's per-lane bound with heads and tails (module doc), over all jobs on the
     slots and over each limit's jobs on its lanes."""
-    p = paths.problem
-    slots = int(p.slots.sum())
-    best, ev = _lanes_on(paths, np.arange(p.n, dtype=np.int64), slots)
-    ev["set"] = "all"
-    for lim, jobs in enumerate(_users(p)):
-        if jobs.size:
-            val, e = _lanes_on(paths, jobs, min(int(p.capacities[lim]), slots))
-            if val > best:
-                best, ev = val, {**e, "limit": p.limit_names[lim]}
+    best, ev = _over_sets(paths, _lanes_on, "set")
     return Bound("lanes", max(best, 0), ev)
 
 
@@ -364,8 +367,8 @@ def refute(
     ``(t2 - b)^+ - (t2 - b - A)^+``: summed over jobs by sorting and prefix sums.
     """
     lct = c - q
-    t1s = np.unique(np.concatenate((r, lct - d)))
-    t2all = np.unique(np.concatenate((lct, r + d)))
+    t1s = sorted_unique(np.concatenate((r, lct - d)))
+    t2all = sorted_unique(np.concatenate((lct, r + d)))
     for t1 in t1s.tolist():
         t2s = t2all[t2all > t1]
         if not t2s.size:

@@ -28,6 +28,11 @@ such jobs are blocked or not together), with a heap of the classes' best jobs; a
 blocked class is set aside for the rest of the event. With few classes and few node
 groups (nodes of one speed and one eligibility pattern) this is O((n + arcs) log n).
 
+The same scheduler runs compiled (:mod:`.list_kernel`, numba) or in plain Python
+(:meth:`Lister.schedule_pure`), with the same decisions job by job (tested equal);
+compiled, a pass costs several to tens of times less (bench/RESULTS.md), which is what
+lets the search of :mod:`.search` try tens of thousands of priorities a second.
+
 Priority rules (``RULES``), each a total order with ties by batch order:
 
 ``list``               batch order;
@@ -43,12 +48,16 @@ from __future__ import annotations
 
 import heapq
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import numpy.typing as npt
 
-from .paths import Paths
-from .problem import StageProblem
+from ..kernels import HAVE_JIT
+from .list_kernel import list_pass, use_kernel
+from .paths import Paths, longest_paths
+from .problem import StageProblem, csr
+from .walk_kernel import walk
 
 I64 = npt.NDArray[np.int64]
 
@@ -153,34 +162,18 @@ class Lister:
     """A problem prepared for list scheduling (classes, node groups, plain lists), so
     that a search can run many priorities at little cost each."""
 
-    def __init__(self, problem: StageProblem) -> None:
+    def __init__(self, problem: StageProblem, *, compiled: bool | None = None) -> None:
+        """``compiled``: whether :meth:`schedule` runs the compiled kernel (where numba
+        is present); ``None`` (the default) leaves it to :func:`.list_kernel.use_kernel`:
+        compiled once the kernel is loaded in this process (by a search, or a warm-up:
+        :func:`warm_up`) or on many jobs, else the plain-Python twin, because loading
+        the kernel in a fresh process starts numba's runtime (a few tenths of a
+        second), more than the plain pass costs on fewer jobs."""
         self.problem = problem
-        t = problem.timing
-        cls, self.class_type, self.class_limits = job_classes(problem)
-        self.cls = cls.tolist()
-        group, self.gcol, self.type_groups = node_groups(problem)
-        self.node_group = group.tolist()
-        slots = problem.slots.tolist()
-        self.slot_base = [0] * (problem.m + 1)
-        for k in range(problem.m):
-            self.slot_base[k + 1] = self.slot_base[k] + slots[k]
-        self.slot_node = [k for k in range(problem.m) for _ in range(slots[k])]
-        self.run_cols: list[list[int]] = [t.run[:, c].tolist() for c in range(len(t.speeds))]
-        self.free = t.free.tolist()
-        self.slot_free = t.slot_free.tolist()
-        self.release = [(j, r) for j, r in enumerate(t.release.tolist()) if r > 0]
-        self.held = list(zip(t.held_limit.tolist(), t.held_end.tolist(), strict=True))
-        self.cap = problem.capacities.tolist()
-        self.forward = (
-            np.diff(problem.after_ptr).tolist(),
-            problem.succ_ptr.tolist(),
-            problem.succ_idx.tolist(),
-        )
-        self.backward = (
-            np.diff(problem.succ_ptr).tolist(),
-            problem.after_ptr.tolist(),
-            problem.after_idx.tolist(),
-        )
+        self.compiled = compiled
+        self.cls, self.class_type, self.class_limits = job_classes(problem)
+        self.node_group, self.gcol, self.type_groups = node_groups(problem)
+        self.arrays = _KernelArrays.of(self, problem)
 
     def schedule(self, rank: I64, *, reverse: bool = False, free: I64 | None = None) -> Placement:
         """The list schedule for priority ``rank`` (rank 0 first).
@@ -189,22 +182,104 @@ class Lister:
         it); ``free`` overrides the node start times ``F_k`` (both for the backward pass
         of the justification in :mod:`.search`). Jobs carried in (releases, slots kept,
         limit holds) count in forward plans only.
+
+        Runs the compiled kernel of :mod:`.list_kernel` where numba is present, else
+        :meth:`schedule_pure` (the same decisions; the tests compare the two).
         """
+        use = use_kernel(self.problem.n) if self.compiled is None else self.compiled
+        if not (HAVE_JIT and use):
+            return self.schedule_pure(rank, reverse=reverse, free=free)
+        rank = np.ascontiguousarray(rank, dtype=np.int64)
+        order = np.argsort(rank, kind="stable").astype(np.int64)
+        slot, start, done = list_pass(rank, order, *self.kernel_args(reverse=reverse, free=free))
+        if done != self.problem.n:  # pragma: no cover - excluded by the module docstring
+            raise RuntimeError(f"list scheduling placed {done} of {self.problem.n} jobs")
+        return self.placement(slot, start)
+
+    def walk(self, rank: I64, rounds: int, seed: int, width: int, tail: I64) -> tuple[I64, I64]:
+        """The best priority met in ``rounds`` moves of :func:`.walk_kernel.walk` from
+        ``rank``, and the one it ended on (forward plans; compiled where numba is
+        present, else in plain Python)."""
+        start = np.ascontiguousarray(rank, dtype=np.int64)
+        best, _, last = walk(
+            start,
+            rounds,
+            seed,
+            width,
+            tail,
+            self.kernel_args(),
+        )
+        return best, last
+
+    def placement(self, slot: I64, start: I64) -> Placement:
+        """A :class:`Placement` from each job's global slot index and start."""
+        a = self.arrays
+        node = a.slot_node[slot]
+        return Placement(node=node, slot=slot - a.slot_base[node], start=start)
+
+    def kernel_args(self, *, reverse: bool = False, free: I64 | None = None) -> tuple[I64, ...]:
+        """The arguments of :func:`.list_kernel.list_pass` after ``rank`` and ``order``
+        (the same as :meth:`schedule`'s options); the first, how many jobs each waits
+        for, is a fresh array."""
+        a = self.arrays
+        p = self.problem
+        t = p.timing
+        if reverse:
+            waiting, sp, si = np.diff(p.succ_ptr), p.after_ptr, p.after_idx
+        else:
+            waiting, sp, si = np.diff(p.after_ptr), p.succ_ptr, p.succ_idx
+        if free is not None:
+            slot_time = np.asarray(free, dtype=np.int64)[a.slot_node]
+        elif reverse:
+            slot_time = t.free[a.slot_node]
+        else:
+            slot_time = t.slot_free
+        none = a.none
+        carried = (none,) * 4 if reverse else (a.rel_job, a.rel_time, a.held_lim, a.held_end)
+        return (
+            waiting.astype(np.int64),
+            sp,
+            si,
+            a.cls,
+            a.class_type,
+            a.cl_ptr,
+            a.cl_idx,
+            a.tg_ptr,
+            a.tg_idx,
+            a.gcol,
+            a.slot_group,
+            a.gs_base,
+            t.run,
+            np.ascontiguousarray(slot_time, dtype=np.int64),
+            *carried,
+            a.cap,
+        )
+
+    @cached_property
+    def plain(self) -> _Plain:
+        """The tables as plain lists, for :meth:`schedule_pure` (built on first use)."""
+        return _Plain.of(self)
+
+    def schedule_pure(
+        self, rank: I64, *, reverse: bool = False, free: I64 | None = None
+    ) -> Placement:
+        """:meth:`schedule` in plain Python (the twin of the compiled kernel)."""
         problem = self.problem
         n = problem.n
-        indeg, sp, si = self.backward if reverse else self.forward
+        pl = self.plain
+        indeg, sp, si = pl.backward if reverse else pl.forward
         waiting = list(indeg)
-        cls_l = self.cls
+        cls_l = pl.cls
         class_type, class_limits = self.class_type, self.class_limits
         gcol, type_groups = self.gcol, self.type_groups
-        node_group, slot_node, slot_base = self.node_group, self.slot_node, self.slot_base
-        run_cols = self.run_cols
-        free_at = self.free if free is None else free.tolist()
-        cap = self.cap
+        node_group, slot_node, slot_base = pl.node_group, pl.slot_node, pl.slot_base
+        run_cols = pl.run_cols
+        free_at = pl.free if free is None else free.tolist()
+        cap = pl.cap
         usage = [0] * len(cap)
         has_limits = problem.has_limits
-        release = [] if reverse else self.release
-        held = [] if reverse else self.held
+        release = [] if reverse else pl.release
+        held = [] if reverse else pl.held
         for j, _ in release:
             waiting[j] += 1  # its release is one more thing it waits for
         rank_l = rank.tolist()
@@ -229,7 +304,7 @@ class Lister:
         nslot = slot_base[-1]
         span = 2 * n + nslot + len(held)
         if free is None and not reverse:
-            events = [self.slot_free[s] * span + n + s for s in range(nslot)]
+            events = [pl.slot_free[s] * span + n + s for s in range(nslot)]
         else:
             events = [free_at[slot_node[s]] * span + n + s for s in range(nslot)]
         events += [r * span + n + nslot + j for j, r in release]
@@ -343,3 +418,116 @@ class Lister:
             slot=np.asarray(slot_of, dtype=np.int64) - base[node_arr],
             start=np.asarray(start, dtype=np.int64),
         )
+
+
+@dataclass(frozen=True, eq=False)
+class _Plain:
+    """A :class:`Lister`'s tables as plain Python lists (what the pure scheduler reads)."""
+
+    cls: list[int]
+    node_group: list[int]
+    slot_base: list[int]
+    slot_node: list[int]
+    run_cols: list[list[int]]
+    free: list[int]
+    slot_free: list[int]
+    release: list[tuple[int, int]]
+    held: list[tuple[int, int]]
+    cap: list[int]
+    forward: tuple[list[int], list[int], list[int]]
+    backward: tuple[list[int], list[int], list[int]]
+
+    @classmethod
+    def of(cls, lister: Lister) -> _Plain:
+        p = lister.problem
+        t = p.timing
+        a = lister.arrays
+        return cls(
+            cls=lister.cls.tolist(),
+            node_group=lister.node_group.tolist(),
+            slot_base=a.slot_base.tolist(),
+            slot_node=a.slot_node.tolist(),
+            run_cols=[t.run[:, c].tolist() for c in range(len(t.speeds))],
+            free=t.free.tolist(),
+            slot_free=t.slot_free.tolist(),
+            release=[(j, r) for j, r in enumerate(t.release.tolist()) if r > 0],
+            held=list(zip(t.held_limit.tolist(), t.held_end.tolist(), strict=True)),
+            cap=p.capacities.tolist(),
+            forward=(np.diff(p.after_ptr).tolist(), p.succ_ptr.tolist(), p.succ_idx.tolist()),
+            backward=(np.diff(p.succ_ptr).tolist(), p.after_ptr.tolist(), p.after_idx.tolist()),
+        )
+
+
+@dataclass(frozen=True, eq=False)
+class _KernelArrays:
+    """A :class:`Lister`'s tables as the flat int64 arrays :func:`.list_kernel.list_pass`
+    reads."""
+
+    cls: I64
+    class_type: I64
+    cl_ptr: I64
+    cl_idx: I64
+    tg_ptr: I64
+    tg_idx: I64
+    gcol: I64
+    slot_node: I64
+    slot_base: I64
+    slot_group: I64
+    gs_base: I64
+    rel_job: I64
+    rel_time: I64
+    held_lim: I64
+    held_end: I64
+    cap: I64
+    none: I64
+
+    @classmethod
+    def of(cls, lister: Lister, problem: StageProblem) -> _KernelArrays:
+        def i64(x: object) -> I64:
+            return np.ascontiguousarray(np.asarray(x, dtype=np.int64))
+
+        cl_ptr, cl_idx = csr(lister.class_limits)
+        tg_ptr, tg_idx = csr(lister.type_groups)
+        slot_node = np.repeat(np.arange(problem.m, dtype=np.int64), problem.slots)
+        slot_base = np.zeros(problem.m + 1, dtype=np.int64)
+        np.cumsum(problem.slots, out=slot_base[1:])
+        slot_group = lister.node_group[slot_node]
+        gs_base = np.zeros(len(lister.gcol) + 1, dtype=np.int64)
+        np.cumsum(np.bincount(slot_group, minlength=len(lister.gcol)), out=gs_base[1:])
+        t = problem.timing
+        rel = np.flatnonzero(t.release > 0)
+        return cls(
+            cls=i64(lister.cls),
+            class_type=i64(lister.class_type),
+            cl_ptr=cl_ptr,
+            cl_idx=cl_idx,
+            tg_ptr=tg_ptr,
+            tg_idx=tg_idx,
+            gcol=i64(lister.gcol),
+            slot_node=slot_node,
+            slot_base=slot_base,
+            slot_group=i64(slot_group),
+            gs_base=gs_base,
+            rel_job=i64(rel),
+            rel_time=i64(t.release[rel]),
+            held_lim=i64(t.held_limit),
+            held_end=i64(t.held_end),
+            cap=i64(problem.capacities),
+            none=np.zeros(0, dtype=np.int64),
+        )
+
+
+def warm_up() -> None:
+    """Load (or compile, the first time) the kernels of the list scheduler and the
+    local walk on a tiny graph, so that neither is charged to a timed solve."""
+    from ..model import Instance
+
+    inst = Instance.build([3.0, 2.0, 2.0, 1.0], 2, job_ids=["a", "b", "c", "d"])
+    problem = StageProblem.build(
+        inst, after=[[], ["a"], ["a"], ["b", "c"]], uses=[["x"], [], ["x"], []], limits={"x": 1}
+    )
+    lister = Lister(problem, compiled=True)
+    rank = np.arange(problem.n, dtype=np.int64)
+    lister.schedule(rank)
+    lister.walk(rank, 4, 1, 2, np.zeros(problem.n, dtype=np.int64))
+    longest_paths(problem, compiled=True)

@@ -15,6 +15,7 @@ Both are computed once, in topological order, in O(n + arcs).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from functools import cached_property
 from itertools import pairwise
@@ -22,6 +23,8 @@ from itertools import pairwise
 import numpy as np
 import numpy.typing as npt
 
+from ..kernels import HAVE_JIT
+from .list_kernel import heads_tails, use_kernel
 from .problem import StageProblem, gather
 
 I64 = npt.NDArray[np.int64]
@@ -57,31 +60,24 @@ class Paths:
         total = self.head + self.d + self.tail
         j = int(np.argmax(total))
         best = int(total[j])
-        back: list[int] = []
-        i = j
-        while True:  # walk back along heads
-            back.append(i)
-            nxt = -1
-            for h in p.predecessors_of(i).tolist():
-                if self.head[h] + self.d[h] == self.head[i]:
-                    nxt = h
-                    break
-            if nxt < 0:
-                break
-            i = nxt
-        path = back[::-1]
-        i = j
-        while True:  # walk on along tails
-            nxt = -1
-            for s in p.successors_of(i).tolist():
-                if self.d[s] + self.tail[s] == self.tail[i]:
-                    nxt = s
-                    break
-            if nxt < 0:
-                break
-            path.append(nxt)
-            i = nxt
-        return best, path
+        head, d, tail = self.head, self.d, self.tail
+        back = _follow(j, p.predecessors_of, lambda h, i: head[h] + d[h] == head[i])
+        on = _follow(j, p.successors_of, lambda s, i: d[s] + tail[s] == tail[i])
+        return best, [*back[::-1], j, *on]
+
+
+def _follow(start: int, step: Callable[[int], I64], tight: Callable[[int, int], bool]) -> list[int]:
+    """From ``start``, the walk that moves each time to the first of ``step(i)`` (its
+    predecessors or successors) for which ``tight(next, i)`` holds, until none does; the
+    jobs walked to, in order (``start`` left out)."""
+    out: list[int] = []
+    i = start
+    while True:
+        nxt = next((h for h in step(i).tolist() if tight(h, i)), -1)
+        if nxt < 0:
+            return out
+        out.append(nxt)
+        i = nxt
 
 
 def _level_max(ptr: I64, idx: I64, rows: I64, a: I64, b: I64) -> tuple[I64, I64]:
@@ -95,7 +91,28 @@ def _level_max(ptr: I64, idx: I64, rows: I64, a: I64, b: I64) -> tuple[I64, I64]
     return rows, np.maximum.reduceat(a[vals] + b[vals], starts)
 
 
-def longest_paths(problem: StageProblem) -> Paths:
+def longest_paths(problem: StageProblem, *, compiled: bool | None = None) -> Paths:
+    """Heads and tails (see the module docstring) over the fastest eligible times; by
+    the compiled kernel :func:`.list_kernel.heads_tails` where
+    :func:`.list_kernel.use_kernel` says so (or ``compiled`` asks), else
+    :func:`longest_paths_numpy`."""
+    use = use_kernel(problem.n) if compiled is None else compiled and HAVE_JIT
+    if not use:
+        return longest_paths_numpy(problem)
+    d = problem.timing.dmin
+    head, tail = heads_tails(
+        problem.order,
+        problem.after_ptr,
+        problem.after_idx,
+        problem.succ_ptr,
+        problem.succ_idx,
+        np.ascontiguousarray(d, dtype=np.int64),
+        release_ticks(problem),
+    )
+    return Paths(problem, d, head, tail)
+
+
+def longest_paths_numpy(problem: StageProblem) -> Paths:
     """Heads and tails (see the module docstring) over the fastest eligible times: whole
     levels of the topological order with numpy, the rest in plain Python."""
     d = problem.timing.dmin
@@ -112,26 +129,25 @@ def longest_paths(problem: StageProblem) -> Paths:
     if rest:
         dl = d.tolist()
         hl = head.tolist()
-        apl, ail = ap.tolist(), ai.tolist()
-        for j in rest:
-            best = hl[j]
-            for i in ail[apl[j] : apl[j + 1]]:
-                v = hl[i] + dl[i]
-                if v > best:
-                    best = v
-            hl[j] = best
+        _relax(rest, ap.tolist(), ai.tolist(), dl, hl)
         head = np.asarray(hl, dtype=np.int64)
         tl = [0] * n
-        spl, sil = sp.tolist(), si.tolist()
-        for j in reversed(rest):
-            best = 0
-            for i in sil[spl[j] : spl[j + 1]]:
-                v = dl[i] + tl[i]
-                if v > best:
-                    best = v
-            tl[j] = best
+        _relax(rest[::-1], sp.tolist(), si.tolist(), dl, tl)
         tail = np.asarray(tl, dtype=np.int64)
     for a, b in zip(levels[-2::-1], levels[:0:-1], strict=True):
         rows, top = _level_max(sp, si, order[a:b], d, tail)
         tail[rows] = np.maximum(tail[rows], top)
     return Paths(problem, d, head, tail)
+
+
+def _relax(jobs: list[int], ptr: list[int], idx: list[int], d: list[int], out: list[int]) -> None:
+    """For each of ``jobs`` in turn, ``out[j] = max(out[j], out[i] + d[i])`` over its
+    neighbours ``i`` (``idx[ptr[j]:ptr[j + 1]]``): heads along predecessors in
+    topological order, tails along successors in reverse."""
+    for j in jobs:
+        best = out[j]
+        for i in idx[ptr[j] : ptr[j + 1]]:
+            v = out[i] + d[i]
+            if v > best:
+                best = v
+        out[j] = best

@@ -139,16 +139,20 @@ class StagePlan:
                 "start": float(a * res),
                 "end": float(b * res),
             }
-            for j, (k, s, a, b) in enumerate(
-                zip(
-                    self.node.tolist(),
-                    self.slot.tolist(),
-                    self.start.tolist(),
-                    self.end.tolist(),
-                    strict=True,
-                )
-            )
+            for j, (k, s, a, b) in enumerate(self.rows())
         ]
+
+    def rows(self) -> list[tuple[int, int, int, int]]:
+        """``(node, slot, start, end)`` per job, in ticks."""
+        return list(
+            zip(
+                self.node.tolist(),
+                self.slot.tolist(),
+                self.start.tolist(),
+                self.end.tolist(),
+                strict=True,
+            )
+        )
 
 
 def _uses(p: StageProblem, lim: int) -> npt.NDArray[np.bool_]:

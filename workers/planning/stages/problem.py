@@ -30,6 +30,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from functools import cached_property
 from itertools import chain
+from typing import TypeGuard, TypeVar
 
 import numpy as np
 import numpy.typing as npt
@@ -78,6 +79,19 @@ def gather(ptr: I64, idx: I64, rows: I64) -> tuple[I64, I64]:
     return idx[offsets + np.arange(total, dtype=np.int64)], counts
 
 
+def sorted_unique(x: I64) -> I64:
+    """``np.unique(x)`` for integers, by a sort (numpy's hash-based ``unique`` was the
+    slowest step of reading a 200,000-arc graph: ``bench/stages_scale.py``)."""
+    if x.size < 2:
+        return np.array(x, dtype=np.int64)
+    ordered = np.sort(x)
+    keep = np.empty(ordered.size, dtype=bool)
+    keep[0] = True
+    np.not_equal(ordered[1:], ordered[:-1], out=keep[1:])
+    out: I64 = ordered[keep]
+    return out
+
+
 def kahn_order(n: int, pred_ptr: I64, succ_ptr: I64, succ_idx: I64) -> tuple[I64, I64]:
     """Kahn's algorithm (1962): a topological order of the jobs, or a shorter one when
     the arcs hold a cycle (the jobs left out are exactly those on or after a cycle).
@@ -96,7 +110,7 @@ def kahn_order(n: int, pred_ptr: I64, succ_ptr: I64, succ_idx: I64) -> tuple[I64
         cuts.append(cuts[-1] + int(frontier.size))
         succ, _ = gather(succ_ptr, succ_idx, frontier)
         np.subtract.at(indeg, succ, 1)
-        frontier = np.unique(succ[indeg[succ] == 0])
+        frontier = sorted_unique(succ[indeg[succ] == 0])
     rest = frontier.tolist()
     if rest:
         deg = indeg.tolist()
@@ -360,11 +374,27 @@ def _fast_csr(
     width = max(len(index), 1)
     key = owner * width + idx
     if key.size > 1 and (key[1:] <= key[:-1]).any():  # not sorted: look for repeats
-        key = np.unique(key)
+        key = sorted_unique(key)
         if key.size < idx.size:  # a name repeated within a row counts once
             idx = key % width
             np.cumsum(np.bincount(key // width, minlength=n), out=ptr[1:])
     return ptr, idx
+
+
+_Row = TypeVar("_Row")
+
+
+def _one_row_per_job(
+    rows: Sequence[_Row] | None, key: str, n: int, issues: list[Issue]
+) -> TypeGuard[Sequence[_Row]]:
+    """Whether ``rows`` (the request's ``key``) is given with one row per job; a count
+    that is not is an issue."""
+    if rows is None:
+        return False
+    if len(rows) != n:
+        issues.append(Issue(("jobs",), f"'{key}' has {len(rows)} rows for {n} jobs"))
+        return False
+    return True
 
 
 def _read_after(
@@ -374,10 +404,7 @@ def _read_after(
     issues: list[Issue],
 ) -> list[list[int]]:
     n = inst.n
-    if after is None:
-        return [[] for _ in range(n)]
-    if len(after) != n:
-        issues.append(Issue(("jobs",), f"'after' has {len(after)} rows for {n} jobs"))
+    if not _one_row_per_job(after, "after", n, issues):
         return [[] for _ in range(n)]
     rows: list[list[int]] = []
     for j, ids in enumerate(after):
@@ -421,10 +448,7 @@ def _read_uses(
     index: Mapping[str, int],
     issues: list[Issue],
 ) -> list[list[int]]:
-    if uses is None:
-        return [[] for _ in range(n)]
-    if len(uses) != n:
-        issues.append(Issue(("jobs",), f"'uses' has {len(uses)} rows for {n} jobs"))
+    if not _one_row_per_job(uses, "uses", n, issues):
         return [[] for _ in range(n)]
     rows: list[list[int]] = []
     for j, names in enumerate(uses):

@@ -104,18 +104,9 @@ class StageResult(MakespanAnswer):
         """The contract's ``result`` object (a plan), with slots and the graph's evidence."""
         p = self.problem
         best = self.bounds.best
+        gap = self.gap if self.gap != float("inf") else None
         out: dict[str, Any] = {
-            "makespan": self.makespan,
-            "lower_bound": self.lower_bound,
-            "bound_source": best.name,
-            "bounds": self._bounds_dict(),
-            "gap": self.gap if self.gap != float("inf") else None,
-            "proven_optimal": self.proven_optimal,
-            "method": self.method,
-            "worst_case_ratio": self.worst_case_ratio,
-            "stop_reason": self.stop_reason,
-            "solve_seconds": self.solve_seconds,
-            "deadline": self.deadline_dict(),
+            **self.contract_head(self._bounds_dict(), gap),
             "nodes": p.m,
             "jobs": p.n,
             "resolution": p.instance.resolution,

@@ -12,8 +12,13 @@ bound (a proof of optimality), rounds of
   plans the jobs in the order of the mirror's starts. Only when every node is free at
   the same tick and no job is carried in (else the mirror could start a job before its
   node, its slot or its release);
+* **a local walk** on the priority list (:mod:`.walk_kernel`, compiled: thousands of
+  list schedules in the time Python takes for a few hundred): swaps and moves of nearby
+  jobs and of jobs of one class, and swaps that let a job of a critical chain go before
+  the job it waited for; :data:`WALKERS` walks advance in turn, a chunk of moves each;
 * **priority perturbation**: the bottom level, or the best plan's starts, with random
-  noise (a seeded generator, so a run with a round limit is reproducible).
+  noise (a seeded generator, so a run with a round limit is reproducible); a walk that
+  found nothing shorter for :data:`RESTART_AFTER` moves restarts from one.
 
 Every plan is a list schedule of the tick-rounded problem (:mod:`.timing`) and is
 checked against its rules (:meth:`.plan.StagePlan.violations`) before it is returned.
@@ -42,17 +47,24 @@ from .paths import Paths, longest_paths
 from .plan import StagePlan
 from .problem import StageProblem
 from .result import StageResult
+from .walk_kernel import MODULUS
 
 I64 = npt.NDArray[np.int64]
 
 METHODS = ("list", "longest_first", "exact", "auto")
-#: noise levels of the bottom-level perturbation, used in turn
+#: noise levels of the perturbations, used in turn
 NOISE = (0.05, 0.15, 0.4)
-#: one round in this many perturbs a priority; the others make a local move
-PERTURB_EVERY = 8
-#: the walk restarts from the next perturbed plan after this many rounds without a
+#: moves per call of the compiled walk: about this many jobs scheduled, within the range
+CHUNK_JOBS = 20_000
+CHUNK_MIN = 1
+CHUNK_MAX = 4_000
+#: a swap move trades jobs at most n // WIDTH_DIV (at least 2) places apart
+WIDTH_DIV = 4
+#: independent walks, advanced in turn
+WALKERS = 4
+#: the walk restarts from the next perturbed plan after this many moves without a
 #: shorter plan
-RESTART_AFTER = 400
+RESTART_AFTER = 5_000
 
 
 def worst_case_ratio(problem: StageProblem) -> float | None:
@@ -116,68 +128,14 @@ class _Walk:
         return plan
 
 
-def _swap(rank: I64, rng: np.random.Generator, members: list[I64]) -> I64:
-    """A copy of ``rank`` with one or two pairs of jobs swapped, each pair of one class
-    (same limits, same eligible nodes: the jobs that compete for the same capacity) and
-    at most a few places apart among that class in the list."""
-    out = rank.copy()
-    for _ in range(int(rng.integers(1, 3))):
-        group = members[int(rng.integers(0, len(members)))]
-        if group.size < 2:
-            continue
-        seq = group[np.argsort(out[group], kind="stable")]
-        width = max(2, seq.size // 10)
-        a = int(rng.integers(0, seq.size))
-        b = min(seq.size - 1, max(0, a + int(rng.integers(-width, width + 1))))
-        ja, jb = int(seq[a]), int(seq[b])
-        out[ja], out[jb] = out[jb], out[ja]
-    return out
+@dataclasses.dataclass
+class _Walker:
+    """One walk of :func:`improve`: its plan, the priority it goes on from, and how
+    many moves it made since its plan last got shorter."""
 
-
-def _blocker_swap(plan: StagePlan, rank: I64, cls: I64, rng: np.random.Generator) -> I64:
-    """A copy of ``rank`` in which a job on a critical chain of ``plan`` trades places
-    with a job of its class that ended exactly when it started (one that held the slot
-    or limit it waited for), so that the chain's job goes first.
-
-    The chain is walked back from a job that ends last: at each job, to a job that
-    ended at its start (a predecessor or a job of its class), picked at random."""
-    end, start = plan.end, plan.start
-    j = int(rng.choice(np.flatnonzero(end == end.max())))
-    chain: list[int] = []
-    for _ in range(plan.problem.n):
-        chain.append(j)
-        before = np.flatnonzero(end == start[j])
-        if not before.size or start[j] == 0:
-            break
-        j = int(rng.choice(before))
-    rng.shuffle(chain)
-    out = rank.copy()
-    for j in chain:
-        rivals = np.flatnonzero((end == start[j]) & (cls == cls[j]) & (rank < rank[j]))
-        if rivals.size:
-            k = int(rng.choice(rivals))
-            out[j], out[k] = out[k], out[j]
-            return out
-    return out
-
-
-def _key(plan: StagePlan, paths: Paths) -> tuple[int, int]:
-    """What the local search minimises: the makespan, then how many jobs are critical
-    (their end plus their tail reaches it): fewer, and a shorter plan is nearer."""
-    span = plan.makespan_ticks
-    return span, int(np.count_nonzero(plan.end + paths.tail >= span))
-
-
-def _classes(lister: Lister, n: int) -> list[I64]:
-    """The jobs of each class of the list scheduler with at least two jobs, each class
-    listed once per job it holds (a random class is then picked by job)."""
-    cls = np.asarray(lister.cls, dtype=np.int64)
-    out = [np.flatnonzero(cls == c) for c in np.unique(cls).tolist()]
-    out = [g for g in out if g.size >= 2]
-    if not out:
-        return [np.arange(n, dtype=np.int64)]
-    weights = [max(1, g.size * 20 // n) for g in out]
-    return [g for g, w in zip(out, weights, strict=True) for _ in range(w)]
+    plan: StagePlan
+    rank: I64
+    stall: int = 0
 
 
 def improve(
@@ -190,15 +148,16 @@ def improve(
 ) -> tuple[StagePlan, StageBounds, str, bool, int]:
     """Best plan found, the bounds, the rule that found it, whether time ran out, rounds.
 
-    After the rules, each round either perturbs a priority (the bottom level or the best
-    plan's starts, with noise) and polishes the result by forward-backward improvement,
-    or (most rounds) makes a local move: one or two swaps of nearby jobs in the current
-    priority list, kept when the plan is no longer (a walk over equal makespans too);
-    a new best is polished as well. Stops when the plan meets the best bound, the budget
-    is spent, or ``max_rounds`` rounds were made (for reproducible runs).
+    After the rules, each episode advances one of the :data:`WALKERS` walks by a chunk
+    of local moves (:func:`.walk_kernel.walk`; a round is one move), polishes the plan
+    it reached by forward-backward improvement, and tries one perturbed priority
+    (the bottom level or the best plan's starts, with noise; polished too), which the
+    walk takes when shorter than its own or when it is stalled. Stops when the plan
+    meets the best bound, the budget is spent, or ``max_rounds`` rounds were made (for
+    reproducible runs).
     """
     paths = paths or longest_paths(problem)
-    walk = _Walk(problem, Lister(problem), budget)
+    walk = _Walk(problem, Lister(problem, compiled=True), budget)
     for name in RULES:
         walk.offer(_plan(problem, walk.lister, priority(paths, name)), name)
     assert walk.best is not None
@@ -206,55 +165,48 @@ def improve(
     target = bounds.ticks
     walk.offer(walk.polish(walk.best), "search")
     rng = np.random.default_rng(seed)
-    rounds = 0
+    rounds = episode = 0
     ran_out = False
     span = float(max(int(paths.d.max()), 1))
     bottom = -paths.bottom.astype(np.float64)
-    members = _classes(walk.lister, problem.n)
-    cls = np.asarray(walk.lister.cls, dtype=np.int64)
-    cur = walk.best
-    cur_rank = by_keys(cur.start, bottom)
-    stall = 0
-    cur_key = _key(cur, paths)
+    chunk = min(CHUNK_MAX, max(CHUNK_MIN, CHUNK_JOBS // max(problem.n, 1)))
+    width = max(2, problem.n // WIDTH_DIV)
+    walkers = [_Walker(walk.best, by_keys(walk.best.start, bottom)) for _ in range(WALKERS)]
     while walk.best.makespan_ticks > target:
         if budget.expired():
             ran_out = True
             break
         if max_rounds is not None and rounds >= max_rounds:
             break
-        rounds += 1
-        if rounds % PERTURB_EVERY == 0:
-            noise = NOISE[(rounds // PERTURB_EVERY) % len(NOISE)]
-            if rounds % (2 * PERTURB_EVERY):
-                key = paths.bottom * (1.0 + noise * rng.uniform(-1.0, 1.0, problem.n))
-                rank = by_keys(-key, -paths.d.astype(np.float64))
-            else:
-                key = walk.best.start + noise * span * rng.uniform(0.0, 1.0, problem.n)
-                rank = by_keys(key, bottom)
-            cand = walk.polish(_plan(problem, walk.lister, rank))
-            walk.offer(cand, "search")
-            stall += PERTURB_EVERY
-            if cand.makespan_ticks <= cur.makespan_ticks or stall >= RESTART_AFTER:
-                stall = 0 if cand.makespan_ticks < cur.makespan_ticks else stall
-                stall = 0 if stall >= RESTART_AFTER else stall
-                cur, cur_rank = cand, by_keys(cand.start, bottom)
-                cur_key = _key(cur, paths)
-            continue
-        if rounds % 2:
-            rank = _swap(cur_rank, rng, members)
-        else:
-            rank = _blocker_swap(cur, cur_rank, cls, rng)
+        moves = chunk if max_rounds is None else min(chunk, max_rounds - rounds)
+        me = walkers[episode % WALKERS]
+        episode += 1
+        kseed = 1 + (seed * 1_000_003 + episode) % (MODULUS - 2)
+        rank, last = walk.lister.walk(me.rank, moves, kseed, width, paths.tail)
+        rounds += moves
         cand = _plan(problem, walk.lister, rank)
-        cand_key = _key(cand, paths)
-        if cand_key <= cur_key:
-            if cand.makespan_ticks < cur.makespan_ticks:
-                stall = 0
-            cur, cur_rank, cur_key = cand, rank, cand_key
-            if walk.offer(cand, "search"):
-                cur = walk.polish(cand)
-                walk.offer(cur, "search")
-                cur_rank = by_keys(cur.start, bottom)
-                cur_key = _key(cur, paths)
+        me.stall = 0 if cand.makespan_ticks < me.plan.makespan_ticks else me.stall + moves
+        me.plan, me.rank = cand, last
+        walk.offer(cand, "search")
+        polished = walk.polish(cand)  # forward-backward passes out of the walk's optimum
+        walk.offer(polished, "search")
+        if polished.makespan_ticks < cand.makespan_ticks:
+            me.plan, me.rank = polished, by_keys(polished.start, bottom)
+        if budget.expired():  # (on large graphs a pass takes a good part of the budget)
+            ran_out = True
+            break
+        # one perturbed priority per chunk: kept when shorter, or to restart a stalled walk
+        noise = NOISE[episode % len(NOISE)]
+        if episode % 2:
+            key = paths.bottom * (1.0 + noise * rng.uniform(-1.0, 1.0, problem.n))
+            prank = by_keys(-key, -paths.d.astype(np.float64))
+        else:
+            key = walk.best.start + noise * span * rng.uniform(0.0, 1.0, problem.n)
+            prank = by_keys(key, bottom)
+        pert = walk.polish(_plan(problem, walk.lister, prank))
+        walk.offer(pert, "search")
+        if pert.makespan_ticks < me.plan.makespan_ticks or me.stall >= RESTART_AFTER:
+            me.plan, me.rank, me.stall = pert, by_keys(pert.start, bottom), 0
     return walk.best, bounds, walk.rule, ran_out, rounds
 
 
