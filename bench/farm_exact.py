@@ -1,6 +1,6 @@
 """`exact` at 1 s on generated farms (issue 21), with CP-SAT as a second opinion.
 
-    .venv/bin/python bench/farm_exact.py [--quick] [--per-mix 20] [--budget 1.0]
+    .venv/bin/python bench/farm_exact.py [--quick] [--per-mix 20] [--budget 1.0] [--seed 21]
                                          [--cpsat] [--cpsat-seconds 10] [--cpsat-cache F]
 
 Farms (seeded; every name is our own coined one): 5 to 40 nodes named after an invented
@@ -18,7 +18,9 @@ Printed per instance: jobs, nodes, our makespan and bound (ceiling of the certif
 times are whole seconds), certified gap, proven or not, the bound's rule, wall time over
 the budget, and with ``--cpsat`` CP-SAT's makespan and bound and whether ours is no worse.
 Then per mix and overall: share proven, median and worst certified gap, largest wall time
-over the budget, and the comparison.
+over the budget, and the comparison; with ``--cpsat`` also a cross-check of the two
+certificates: our bound above CP-SAT's plan, or CP-SAT's bound above our plan, would mean
+one of them is false (both counts should be 0).
 
 The CP-SAT model is the plain assignment model the issue names: one boolean per job and
 eligible node, every job on exactly one node, ``free_at_k + sum p_j / s_k x_jk <= C`` per
@@ -29,8 +31,6 @@ file between runs.
 
 from __future__ import annotations
 
-import argparse
-import json
 import math
 import sys
 import time
@@ -39,11 +39,13 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from exact_rows import Row, cpsat_note, summary  # bench/, beside this script
+
+# exact_rows: bench/, beside this script
+from exact_rows import CpSat, Row, cpsat_note, minimise, options, run_groups
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from workers.planning import Instance, Node, solve
+from workers.planning import Instance, Node, farm_exact_lp, solve
 
 MIXES = ("uniform", "shots", "bimodal")
 SPEEDS = (1.0, 2.0, 4.0)
@@ -127,19 +129,11 @@ def cpsat(case: Case, seconds: float, workers: int = 2) -> tuple[int | None, int
     for k in range(m):
         model.add(free[k] + sum(t * x for x, t in per_node[k]) <= span)
     model.minimize(span)
-    solver = cp_model.CpSolver()
-    solver.parameters.max_time_in_seconds = seconds
-    solver.parameters.num_workers = workers
-    status = solver.solve(model)
-    if status in (cp_model.OPTIMAL, cp_model.FEASIBLE):
-        return int(solver.objective_value), int(solver.best_objective_bound)
-    return None, int(solver.best_objective_bound)
+    return minimise(model, seconds, workers)
 
 
 # -- the run ----------------------------------------------------------------------------
-def run_case(
-    case: Case, budget: float, cp_seconds: float | None, cache: dict[str, Any], key: str
-) -> Row:
+def run_case(case: Case, budget: float, cpsat_runs: CpSat, key: str) -> Row:
     inst = case.instance()
     t0 = time.perf_counter()
     result = solve(inst, "exact", time_budget=budget)
@@ -147,13 +141,9 @@ def run_case(
     ours = result.schedule.makespan_exact
     assert ours.denominator == 1, "times are whole seconds by construction"
     lb = math.ceil(result.certificate.exact_value)  # the optimum is a whole number
-    cp = cpb = None
-    if cp_seconds is not None:
-        if key not in cache:
-            cache[key] = cpsat(case, cp_seconds)
-        cp, cpb = cache[key]
+    cp, cpb = cpsat_runs.answer(key, lambda seconds: cpsat(case, seconds))
     row = Row(case.mix, int(ours), lb, result.gap, result.proven_optimal, wall - budget, cp, cpb)
-    cmp = cpsat_note(row, cp_seconds is not None)
+    cmp = cpsat_note(row, cpsat_runs.on)
     print(
         f"{case.name:11s} n={inst.n:4d} m={inst.m:2d} ours={row.ours:6d} lb={row.bound:6d} "
         f"({result.certificate.source:17s}) gap={100 * row.gap:6.3f}% "
@@ -164,41 +154,27 @@ def run_case(
 
 
 def main() -> None:
-    ap = argparse.ArgumentParser(description=(__doc__ or "").splitlines()[0])
-    ap.add_argument("--quick", action="store_true", help="four instances per mix")
-    ap.add_argument("--per-mix", type=int, default=20)
-    ap.add_argument("--budget", type=float, default=1.0)
-    ap.add_argument("--seed", type=int, default=21)
-    ap.add_argument("--cpsat", action="store_true")
-    ap.add_argument("--cpsat-seconds", type=float, default=10.0)
-    ap.add_argument("--mix", choices=MIXES, action="append")
-    ap.add_argument("--cpsat-cache", type=Path, help="a JSON file of CP-SAT's answers")
-    args = ap.parse_args()
-    cache: dict[str, Any] = {}
-    if args.cpsat_cache and args.cpsat_cache.exists():
-        cache = json.loads(args.cpsat_cache.read_text())
-    per = 4 if args.quick else args.per_mix
-    mixes = args.mix or list(MIXES)
-    # a throwaway solve first, so that imports and compiled kernels are not charged
+    args = options(
+        __doc__ or "", "mix", MIXES, per=20, quick="four instances per mix", seed=21
+    ).parse_args()
+    # a throwaway solve first, so that imports and compiled kernels are not charged (the
+    # LP bound's knapsack and scipy's LP solver are loaded by their own warm-up)
     solve(generate("uniform", 99, 0).instance(), "exact", time_budget=0.5)
-    rows: list[Row] = []
-    for mix in mixes:
-        for i in range(per):
-            rows.append(
-                run_case(
-                    generate(mix, i, args.seed),
-                    args.budget,
-                    args.cpsat_seconds if args.cpsat else None,
-                    cache,
-                    f"{mix}/{i}/seed{args.seed}/{args.cpsat_seconds}s",
-                )
-            )
-            if args.cpsat_cache and args.cpsat:
-                args.cpsat_cache.write_text(json.dumps(cache))
-    print()
-    for mix in mixes:
-        summary(mix, [r for r in rows if r.group == mix], args.budget, args.cpsat, 8)
-    summary("overall", rows, args.budget, args.cpsat, 8)
+    farm_exact_lp.warm_up()
+    rows = run_groups(
+        args,
+        args.mix or list(MIXES),
+        4 if args.quick else args.per_mix,
+        lambda mix, i, cp, key: run_case(generate(mix, i, args.seed), args.budget, cp, key),
+        8,
+    )
+    if args.cpsat:
+        ours_above = sum(1 for r in rows if r.cp is not None and r.bound > r.cp)
+        theirs_above = sum(1 for r in rows if r.cp_bound is not None and r.cp_bound > r.ours)
+        print(
+            f"cross-check: our bound above CP-SAT's plan {ours_above}, "
+            f"CP-SAT's bound above our plan {theirs_above}"
+        )
 
 
 if __name__ == "__main__":

@@ -25,7 +25,7 @@ from workers.planning import Infeasible, Instance, Node, solve
 from workers.planning.farm import node_classes
 from workers.planning.farm_bounds import eligibility, farm_lower_bounds
 from workers.planning.farm_kernels import _sift_down, earliest_finish_classes, improve
-from workers.planning.kernels import earliest_finish, pure
+from workers.planning.kernels import Farm, earliest_finish, pure
 
 
 def reference_optimum(inst: Instance) -> float:
@@ -382,8 +382,8 @@ def test_improve_pure_python_path_matches_compiled() -> None:
     start = np.array([int(np.flatnonzero(elig.eligible[t])[0]) for t in elig.job_type], np.int32)
     a, b = start.copy(), start.copy()
     order = inst.order_longest_first
-    members, cstart, celig = node_classes(inst, elig)
-    args = (inst.durations, s, f, elig.job_type, elig.eligible, order, celig, cstart, members)
+    farm = Farm(s, f, elig.job_type, elig.eligible)
+    args = (inst.durations, farm, order, node_classes(inst, elig))
     ra = improve(a, *args, 1000)
     rb = pure(improve)(b, *args, 1000)
     assert ra == rb and np.array_equal(a, b)
@@ -456,11 +456,12 @@ def test_class_heap_lpt_equals_plain_earliest_finish() -> None:
         elig = eligibility(inst)
         s = np.array([nd.speed for nd in inst.nodes])
         f = np.array([nd.free_at for nd in inst.nodes])
-        members, cstart, celig = node_classes(inst, elig)
+        farm = Farm(s, f, elig.job_type, elig.eligible)
+        classes = node_classes(inst, elig)
         for order in (inst.order_longest_first, np.arange(n, dtype=np.intp)):
             want_node, want_start = reference_greedy(d.tolist(), nodes, order.tolist(), req)
-            plain = pure(earliest_finish)(order, inst.durations, s, f, elig.job_type, elig.eligible)
-            args = (order, inst.durations, s, f, elig.job_type, celig, cstart, members)
+            plain = pure(earliest_finish)(order, inst.durations, farm)
+            args = (order, inst.durations, farm, classes)
             for got in (
                 plain,
                 earliest_finish_classes(*args),

@@ -56,9 +56,9 @@ import numpy.typing as npt
 from . import farm_exact, farm_milp
 from .budget import Budget
 from .farm_bounds import Eligibility, eligibility, farm_lower_bounds
-from .farm_kernels import earliest_finish_classes, improve
+from .farm_kernels import NodeClasses, earliest_finish_classes, improve
 from .greedy import lpt_ratio
-from .kernels import earliest_finish, pure
+from .kernels import Farm, earliest_finish, pure
 from .model import FloatArray, Instance
 from .progress import Progress, ProgressHook
 from .rational import down
@@ -143,24 +143,26 @@ def _makespan(
     return float((f + np.bincount(node_of, durations, s.shape[0]) / s).max())
 
 
+def farm_arrays(inst: Instance, elig: Eligibility) -> Farm:
+    """``inst``'s farm as the kernels read it."""
+    s, f = arrays(inst)
+    return Farm(s, f, elig.job_type, elig.eligible)
+
+
 def greedy_schedule(inst: Instance, elig: Eligibility, method: str) -> Schedule:
     """``list`` (batch order) or ``longest_first`` (LPT) with earliest finish."""
-    s, f = arrays(inst)
+    farm = farm_arrays(inst, elig)
     order = np.arange(inst.n, dtype=np.intp) if method == "list" else inst.order_longest_first
     if _tiny(inst):
-        rule = pure(earliest_finish)
-        node_of, start = rule(order, inst.durations, s, f, elig.job_type, elig.eligible)
-        return Schedule(inst, node_of, start)
-    members, cstart, celig = node_classes(inst, elig)
-    node_of, start = earliest_finish_classes(
-        order, inst.durations, s, f, elig.job_type, celig, cstart, members
-    )
+        node_of, start = pure(earliest_finish)(order, inst.durations, farm)
+    else:
+        node_of, start = earliest_finish_classes(
+            order, inst.durations, farm, node_classes(inst, elig)
+        )
     return Schedule(inst, node_of, start)
 
 
-def node_classes(
-    inst: Instance, elig: Eligibility
-) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64], npt.NDArray[np.bool_]]:
+def node_classes(inst: Instance, elig: Eligibility) -> NodeClasses:
     """Nodes grouped by (speed, which job types may run there): node indices class by
     class, where each class starts, and ``[type, class]`` eligibility."""
     keys: dict[tuple[float, bytes], list[int]] = {}
@@ -170,7 +172,7 @@ def node_classes(
     members = np.array([k for g in groups for k in g], dtype=np.int64)
     cstart = np.cumsum([0] + [len(g) for g in groups]).astype(np.int64)
     celig = np.ascontiguousarray(elig.eligible[:, [g[0] for g in groups]])
-    return members, cstart, celig
+    return NodeClasses(members, cstart, celig)
 
 
 def improver(
@@ -178,14 +180,11 @@ def improver(
 ) -> Callable[[npt.NDArray[np.int32], int], tuple[int, bool]]:
     """The local-search kernel :func:`.farm_kernels.improve` on ``inst`` (compiled, or its
     pure-Python twin): ``(plan, most steps) -> (steps taken, at a local optimum)``."""
-    s, f = arrays(inst)
-    members, cstart, celig = node_classes(inst, elig)
-    order = inst.order_longest_first
-    fixed = (inst.durations, s, f, elig.job_type, elig.eligible, order, celig, cstart, members)
+    farm, nodes = farm_arrays(inst, elig), node_classes(inst, elig)
     kernel = improve if compiled else pure(improve)
 
     def step(node_of: npt.NDArray[np.int32], max_steps: int) -> tuple[int, bool]:
-        return kernel(node_of, *fixed, max_steps)
+        return kernel(node_of, inst.durations, farm, inst.order_longest_first, nodes, max_steps)
 
     return step
 

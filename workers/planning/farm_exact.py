@@ -38,6 +38,13 @@ The search stops when the best plan meets a lower bound (``lower``, or the exact
 bounds below), when it has been exhausted (the best plan is optimal), or when the budget or
 ``max_nodes`` runs out (``finished=False``; the bound reported is then the root bound).
 
+The decision view (:func:`bisect`) asks the same search "does every node end by ``C``?"
+at fixed ``C`` and adds two tools. Plans: the subset-sum rebalancing of
+:mod:`.farm_decision_fill` (node ``k``'s capacity at ``C`` is ``(C - g_k) / w_k`` units, so
+speeds and busy time become bin sizes), whose plans are measured again here in ticks.
+Bounds: Farley's bound of the pattern LP per node class (:mod:`.farm_exact_lp`), whose
+refutations are checked in integers, raises the bound where the jobs are few per node.
+
 Root bounds, all exact and all facts about every plan: the makespan is at least
 ``max_k f_k`` (a node that runs nothing ends at ``f_k``), at least
 ``min_{k eligible} f_k + p_j / s_k`` for every job, and at least the least ``T`` at which
@@ -54,12 +61,15 @@ from bisect import bisect_right
 from collections.abc import Sequence
 from dataclasses import dataclass
 from fractions import Fraction
+from random import Random
 
 import numpy as np
 import numpy.typing as npt
 
 from .budget import Budget
 from .farm_bounds import Eligibility
+from .farm_decision_fill import Fill
+from .farm_exact_lp import FarmLP
 from .model import FloatArray, Instance
 from .result import Schedule
 
@@ -82,6 +92,16 @@ FIRST_SUBSET_SUMS = 1 << 14
 SUMS_PER_NODE = 128
 #: the share of the time left that one question of :func:`bisect` may take
 SLICE = 0.3
+#: shares of the time left for the first rebalancing at the bound, for Farley's bound,
+#: for the rebalancing at the bound after it, and for that of every later question
+FILL_FIRST = 0.15
+LP_SHARE = 0.5
+FILL_AFTER = 0.3
+FILL_SHARE = 0.2
+#: ... and at most this many moves a node (on small farms the clock is not the limit)
+FILL_MOVES = 200
+#: search nodes of the first, short branch and bound at the bound
+FIRST_NODES = 2000
 #: with at most this many job types, every union of their eligible sets is checked for fit
 MAX_UNION_TYPES = 4
 
@@ -189,7 +209,7 @@ def _check_plan(inst: Instance, elig: Eligibility, node_of: npt.NDArray[np.int32
         raise ValueError("node_of puts a job on a node that may not run it")
 
 
-class _Search:
+class SearchData:
     """The integer data of one proof and the tests its search makes (module doc)."""
 
     def __init__(self, inst: Instance, elig: Eligibility, incumbent: npt.NDArray[np.int32]):
@@ -329,7 +349,7 @@ class _Search:
 
 
 def _dfs(
-    s: _Search, best: int, target: int, budget: Budget, max_nodes: int | None, fit: bool = False
+    s: SearchData, best: int, target: int, budget: Budget, max_nodes: int | None, fit: bool = False
 ) -> tuple[int, list[int] | None, bool, int]:
     """The branch and bound of the module doc: plans with a makespan below ``best`` (scaled
     ticks), stopping at one ending by ``target``. Returns the best makespan found (``best``
@@ -427,7 +447,7 @@ def _dfs(
 
 
 def _plan(
-    s: _Search, incumbent: npt.NDArray[np.int32], choice: list[int] | None
+    s: SearchData, incumbent: npt.NDArray[np.int32], choice: list[int] | None
 ) -> npt.NDArray[np.int32]:
     """The incumbent with the jobs of the search placed as ``choice`` says."""
     if choice is None:
@@ -439,11 +459,11 @@ def _plan(
 
 def _start(
     inst: Instance, elig: Eligibility, node_of: npt.NDArray[np.int32], lower: float
-) -> tuple[_Search, npt.NDArray[np.int32], Fraction, int]:
+) -> tuple[SearchData, npt.NDArray[np.int32], Fraction, int]:
     """The search data, the incumbent, the known bound and the root bound (ticks)."""
     incumbent = np.array(node_of, dtype=np.int32)
     _check_plan(inst, elig, incumbent)
-    s = _Search(inst, elig, incumbent)
+    s = SearchData(inst, elig, incumbent)
     known = Fraction(lower) if math.isfinite(lower) and lower > 0 else Fraction(0)
     return s, incumbent, known, s.root_bound(math.ceil(known * s.scale))
 
@@ -470,6 +490,26 @@ def prove(
     return FarmProof(_plan(s, incumbent, choice), makespan, min(bound, makespan), finished, count)
 
 
+def _ticks(s: SearchData, choice: list[int]) -> int:
+    """The makespan in ticks of ``choice`` (node of every job, search order)."""
+    t = list(s.g)
+    for d, k in enumerate(choice):
+        t[k] += s.w[k] * s.p[d]
+    return max(t)
+
+
+def farm_lp(s: SearchData) -> FarmLP | None:
+    """Farley's bound of :mod:`.farm_exact_lp` on the search's data (``None`` when its
+    knapsack tables would be too large)."""
+    types = [
+        frozenset(t for t, nodes in s.elig_nodes.items() if mem[0] in nodes) for mem in s.members
+    ]
+    try:
+        return FarmLP(s.p, s.typ, s.g, s.w, s.members, types, s.upper)
+    except ValueError:
+        return None
+
+
 def bisect(
     inst: Instance,
     elig: Eligibility,
@@ -477,21 +517,69 @@ def bisect(
     lower: float,
     budget: Budget,
 ) -> FarmProof:
-    """The decision view of the module doc: "does every node end by ``C``?" asked of the
-    same branch and bound at a fixed ``C`` (ticks), which either finds a plan ending by
-    ``C`` (a new upper bound) or, searched to the end, proves none does (the optimum is
-    then at least ``C + 1`` ticks: every makespan is a whole number of ticks). ``C`` is
-    first the lower bound (where the optimum most often lies), then the middle of the open
-    interval; a question left open by its time slice moves the next one up, towards plans.
-    Same contract as :func:`prove`; ``nodes`` counts the search nodes of every question.
+    """The decision view of the module doc: "does every node end by ``C``?" (ticks).
+
+    Each question is put to the subset-sum rebalancing of :mod:`.farm_decision_fill` (a
+    plan ending by ``C`` is a new upper bound), then to the branch and bound at a fixed
+    ``C``, which either finds such a plan or, searched to the end, proves none exists (the
+    optimum is then at least ``C + 1`` ticks: every makespan is a whole number of ticks).
+    ``C`` is first the lower bound (where the optimum most often lies): a short branch and
+    bound (small farms end there), the rebalancing, and when it finds no plan, Farley's
+    bound (:mod:`.farm_exact_lp`) raises the lower bound while it refutes it; then ``C`` is the
+    middle of the open interval, and a question left open by its time slice moves the
+    next one up, towards plans. Same contract as :func:`prove`; ``nodes`` counts the
+    search nodes of every question.
     """
     s, incumbent, known, lo = _start(inst, elig, node_of, lower)
     hi, plan, total = s.upper, incumbent, 0
+    # the best plan as the node of every job in search order
+    best_choice = [int(k) for k in incumbent[np.asarray(s.order, dtype=np.intp)].tolist()]
+    fill = Fill(s.p, [frozenset(s.elig_nodes[t]) for t in s.typ], s.g, s.w, s.upper)
     stuck = -1  # the largest C a time slice left open
     first = True
+    asked = 0
+
+    def plan_by(c: int, share: float) -> bool:
+        nonlocal hi, plan, best_choice, asked
+        asked += 1
+        caps = fill.caps(c)
+        if caps is None:
+            return False
+        # from the best plan and, every other time, from a best-fit packing at c
+        start = best_choice if asked % 2 else fill.best_fit(caps, Random(asked), 0)
+        out = fill.run(start, c, budget.child(share), asked, FILL_MOVES * s.m)
+        if out is None:
+            return False
+        span = _ticks(s, out)
+        if span < hi:
+            hi, best_choice, plan = span, out, _plan(s, incumbent, out)
+        return span <= c
+
+    if lo < hi:  # a short branch and bound first: it settles small farms at once
+        best, choice, finished, total = _dfs(
+            s, lo + 1, lo, budget.child(FILL_FIRST), FIRST_NODES, fit=True
+        )
+        if choice is not None:
+            hi, plan, best_choice = best, _plan(s, incumbent, choice), choice
+        elif finished:
+            lo += 1
+    if lo < hi and not plan_by(lo, FILL_FIRST) and lo < hi:
+        lp = farm_lp(s)
+        if lp is not None:
+            lp.seed(lo, best_choice, s.cls)
+            slice_ = budget.child(LP_SHARE)
+            while lo < hi and not slice_.expired():
+                reach = lp.solve(lo, slice_)
+                if reach < lo:
+                    break
+                lo = reach + 1
+            if lo < hi:
+                plan_by(lo, FILL_AFTER)
     while lo < hi and not budget.expired():
         # first the bound, then bisect what is left above the open question (or the bound)
         c = lo if first else (max(lo, stuck) + hi) // 2
+        if plan_by(c, FILL_SHARE):
+            continue
         last = c == stuck  # only the open question is left: it gets all the time
         best, choice, finished, count = _dfs(
             s, c + 1, c, budget if last else budget.child(SLICE), None, fit=True
@@ -499,7 +587,7 @@ def bisect(
         first = False
         total += count
         if choice is not None:
-            hi, plan = best, _plan(s, incumbent, choice)
+            hi, plan, best_choice = best, _plan(s, incumbent, choice), choice
         elif finished:
             lo = c + 1
         else:

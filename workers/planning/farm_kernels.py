@@ -10,10 +10,12 @@ kernel, each is written in the subset of Python that numba compiles, so
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 import numpy.typing as npt
 
-from .kernels import jit
+from .kernels import Farm, jit
 
 
 @jit
@@ -41,21 +43,26 @@ def _sift_down(
     heap[lo + i] = k
 
 
+class NodeClasses(NamedTuple):
+    """A farm's nodes grouped by (speed, which job types may run there): the node indices
+    class by class (``members``), where each class starts in them (``start``, one more
+    entry than classes) and whether class c may run jobs of type t (``eligible[t, c]``)."""
+
+    members: npt.NDArray[np.int64]
+    start: npt.NDArray[np.int64]
+    eligible: npt.NDArray[np.bool_]
+
+
 @jit
 def earliest_finish_classes(
-    order: npt.NDArray[np.intp],
-    durations: npt.NDArray[np.float64],
-    speeds: npt.NDArray[np.float64],
-    free_at: npt.NDArray[np.float64],
-    job_type: npt.NDArray[np.int32],
-    class_eligible: npt.NDArray[np.bool_],
-    class_start: npt.NDArray[np.int64],
-    members: npt.NDArray[np.int64],
+    order: npt.NDArray[np.intp], durations: npt.NDArray[np.float64], farm: Farm, nodes: NodeClasses
 ) -> tuple[npt.NDArray[np.int32], npt.NDArray[np.float64]]:
     """``kernels.earliest_finish`` for nodes in classes of one speed and one eligibility:
     inside a class the node that frees first is where a job ends first, so one heap per
     class gives the answer in O(classes + log m) a job instead of O(m). Ties go to the
     lowest node index among the nodes that free first."""
+    speeds, free_at, job_type = farm.speeds, farm.free_at, farm.job_type
+    members, class_start, class_eligible = nodes
     n = order.shape[0]
     nc = class_start.shape[0] - 1
     load = free_at.copy()
@@ -94,14 +101,9 @@ def earliest_finish_classes(
 def improve(
     node_of: npt.NDArray[np.int32],
     durations: npt.NDArray[np.float64],
-    speeds: npt.NDArray[np.float64],
-    free_at: npt.NDArray[np.float64],
-    job_type: npt.NDArray[np.int32],
-    eligible: npt.NDArray[np.bool_],
+    farm: Farm,
     order: npt.NDArray[np.intp],
-    class_eligible: npt.NDArray[np.bool_],
-    class_start: npt.NDArray[np.int64],
-    members: npt.NDArray[np.int64],
+    nodes: NodeClasses,
     max_steps: int,
 ) -> tuple[int, bool]:
     """Local search on ``node_of`` (changed in place): move a job off the node that finishes
@@ -115,6 +117,8 @@ def improve(
     the jobs in longest-first order), so a partner is found by binary search in the window
     of durations that would help: O(n + jobs on the critical node x m x log n).
     """
+    speeds, free_at, job_type, eligible = farm
+    members, class_start, class_eligible = nodes
     n = durations.shape[0]
     m = speeds.shape[0]
     load = np.zeros(m)

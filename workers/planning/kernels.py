@@ -12,7 +12,7 @@ from __future__ import annotations
 import os
 from collections.abc import Callable
 from types import ModuleType
-from typing import Any, TypeVar, cast
+from typing import Any, NamedTuple, TypeVar, cast
 
 import numpy as np
 import numpy.typing as npt
@@ -97,20 +97,26 @@ def assign_in_order(
     return node, start
 
 
+class Farm(NamedTuple):
+    """A farm as the kernels read it: each node's speed and the time it is free, each job's
+    type (a distinct ``requires`` set) and whether node k may run jobs of type t
+    (``eligible[t, k]``)."""
+
+    speeds: npt.NDArray[np.float64]
+    free_at: npt.NDArray[np.float64]
+    job_type: npt.NDArray[np.int32]
+    eligible: npt.NDArray[np.bool_]
+
+
 @jit
 def earliest_finish(
-    order: npt.NDArray[np.intp],
-    durations: npt.NDArray[np.float64],
-    speeds: npt.NDArray[np.float64],
-    free_at: npt.NDArray[np.float64],
-    job_type: npt.NDArray[np.int32],
-    eligible: npt.NDArray[np.bool_],
+    order: npt.NDArray[np.intp], durations: npt.NDArray[np.float64], farm: Farm
 ) -> tuple[npt.NDArray[np.int32], npt.NDArray[np.float64]]:
-    """Give each job, in ``order``, to the eligible node where it would finish first.
-
-    ``eligible[t, k]`` says whether node k may run jobs of type t. Ties go to the lowest
-    node index. O(n m). Raises nothing: a job with no eligible node gets node -1.
+    """Give each job, in ``order``, to the eligible node of ``farm`` where it would finish
+    first. Ties go to the lowest node index. O(n m). Raises nothing: a job with no eligible
+    node gets node -1.
     """
+    speeds, free_at, job_type, eligible = farm
     n = order.shape[0]
     m = speeds.shape[0]
     node_of = np.full(durations.shape[0], -1, dtype=np.int32)
