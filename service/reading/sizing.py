@@ -11,6 +11,7 @@ from workers.planning.sizing import DEFAULT_BILLING, DEFAULT_MAX_NODES, check_op
 from workers.planning.sizing_request import SizingArgs
 from workers.planning.stage_sizing import StageSizingArgs
 from workers.planning.stages.problem import StageProblem
+from workers.planning.usecases import FrontierArgs
 
 from .clock import in_seconds
 from .plan import read_instance
@@ -18,7 +19,9 @@ from .rental import is_rental, read_rental
 from .stages import is_staged, names_of
 
 
-def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs | StageSizingArgs | RentalArgs:
+def read_sizing_request(
+    body: Mapping[str, Any],
+) -> SizingArgs | StageSizingArgs | RentalArgs | FrontierArgs:
     """Read a ``POST /v1/sizings`` body (fields: ``openapi/openapi.yaml``) without sizing.
 
     Every problem found is raised together as one :class:`InvalidInstance` whose issues
@@ -47,6 +50,8 @@ def read_sizing_request(body: Mapping[str, Any]) -> SizingArgs | StageSizingArgs
     for key in ("nodes", "node_count"):
         if key in body:
             issues.append(Issue((key,), "not used by sizing: the answer is the node count"))
+    if "deadlines" in body:
+        issues.append(Issue(("deadlines",), "a frontier is for rentals: give farm or kinds"))
     max_nodes = body.get("max_nodes", DEFAULT_MAX_NODES)
     node_hour_cost = body.get("node_hour_cost")
     billing = body.get("billing", DEFAULT_BILLING)

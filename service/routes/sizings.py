@@ -12,9 +12,9 @@ from __future__ import annotations
 
 from typing import Any
 
-from workers.planning.errors import InvalidInstance, Issue
 from workers.planning.rental import RentalArgs
 from workers.planning.stage_sizing import StageSizingArgs
+from workers.planning.usecases import FrontierArgs, refuse_spread
 
 from ..reading import read_sizing_request, read_spread, refuse_stages
 from ..schemas import load_sizing_request
@@ -30,12 +30,9 @@ def validate_sizing(body: Any, settings: Settings) -> dict[str, Any]:
     args.check()
     asked = read_spread(data)
     if asked is not None:
-        if isinstance(args, RentalArgs):
-            raise InvalidInstance(
-                "the confidence simulation does not handle rentals yet",
-                [Issue(("spread",), "not supported with farm and kinds yet")],
-            )
-        if isinstance(args, StageSizingArgs):
+        if isinstance(args, RentalArgs | FrontierArgs):
+            refuse_spread(args)
+        elif isinstance(args, StageSizingArgs):
             refuse_stages(data, "the confidence simulation")
         else:
             asked.check(args.base, args.node.speed)

@@ -32,7 +32,7 @@ from workers.planning import Instance, Node
 from workers.planning import confidence as cf
 from workers.planning.errors import Infeasible, InvalidInstance
 from workers.planning.greedy import list_schedule, longest_first_schedule
-from workers.planning.kernels import earliest_finish
+from workers.planning.kernels import Farm, earliest_finish
 from workers.planning.result import Schedule
 from workers.planning.sizing import SizingResult
 
@@ -67,7 +67,8 @@ def farm_plan(seed: int = 3) -> Schedule:
     eligible = np.array([[r <= nd.provides for nd in nodes] for r in kinds], dtype=np.bool_)
     speeds = np.array([nd.speed for nd in nodes])
     free = np.array([nd.free_at for nd in nodes])
-    node_of, start = earliest_finish(inst.order_longest_first, d, speeds, free, job_type, eligible)
+    farm = Farm(speeds, free, job_type, eligible)
+    node_of, start = earliest_finish(inst.order_longest_first, d, farm)
     sched = Schedule(inst, node_of, start)
     sched.check()
     return sched
@@ -174,27 +175,31 @@ def test_pure_python_kernels_agree_with_compiled() -> None:
     free = np.array([nd.free_at for nd in inst.nodes])
     rows = 20
     weight = inst.durations / speed[sched.node_of]
-    args = (sched.node_of, weight, model.sigma, model.shift, sched.loads, x, k, f)
+    args = (sched.node_of, weight, sched.loads)
     ms1, ms2 = np.empty(rows), np.empty(rows)
     cr1, cr2 = np.empty(rows, np.int32), np.empty(rows, np.int32)
-    cf.static_rows(st0.copy(), *args, ms1, cr1)
+
+    def draws() -> cf.Draws:
+        return cf.Draws(st0.copy(), model.sigma, model.shift, x, k, f)
+
+    cf.static_rows(draws(), *args, ms1, cr1)
     with np.errstate(over="ignore"):
-        cf.static_rows.py_func(st0.copy(), *args, ms2, cr2)
+        cf.static_rows.py_func(draws(), *args, ms2, cr2)
     # numpy's and libm's float32 exp may differ in the last bit: equal to 1e-6
     np.testing.assert_allclose(ms1, ms2, rtol=1e-6)
     np.testing.assert_array_equal(cr1, cr2)
 
-    rank, tables = cf.plan_order(sched), cf._dispatch_tables(sched)
-    dargs = (inst.durations, model.sigma, model.shift, speed, free, rank, *tables, x, k, f)
-    cf.dynamic_rows(st0.copy(), *dargs, ms1, cr1)
+    tables = cf.dispatch_tables(sched)
+    dargs = (inst.durations, speed, free, tables)
+    cf.dynamic_rows(draws(), *dargs, ms1, cr1)
     with np.errstate(over="ignore"):
-        cf.dynamic_rows.py_func(st0.copy(), *dargs, ms2, cr2)
+        cf.dynamic_rows.py_func(draws(), *dargs, ms2, cr2)
     np.testing.assert_allclose(ms1, ms2, rtol=1e-6)
     np.testing.assert_array_equal(cr1, cr2)
     fin1, fin2 = np.empty(inst.m), np.empty(inst.m)
     dur = inst.durations * 1.3
-    cf.dispatch_row(dur, speed, free, rank, *tables, fin1)
-    cf.dispatch_row.py_func(dur, speed, free, rank, *tables, fin2)
+    cf.dispatch_row(dur, speed, free, tables, fin1)
+    cf.dispatch_row.py_func(dur, speed, free, tables, fin2)
     np.testing.assert_array_equal(fin1, fin2)
 
 
@@ -262,12 +267,12 @@ def test_dynamic_dispatch_on_a_farm_matches_brute_force() -> None:
     assert np.all(res.makespans == ref.max())
     speed = np.array([nd.speed for nd in inst.nodes])
     free = np.array([nd.free_at for nd in inst.nodes])
-    rank, tables = cf.plan_order(sched), cf._dispatch_tables(sched)
+    tables = cf.dispatch_tables(sched)
     rng = np.random.default_rng(2)
     for _ in range(5):
         dur = inst.durations * rng.lognormal(0, 0.5, inst.n)
         fin = np.empty(inst.m)
-        assert cf.dispatch_row(dur, speed, free, rank, *tables, fin) == inst.n
+        assert cf.dispatch_row(dur, speed, free, tables, fin) == inst.n
         np.testing.assert_allclose(fin, reference_dispatch(sched, dur), rtol=1e-12)
 
 
@@ -285,19 +290,17 @@ def test_plain_dispatch_matches_the_heap_and_brute_force() -> None:
         inst = Instance.build(studio_batch(400, m), nodes)
         speeds = np.array([nd.speed for nd in nodes])
         free = np.array([nd.free_at for nd in nodes])
-        node_of, start = earliest_finish(
-            inst.order_longest_first, inst.durations, speeds, free,
-            np.zeros(inst.n, np.int32), np.ones((1, m), np.bool_),
-        )  # fmt: skip
+        farm = Farm(speeds, free, np.zeros(inst.n, np.int32), np.ones((1, m), np.bool_))
+        node_of, start = earliest_finish(inst.order_longest_first, inst.durations, farm)
         sched = Schedule(inst, node_of, start)
-        rank, tables = cf.plan_order(sched), cf._dispatch_tables(sched)
+        tables = cf.dispatch_tables(sched)
         group = max(4, int(math.sqrt(m)))
         for _ in range(3):
             dur = inst.durations * rng.lognormal(0, 0.5, inst.n)
             a, b, c = np.empty(m), np.empty(m), np.empty(m)
-            cf.dispatch_row_plain(dur, speeds, free, tables[1], group, a)
-            cf.dispatch_row_plain.py_func(dur, speeds, free, tables[1], group, b)
-            cf.dispatch_row(dur, speeds, free, rank, *tables, c)
+            cf.dispatch_row_plain(dur, speeds, free, tables.type_jobs, group, a)
+            cf.dispatch_row_plain.py_func(dur, speeds, free, tables.type_jobs, group, b)
+            cf.dispatch_row(dur, speeds, free, tables, c)
             np.testing.assert_array_equal(a, b)
             np.testing.assert_array_equal(a, c)
             np.testing.assert_allclose(a, reference_dispatch(sched, dur), rtol=1e-12)
@@ -311,16 +314,16 @@ def test_dynamic_samples_respect_grahams_list_bound() -> None:
     durations; we check both dispatch kernels on independent lognormal draws."""
     inst = Instance.build(studio_batch(120, 4), 9)
     sched = longest_first_schedule(inst)
-    rank, tables = cf.plan_order(sched), cf._dispatch_tables(sched)
+    tables = cf.dispatch_tables(sched)
     rng = np.random.default_rng(8)
     ones, zeros = np.ones(inst.m), np.zeros(inst.m)
     for _ in range(20):
         dur = inst.durations * rng.lognormal(0, 0.7, inst.n)
         fin = np.empty(inst.m)
-        cf.dispatch_row(dur, ones, zeros, rank, *tables, fin)
+        cf.dispatch_row(dur, ones, zeros, tables, fin)
         bound = dur.sum() / inst.m + (1 - 1 / inst.m) * dur.max()
         assert fin.max() <= bound * (1 + 1e-12)
-        cf.dispatch_row_plain(dur, ones, zeros, tables[1], 4, fin)
+        cf.dispatch_row_plain(dur, ones, zeros, tables.type_jobs, 4, fin)
         assert fin.max() <= bound * (1 + 1e-12)
 
 

@@ -16,7 +16,8 @@ from workers.planning.budget import Budget
 from workers.planning.errors import Infeasible, InvalidInstance
 from workers.planning.model import Instance, Node
 from workers.planning.rental import CAUTION, Kind, RentalArgs, rent, rental_instance
-from workers.planning.rental_bounds import cover_bound, pattern_bound, work_bound
+from workers.planning.rental_bounds import pattern_bound, work_bound
+from workers.planning.rental_cover import cover_bound
 from workers.planning.sizing_request import SizingArgs, size_request
 
 UNIT = {"second": 1, "minute": 60, "hour": 3600}

@@ -12,12 +12,15 @@ least total cost; among equal costs, fewer rented nodes. (A farm node with an
 
 :func:`rent` answers a :class:`RentalArgs` with a :class:`RentalResult`: what to rent, the
 plan (:mod:`.rental_plan`, checked exactly), its exact cost, and a lower bound on the
-cheapest cost proven in exact arithmetic (:mod:`.rental_bounds`: ``work``, ``cover``,
-``lp_patterns``). The search: a greedy plan (the free farm first by earliest finish, then
-the kind with the least cost per work), the ``cover`` relaxation's optimum packed best fit
-decreasing (which proves the plan optimal when it fits), then moves that re-kind or close
-rented nodes, within the budget. The cost is for the given estimates and prices, not a
-purchasing decision.
+cheapest cost proven in exact arithmetic (:mod:`.rental_bounds`: ``work``,
+``lp_patterns``; :mod:`.rental_cover`: ``cover``). The search (:mod:`.rental_search`): a
+first plan (the free farm filled scarcest class first, then nodes of the kind with the
+least cost per work), the ``cover`` relaxation's optimum packed node by node to the tick
+(which proves the plan optimal when everything fits), for a batch of a few jobs an
+exhaustive search (:mod:`.rental_branch`, the ``search`` bound), then moves that re-kind
+or close rented nodes and, while the gap is open, more packings until the budget is
+spent. :mod:`.rental_frontier` answers a list of deadlines.
+The cost is for the given estimates and prices, not a purchasing decision.
 """
 
 from __future__ import annotations
@@ -35,7 +38,7 @@ from .certified import Certified
 from .errors import Infeasible, InvalidInstance, Issue
 from .model import FloatArray, Instance, Node
 from .rational import down
-from .rental_bounds import hall_sets
+from .rental_cover import hall_sets
 from .rental_plan import Market, Offer
 from .rental_search import Found, search
 from .result import Schedule
@@ -84,12 +87,15 @@ class RentalArgs:
         offers = [
             Offer(k.name, k.speed, k.provides, k.hour_cost, k.boot, k.max_count) for k in self.kinds
         ]
+        # a farm node busy until the deadline or later can run nothing by it: it is left
+        # out of the search (it runs nothing and costs nothing)
+        open_ = [Fraction(nd.free_at) < Fraction(inst.deadline or 0) for nd in inst.nodes]
         offers += [
             Offer(nd.id, nd.speed, nd.provides, float(c), nd.free_at, 1, f)
             for f, (nd, c) in enumerate(zip(inst.nodes, costs, strict=True))
-            if c is not None
+            if c is not None and open_[f]
         ]
-        free = tuple(f for f, c in enumerate(costs) if c is None)
+        free = tuple(f for f, c in enumerate(costs) if c is None and open_[f])
         mk = Market(inst, tuple(offers), int(BILLING[self.billing]), float(self.min_billed), free)
         _check_runnable(mk)
         _check_counts(mk)
@@ -168,12 +174,17 @@ def _check_runnable(mk: Market) -> None:
         caps = [sp * (d - st) for prov, st, sp in starts if req <= prov and st <= d]
         if caps:
             longest[c] = max(caps)
-    for j, p in enumerate(inst.durations.tolist()):
-        c = int(cls[j])
+    durations = inst.durations
+    for c in range(len(names)):
+        members = np.flatnonzero(cls == c)
+        if not members.size:
+            continue
         if c not in longest:
-            no_tag.append(j)
-        elif Fraction(p) > longest[c]:
-            too_long.append(j)
+            no_tag += members.tolist()
+        elif Fraction(float(durations[members].max())) > longest[c]:  # the rare refusal
+            too_long += [j for j in members.tolist() if Fraction(float(durations[j])) > longest[c]]
+    no_tag.sort()
+    too_long.sort()
     for bad, why in (
         (no_tag, "require tags no kind or farm node provides"),
         (too_long, "are too long for the deadline on every node that can run them"),

@@ -12,14 +12,7 @@ the cost is at least ``sum_c W_c y_c - sum_f cap_f max_{c on f} y_c`` over the f
 nodes ``f`` (the dual of the transportation relaxation: weak duality, checked term by
 term). HiGHS suggests the ``y``; they are clipped to the rule exactly.
 
-``cover`` (:func:`cover_bound`): integer counts. Whatever the plan, the nodes of offer
-``o`` are ``n`` nodes billed ``H`` units in all, and can do at most
-``min(s (U H - n b), s n (D - b))`` work (each node ``s (min(h U, D) - b)``); for every set
-``A`` of classes, the work of ``A`` beyond the free farm nodes that can run it must fit on
-the offers that can. The least ``sum_o price_o U H_o / 3600`` under these constraints is a
-lower bound; it is found exactly by a depth-first branch and bound in integers (work
-scaled by a power of two, cost by a common denominator), with the remaining offers priced
-at their least price per work to cut. Its optimum also guides the plan search.
+``cover``: in :mod:`.rental_cover`.
 
 ``lp_patterns`` (:func:`pattern_bound`): the cutting-stock relaxation over patterns
 (Gilmore and Gomory 1961, 1963 for several stock sizes): a pattern is a set of jobs one
@@ -37,9 +30,7 @@ optimum, hence at most the cheapest cost (``max_count`` is dropped: a relaxation
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 from fractions import Fraction
-from itertools import combinations
 from typing import Any
 
 import numpy as np
@@ -124,201 +115,6 @@ def _transport_duals(
     if res.status != 0:
         return None
     return [max(0.0, -float(x)) for x in res.ineqlin.marginals[:nc]]
-
-
-# -- cover -----------------------------------------------------------------------------
-
-
-@dataclass
-class Cover:
-    """The ``cover`` relaxation's optimum: its cost, and per offer billed units and
-    nodes (``complete`` False: the search stopped early, ``value`` is no bound)."""
-
-    value: Fraction
-    units: dict[int, int]
-    nodes: dict[int, int]
-    complete: bool
-    visited: int
-
-
-def hall_sets(mk: Market) -> list[tuple[frozenset[int], Fraction, frozenset[int]]]:
-    """(classes, work beyond the free farm that can run them, offers that can run them)
-    for every set of classes (singletons and the whole when there are more than 6)."""
-    names, _ = mk.classes
-    work = mk.class_work()
-    nc = len(names)
-    subsets: list[tuple[int, ...]] = []
-    if nc <= 6:
-        for r in range(1, nc + 1):
-            subsets += combinations(range(nc), r)
-    else:
-        subsets = [(c,) for c in range(nc)] + [tuple(range(nc))]
-    best: dict[frozenset[int], tuple[frozenset[int], Fraction]] = {}
-    for sub in subsets:
-        offers = frozenset(o for o in range(len(mk.offers)) for c in sub if mk.offer_serves(o, c))
-        farm = {f for f in mk.free_farm for c in sub if mk.farm_serves(f, c)}
-        need = sum((work[c] for c in sub), Fraction(0))
-        need -= sum((mk.farm_capacity(f) for f in farm), Fraction(0))
-        if need > 0 and (offers not in best or best[offers][1] < need):
-            best[offers] = (frozenset(sub), need)
-    return [(sub, need, offers) for offers, (sub, need) in best.items()]
-
-
-def cover_bound(
-    mk: Market,
-    upper: Fraction | None,
-    budget: Budget,
-    *,
-    extra: Fraction = Fraction(0),
-    max_visits: int = 200_000,
-) -> Cover:
-    """The ``cover`` relaxation (module docstring) by branch and bound. ``upper``: a
-    known cost (a plan's): the search looks for cheaper ones only, and when it finds none
-    the bound is ``upper``. ``extra`` work is added to every set (a guide, not a bound)."""
-    sets = hall_sets(mk)
-    offers = [o for o in range(len(mk.offers)) if mk.capacity(o, mk.htop(o)) > 0]
-    d = mk.d_exact
-    den = [need.denominator for _, need, _ in sets] + [d.denominator]
-    for o in offers:
-        off = mk.offers[o]
-        den += [Fraction(off.speed).denominator * Fraction(off.boot).denominator * d.denominator]
-    scale = math.lcm(*den)
-    cden = math.lcm(*[mk.unit_cost(o).denominator for o in offers] or [1])
-    unit = mk.unit
-    par: dict[int, tuple[int, int, int, int, int, int, int, Fraction]] = {}
-    for o in offers:
-        off = mk.offers[o]
-        s, b = Fraction(off.speed), Fraction(off.boot)
-        a1, b1, c2 = s * unit * scale, s * b * scale, s * (d - b) * scale
-        cost = mk.unit_cost(o) * cden
-        ratio = cost * max(d / unit, Fraction(mk.hmin(o))) / c2  # least cost per work
-        par[o] = (
-            int(a1),
-            int(b1),
-            int(c2),
-            int(cost),
-            mk.hmin(o),
-            mk.htop(o),
-            off.max_count,
-            ratio,
-        )
-    offers.sort(key=lambda o: (-par[o][7], o))  # dearest per work first, cheapest last
-    needs = [int((need + extra) * scale) for _, need, _ in sets]
-    member = {o: [i for i, (_, _, offs) in enumerate(sets) if o in offs] for o in offers}
-    ns = len(sets)
-    # per set and depth: the least ratio and the most capacity of the offers from there on
-    ratio_from = [[Fraction(-1)] * (len(offers) + 1) for _ in range(ns)]
-    cap_from = [[0] * (len(offers) + 1) for _ in range(ns)]
-    for a in range(ns):
-        for i in range(len(offers) - 1, -1, -1):
-            o = offers[i]
-            ratio_from[a][i] = ratio_from[a][i + 1]
-            cap_from[a][i] = cap_from[a][i + 1]
-            if a in member[o]:
-                r = par[o][7]
-                old = ratio_from[a][i]
-                ratio_from[a][i] = r if old < 0 else min(old, r)
-                cap_from[a][i] += par[o][2] * par[o][6]
-    best_int = None if upper is None else math.ceil(upper * cden)
-    best_sol: dict[int, tuple[int, int]] | None = None
-    chosen: dict[int, tuple[int, int]] = {}
-    state = {"visits": 0, "stopped": False}
-
-    def capacity(o: int, h: int) -> tuple[int, int] | None:
-        a1, b1, c2, _, hmin, htop, mc, _ = par[o]
-        if h == 0:
-            return 0, 0
-        lo, hi = max(1, -(-h // htop)), mc if hmin == 0 else min(mc, h // hmin)
-        if lo > hi:
-            return None
-        cross = a1 * h // (b1 + c2)
-        best = None
-        for n in {lo, hi, min(max(cross, lo), hi), min(max(cross + 1, lo), hi)}:
-            v = min(a1 * h - b1 * n, c2 * n)
-            if best is None or v > best[0] or (v == best[0] and n < best[1]):
-                best = (v, n)
-        return best
-
-    def covering(o: int, need: int) -> int | None:
-        """The fewest units of offer ``o`` whose capacity reaches ``need``."""
-        a1, b1, c2, _, hmin, htop, mc, _ = par[o]
-        n = max(1, -(-need // c2))
-        while n <= mc:
-            h = max(n * hmin, -(-(need + b1 * n) // a1))
-            if h <= n * htop:  # more nodes need more units (boot, least units)
-                return h
-            n += 1
-        return None
-
-    def rest(i: int, deficit: list[int]) -> int | None:
-        out = 0
-        for a, dd in enumerate(deficit):
-            if dd > 0:
-                if cap_from[a][i] < dd or ratio_from[a][i] < 0:
-                    return None
-                out = max(out, math.ceil(ratio_from[a][i] * dd))
-        return out
-
-    def dfs(i: int, cost: int, deficit: list[int]) -> None:
-        nonlocal best_int, best_sol
-        state["visits"] += 1
-        if state["visits"] > max_visits or (state["visits"] & 255 == 0 and budget.expired()):
-            state["stopped"] = True
-            return
-        if all(dd <= 0 for dd in deficit):
-            if best_int is None or cost < best_int:
-                best_int, best_sol = cost, dict(chosen)
-            return
-        if i == len(offers):
-            return
-        r = rest(i, deficit)
-        if r is None or (best_int is not None and cost + r >= best_int):
-            return
-        o = offers[i]
-        a1, _, _, uc, _, htop, mc, _ = par[o]
-        need = max([deficit[a] for a in member[o]] or [0])
-        if need <= 0:
-            dfs(i + 1, cost, deficit)
-            return
-        top = covering(o, need)
-        hs: range | list[int]
-        if i == len(offers) - 1:  # the last offer covers what is left at its least
-            hs = [] if top is None else [top]
-        else:
-            hs = range((htop * mc if top is None else top) + 1)
-        for h in hs:
-            if state["stopped"]:
-                break
-            if best_int is not None:
-                # a lower bound for every h' >= h: the units' cost, plus the deficits
-                # left priced at the cheapest later offers (capacity at most a1 h')
-                lb = cost + uc * h
-                for a in member[o]:
-                    ra = ratio_from[a][i + 1]
-                    if ra >= 0 and deficit[a] > 0 and uc >= ra * a1:
-                        lb = max(lb, math.ceil(cost + ra * deficit[a] + (uc - ra * a1) * h))
-                if lb >= best_int:
-                    break
-            got = capacity(o, h)
-            if got is None:
-                continue
-            chosen[o] = (h, got[1])
-            nd = list(deficit)
-            for a in member[o]:
-                nd[a] -= got[0]
-            dfs(i + 1, cost + uc * h, nd)
-            del chosen[o]
-
-    dfs(0, 0, needs)
-    sol = best_sol or {}
-    value = Fraction(best_int, cden) if best_int is not None else Fraction(0)
-    return Cover(
-        value=value,
-        units={o: h for o, (h, _) in sol.items()},
-        nodes={o: n for o, (_, n) in sol.items()},
-        complete=not state["stopped"] and best_int is not None,
-        visited=state["visits"],
-    )
 
 
 # -- lp_patterns -----------------------------------------------------------------------

@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import heapq
 import math
+import random
 from dataclasses import dataclass, field
 from fractions import Fraction
 from functools import cached_property
@@ -35,7 +36,7 @@ import numpy.typing as npt
 
 from .budget import Budget
 from .model import FloatArray, Instance, Node
-from .rational import array_sum, exact_sum
+from .rational import array_sum, exact_sum, ticks
 from .result import Schedule
 
 #: every capacity used by a search is shrunk by this share (the exact check decides)
@@ -87,6 +88,31 @@ class Market:
         index = {s: i for i, s in enumerate(names)}
         return tuple(names), np.array([index[r] for r in req], dtype=np.intp)
 
+    @cached_property
+    def job_ticks(self) -> tuple[list[int], int]:
+        """Every job's duration in ticks rounded up, and the ``n // 10``-th smallest (the
+        margin a fill keeps for its exact completion)."""
+        inst = self.instance
+        _, hi = ticks(inst.durations, inst.resolution)
+        if not hi.size:
+            return [], 1
+        k = max(1, hi.size // 10) - 1
+        return hi.tolist(), max(1, int(np.partition(hi, k)[k]))
+
+    @cached_property
+    def grain(self) -> Fraction:
+        """The largest ``g`` with every duration a whole multiple of it (0: all are 0): any
+        set of jobs sums to a multiple of ``g``."""
+        vals = np.unique(self.instance.durations)
+        vals = vals[vals > 0]
+        if not vals.size:
+            return Fraction(0)
+        if (vals == np.floor(vals)).all() and float(vals.max()) < 2.0**53:
+            return Fraction(int(np.gcd.reduce(vals.astype(np.int64))))
+        exact = [Fraction(v) for v in vals.tolist()]
+        den = math.lcm(*[f.denominator for f in exact])
+        return Fraction(math.gcd(*[int(f * den) for f in exact]), den)
+
     def class_work(self) -> list[Fraction]:
         """The exact work (speed-1 seconds) of each class."""
         names, cls = self.classes
@@ -100,8 +126,25 @@ class Market:
 
     def farm_capacity(self, f: int) -> Fraction:
         """The work farm node ``f`` can do by the deadline, exactly."""
-        nd = self.instance.nodes[f]
-        return Fraction(nd.speed) * max(Fraction(0), self.d_exact - Fraction(nd.free_at))
+        return self._farm_caps[f]
+
+    def farm_room(self, f: int) -> Fraction:
+        """What jobs can fill of farm node ``f``: its capacity rounded down to a whole
+        multiple of the grain (every set of jobs sums to one)."""
+        return self._farm_rooms[f]
+
+    @cached_property
+    def _farm_rooms(self) -> list[Fraction]:
+        g = self.grain
+        return [c if g == 0 else math.floor(c / g) * g for c in self._farm_caps]
+
+    @cached_property
+    def _farm_caps(self) -> list[Fraction]:
+        d = self.d_exact
+        return [
+            Fraction(nd.speed) * max(Fraction(0), d - Fraction(nd.free_at))
+            for nd in self.instance.nodes
+        ]
 
     # -- billing, exactly -------------------------------------------------------------
     def units(self, end: Fraction) -> int:
@@ -115,11 +158,24 @@ class Market:
 
     def hmin(self, o: int) -> int:
         """The fewest units a used node of offer ``o`` is billed."""
-        return self.units(Fraction(self.offers[o].boot))
+        return self._hmin[o]
 
     def htop(self, o: int) -> int:
         """The most units a node of offer ``o`` ending by the deadline is billed."""
-        return max(self.hmin(o), self.units(self.d_exact))
+        return max(self._hmin[o], self._hdeadline)
+
+    @cached_property
+    def _hmin(self) -> list[int]:
+        return [self.units(Fraction(off.boot)) for off in self.offers]
+
+    @cached_property
+    def _hdeadline(self) -> int:
+        return self.units(self.d_exact)
+
+    @cached_property
+    def full_capacity(self) -> list[Fraction]:
+        """Per offer, the work one node can do by the deadline (negative: none)."""
+        return [self.capacity(o, self.htop(o)) for o in range(len(self.offers))]
 
     def unit_cost(self, o: int) -> Fraction:
         """The price of one billed unit of offer ``o``."""
@@ -284,6 +340,60 @@ def greedy(mk: Market) -> tuple[Plan, list[int]]:
     return plan, left
 
 
+#: seeded orders tried, after longest first and its reverse, on a node whose
+#: floating-point clock passes the deadline though its exact end does not
+ORDER_TRIES = 6
+
+
+def clock_order(mk: Market, start: float, speed: float, jobs: list[int]) -> list[int] | None:
+    """``jobs`` (given longest first) in an order whose floating-point clock, as
+    ``Schedule.sequenced`` runs it (one running sum from ``start``), ends by the deadline:
+    as given, reversed, then seeded shuffles (the same every time); None when none does.
+    The exact end does not depend on the order; the rounding of the running sum does."""
+    run = (mk.instance.durations[jobs] / speed).tolist()
+    idx = list(range(len(jobs)))
+    for t in range(ORDER_TRIES + 2):
+        if t < 2:
+            seq = idx if t == 0 else idx[::-1]
+        else:
+            seq = list(idx)
+            random.Random(t - 2).shuffle(seq)
+        clock = start
+        for i in seq:
+            clock = clock + run[i]
+        if clock <= mk.deadline:
+            return [jobs[i] for i in seq]
+        if t == 0 and math.fsum(run) + start > mk.deadline * (1 + 1e-9):
+            return None  # over by more than rounding: no order helps
+    return None
+
+
+def _orders(mk: Market, sched: Schedule) -> npt.NDArray[np.intp] | None:
+    """A job order for ``Schedule.sequenced`` in which every node ends by the deadline in
+    floating point (longest first where that does, :func:`clock_order` elsewhere), or
+    None."""
+    inst = sched.instance
+    lf = inst.order_longest_first
+    node_of = sched.node_of
+    grouped = lf[np.argsort(node_of[lf], kind="stable")]
+    bounds = np.searchsorted(node_of[grouped], np.arange(len(inst.nodes) + 1))
+    late = [  # nodes given jobs that end late (a busy node given none is no part of it)
+        k for k in np.flatnonzero(sched.loads > mk.deadline).tolist() if bounds[k + 1] > bounds[k]
+    ]
+    parts: list[npt.NDArray[np.intp]] = []
+    last = 0
+    for k in late:
+        lo, hi = int(bounds[k]), int(bounds[k + 1])
+        nd = inst.nodes[k]
+        seq = clock_order(mk, nd.free_at, nd.speed, grouped[lo:hi].tolist())
+        if seq is None:
+            return None
+        parts += [grouped[last:lo], np.array(seq, dtype=np.intp)]
+        last = hi
+    parts.append(grouped[last:])
+    return np.concatenate(parts)
+
+
 @dataclass(frozen=True, eq=False)
 class Verified:
     """A plan checked exactly: its schedule, exact cost, rented count per kind."""
@@ -346,8 +456,16 @@ def verify(mk: Market, plan: Plan) -> Verified | None:
     if (node_of < 0).any():
         return None
     sched = Schedule.sequenced(inst.with_nodes(nodes), node_of)
-    if float(sched.loads.max()) > mk.deadline:
-        return None
+    # only nodes that run a job must end by the deadline (a farm node busy past it and
+    # given nothing is no part of the plan)
+    running = np.bincount(node_of, minlength=len(nodes)) > 0
+    if float(sched.loads[running].max()) > mk.deadline:
+        order = _orders(mk, sched)
+        if order is None:
+            return None
+        sched = Schedule.sequenced(sched.instance, node_of, order)
+        if float(sched.loads[running].max()) > mk.deadline:
+            return None
     cost = sum(bills, Fraction(0))
     return Verified(sched, cost, rent, len(kinds), tuple(bills))
 

@@ -18,6 +18,7 @@ from .errors import InvalidInstance, Issue
 from .model import Instance
 from .progress import ProgressHook
 from .rental import RentalArgs, RentalResult
+from .rental_plan import Market
 from .result import PlanResult
 from .sizing import SizingProgressHook, SizingResult
 from .sizing_request import SizingArgs
@@ -60,7 +61,28 @@ class PlanAnswer(Answer[PlanResult | StageResult]):
 
 
 class SizingAnswer(Answer[SizingResult | StageSizingResult | RentalResult]):
-    """A sizing and, with estimate spread, its ``confidence`` (and ``confidence_sizing``)."""
+    """A sizing and, with estimate spread, its ``confidence`` (and ``confidence_sizing``);
+    a rental asked at several deadlines, its ``frontier``."""
+
+
+@dataclass(frozen=True, eq=False)
+class FrontierArgs:
+    """A rental asked at several deadlines (issue 18 point 3): the answer is ``rental`` at
+    its own deadline; ``deadlines`` are the frontier's points, distinct, in ascending
+    order, the answer's deadline among them (the reader adds it when a request's list
+    lacks it)."""
+
+    rental: RentalArgs
+    deadlines: tuple[float, ...]
+
+    def check(self) -> Market:
+        """The answer's checks (:meth:`RentalArgs.check` at its deadline): a point at
+        another deadline that no plan meets is a point without a plan, not a refusal."""
+        return self.rental.check()
+
+    @property
+    def answer_deadline(self) -> float:
+        return float(self.rental.instance.deadline)  # type: ignore[arg-type]
 
 
 def plan(
@@ -102,8 +124,44 @@ def plan(
     return PlanAnswer(res, extra)
 
 
+#: the sizings the confidence simulation does not handle yet: (kind, its name, its fields)
+_UNSIMULATED: tuple[tuple[type, str, str], ...] = (
+    (StageSizingArgs, "stage graphs", "after, uses, limits or slots"),
+)
+
+
+#: what ``POST /v1/sizings`` may ask, as core objects
+SizingAsk = SizingArgs | StageSizingArgs | RentalArgs | FrontierArgs
+
+
+def refuse_spread(args: SizingAsk) -> None:
+    """Refuse estimate spread on a sizing the confidence simulation does not handle yet (a
+    stage graph); on the others, do nothing (a rental's spread inputs are checked by
+    :func:`check_spread`)."""
+    for kind, name, fields in _UNSIMULATED:
+        if isinstance(args, kind):
+            raise InvalidInstance(
+                f"the confidence simulation does not handle {name} yet",
+                [Issue(("spread",), f"not supported with {fields} yet")],
+            )
+
+
+def check_spread(args: SizingAsk, spread: SpreadRequest) -> None:
+    """The checks of a sizing's spread inputs that need no sampling (a q out of reach fails
+    here, before any search): :meth:`SpreadRequest.check` for the single kind,
+    :func:`.confidence.rental.check_rental_spread` for a rental; a stage graph is refused
+    (:func:`refuse_spread`)."""
+    refuse_spread(args)
+    if isinstance(args, RentalArgs | FrontierArgs):
+        from .confidence.rental import check_rental_spread
+
+        check_rental_spread(args.rental if isinstance(args, FrontierArgs) else args, spread)
+    elif isinstance(args, SizingArgs):
+        spread.check(args.base, args.node.speed)
+
+
 def size(
-    args: SizingArgs | StageSizingArgs | RentalArgs,
+    args: SizingAsk,
     *,
     time_budget: float,
     spread: SpreadRequest | None = None,
@@ -112,30 +170,96 @@ def size(
 ) -> SizingAnswer:
     """``POST /v1/sizings``: the fewest nodes meeting the deadline; with spread inputs or a
     target ``confidence`` (``spread``), the ``confidence`` of the answer's plan and, with
-    the target, ``confidence_sizing``. A cancelled sizing skips the simulation."""
+    the target, ``confidence_sizing`` (a rental: ``confidence_rental``); a rental at
+    several deadlines, its ``frontier`` (:func:`rental_frontier`). A cancelled sizing
+    skips the simulation."""
     from .confidence import sizing_confidence
     from .sizing_request import size_request
 
-    if isinstance(args, RentalArgs):
-        if spread is not None:
-            raise InvalidInstance(
-                "the confidence simulation does not handle rentals yet",
-                [Issue(("spread",), "not supported with farm and kinds yet")],
-            )
-        from .rental import rent
-
-        return SizingAnswer(rent(args, Budget(time_budget, should_stop)))
-    if isinstance(args, StageSizingArgs):
-        if spread is not None:
-            raise InvalidInstance(
-                "the confidence simulation does not handle stage graphs yet",
-                [Issue(("spread",), "not supported with after, uses, limits or slots yet")],
-            )
-        return SizingAnswer(size_stages(args, Budget(time_budget, should_stop)))
     if spread is not None:  # a q out of reach fails before the search
-        spread.check(args.base, args.node.speed)
+        check_spread(args, spread)
+    if isinstance(args, RentalArgs | FrontierArgs):
+        return rental_answer(args, Budget(time_budget, should_stop), spread)
+    if isinstance(args, StageSizingArgs):
+        return SizingAnswer(size_stages(args, Budget(time_budget, should_stop)))
     res = size_request(args, time_budget=time_budget, progress=progress, should_stop=should_stop)
     extra: dict[str, Any] = {}
     if spread is not None and res.stop_reason != "cancelled":
         extra = sizing_confidence(res.schedule, spread)
     return SizingAnswer(res, extra)
+
+
+#: share of the time budget the rental answer may use when a target confidence asks
+#: for more rentals after it (:func:`.confidence.rental.rent_to_confidence`)
+ANSWER_SHARE = 0.5
+
+
+def rental_answer(
+    args: RentalArgs | FrontierArgs, budget: Budget, spread: SpreadRequest | None = None
+) -> SizingAnswer:
+    """A rental (:func:`.rental.rent`) or a rental at several deadlines
+    (:func:`rental_frontier`); with spread inputs, the ``confidence`` block of the
+    answer's plan and, with a target q, ``confidence_rental``
+    (:func:`.confidence.rental.rental_confidence`). With a target, the answer (and its
+    frontier) has :data:`ANSWER_SHARE` of the budget and the search to q what is left;
+    the answer at the deadline is that search's first candidate. A cancelled rental
+    skips the simulation."""
+    from .rental import rent
+
+    one = args.rental if isinstance(args, FrontierArgs) else args
+    first = budget.child(ANSWER_SHARE) if spread is not None and spread.target else budget
+    if isinstance(args, FrontierArgs):
+        answer = rental_frontier(args, first)
+    else:
+        answer = SizingAnswer(rent(args, first))
+    res = answer.result
+    if spread is None or not isinstance(res, RentalResult) or res.stop_reason == "cancelled":
+        return answer
+    from .confidence.rental import rental_confidence
+
+    extra = rental_confidence(res, one, spread, budget)
+    return SizingAnswer(res, {**answer.extra, **extra})
+
+
+#: what a frontier point states, as :func:`.rental_frontier.frontier` gives it
+POINT_FIELDS = ("rent", "cost", "cost_lower_bound", "proven_optimal", "gap")
+
+
+def rental_frontier(args: FrontierArgs, budget: Budget) -> SizingAnswer:
+    """The rental at its deadline and the cheapest cost found at each of ``deadlines``.
+
+    The budget is split evenly over the points: the answer's deadline is searched first
+    (:func:`.rental.rent`, with ``1 / len(deadlines)`` of the budget: its plan, its
+    certificate and the single-kind answers), then the others by
+    :func:`.rental_frontier.frontier` with what is left, which gives each, in ascending
+    order, an equal share of the time still left (a point that finishes early leaves its
+    time to the later ones). Each point states what its own search proved, in exact
+    arithmetic, as the library computes it: ``cost`` (a plan meeting that deadline
+    costs this), ``cost_lower_bound`` (no plan meeting it costs less),
+    ``proven_optimal``; or, when no plan meets that deadline, ``feasible: false`` and
+    the ``reason``. ``answer`` marks the point at the answer's deadline, whose values
+    are the answer's own.
+    """
+    from .rental import rent
+    from .rental_frontier import frontier
+
+    res = rent(args.rental, budget.child(1.0 / len(args.deadlines)))
+    at = args.answer_deadline
+    others = [d for d in args.deadlines if d != at]
+    found = iter(frontier(args.rental, others, budget) if others else [])
+    points: list[dict[str, Any]] = []
+    for d in args.deadlines:
+        if d == at:
+            mine = res.to_dict(with_plan=False)
+            points.append(
+                {"deadline": d, "answer": True, "feasible": True}
+                | {k: mine[k] for k in POINT_FIELDS}
+            )
+            continue
+        pt = next(found)
+        head = {"deadline": pt["deadline"], "answer": False, "feasible": pt["feasible"]}
+        if pt["feasible"]:
+            points.append(head | {k: pt[k] for k in POINT_FIELDS})
+        else:
+            points.append(head | {"reason": str(pt["reason"])})
+    return SizingAnswer(res, {"frontier": points})

@@ -12,10 +12,15 @@ Monte-Carlo error. The modules, each with its own sources and reasons in its doc
 ``simulation``  simulate(), its ConfidenceResult, the Wilson interval, confidence_block()
 ``target``      sizing to a confidence: confidence_target(), nodes_for_confidence()
 ``request``     SpreadRequest (what a request body asks for), sizing_confidence()
+``rental``      a rental's plan under spread and renting to a confidence:
+                rental_confidence(), check_rental_spread() (import it from its module:
+                it pulls in the rental search)
 
-Everything callers use is importable from here.
+Everything else callers use is importable from here.
 """
 
+from .kernels import Dispatch as Dispatch
+from .kernels import Draws as Draws
 from .kernels import dispatch_row as dispatch_row
 from .kernels import dispatch_row_plain as dispatch_row_plain
 from .kernels import dynamic_rows as dynamic_rows
@@ -30,8 +35,9 @@ from .simulation import POLICIES as POLICIES
 from .simulation import Z95 as Z95
 from .simulation import ConfidenceResult as ConfidenceResult
 from .simulation import Policy as Policy
-from .simulation import _dispatch_tables as _dispatch_tables  # the kernel tests use it
+from .simulation import block_of as block_of
 from .simulation import confidence_block as confidence_block
+from .simulation import dispatch_tables as dispatch_tables
 from .simulation import plan_order as plan_order
 from .simulation import simulate as simulate
 from .simulation import wilson_interval as wilson_interval
@@ -44,6 +50,7 @@ from .streams import fill_normals as fill_normals
 from .streams import sfc64_raw as sfc64_raw
 from .streams import ziggurat_tables as ziggurat_tables
 from .target import ConfidenceSizing as ConfidenceSizing
+from .target import ConfidenceTarget as ConfidenceTarget
 from .target import confidence_target as confidence_target
 from .target import lpt_plan as lpt_plan
 from .target import nodes_for_confidence as nodes_for_confidence

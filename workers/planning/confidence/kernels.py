@@ -21,6 +21,7 @@ Every kernel is written with ``kernels.jit``, so ``.py_func`` is its pure-Python
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 import numpy as np
 import numpy.typing as npt
@@ -28,6 +29,9 @@ import numpy.typing as npt
 from ..kernels import jit
 from ..model import FloatArray
 from .streams import U64Array, fill_normals
+
+#: job or node indices, and offsets into lists of them
+IndexArray = npt.NDArray[np.int64]
 
 #: EXP_NOTE: the lognormal factor exp(sigma z - shift) is computed in float32 (expf), about
 #: 2 ns a draw cheaper than float64 on the benchmark machine. Its relative error is about
@@ -51,17 +55,26 @@ def _record_last(
     critical[s] = arg
 
 
+class Draws(NamedTuple):
+    """What both policies draw each sample's durations from: job j's duration is its
+    estimate times ``exp(sigma[j] z - shift[j])``, z a standard normal made from the SFC64
+    ``state`` (advanced in place) with the ziggurat tables ``x``, ``k``, ``f``
+    (:func:`.streams.fill_normals`)."""
+
+    state: U64Array
+    sigma: FloatArray
+    shift: FloatArray
+    x: FloatArray
+    k: FloatArray
+    f: FloatArray
+
+
 @jit
 def static_rows(
-    state: U64Array,
+    draws: Draws,
     node_of: npt.NDArray[np.int32],
     weight: FloatArray,
-    sigma: FloatArray,
-    shift: FloatArray,
     base: FloatArray,
-    x: FloatArray,
-    k: FloatArray,
-    f: FloatArray,
     makespan: FloatArray,
     critical: npt.NDArray[np.int32],
 ) -> None:
@@ -70,6 +83,7 @@ def static_rows(
     Node finish = ``base[node]`` (planned finish) + sum of ``weight_j (exp(sigma_j z_j -
     shift_j) - 1)`` over its jobs, with ``weight_j = d_j / speed``; one accumulator per node.
     """
+    state, sigma, shift, x, k, f = draws
     n = weight.shape[0]
     m = base.shape[0]
     z = np.empty(n)
@@ -86,9 +100,7 @@ def static_rows(
 
 
 @jit
-def _sift_down(
-    hfree: FloatArray, hnode: npt.NDArray[np.int64], size: int, i: int, t: float, nd: int
-) -> None:
+def _sift_down(hfree: FloatArray, hnode: IndexArray, size: int, i: int, t: float, nd: int) -> None:
     """Put (``t``, ``nd``) in slot ``i`` of the min-heap on (free time, node index) of
     ``size`` entries and sift it down to its place."""
     while True:
@@ -108,27 +120,34 @@ def _sift_down(
     hnode[i] = nd
 
 
+class Dispatch(NamedTuple):
+    """What dynamic dispatch reads of a plan: the plan's job order, and which jobs each node
+    may take (:func:`.simulation.dispatch_tables` builds it).
+
+    Jobs of each type (a distinct ``requires`` set) are listed in plan order in
+    ``type_jobs[type_start[t]:type_start[t+1]]``; ``node_types[node_types_start[k]:
+    node_types_start[k+1]]`` are the types node k may run.
+    """
+
+    rank: IndexArray  # every job's place in the plan order
+    type_start: IndexArray
+    type_jobs: IndexArray
+    node_types_start: IndexArray
+    node_types: IndexArray
+
+
 @jit
 def dispatch_row(
-    dur: FloatArray,
-    speed: FloatArray,
-    free_at: FloatArray,
-    rank: npt.NDArray[np.int64],
-    type_start: npt.NDArray[np.int64],
-    type_jobs: npt.NDArray[np.int64],
-    node_types_start: npt.NDArray[np.int64],
-    node_types: npt.NDArray[np.int64],
-    finish: FloatArray,
+    dur: FloatArray, speed: FloatArray, free_at: FloatArray, plan: Dispatch, finish: FloatArray
 ) -> int:
     """Dynamic dispatch of one sample; fills ``finish`` per node, returns jobs run.
 
-    Jobs of each type (a distinct ``requires`` set) are listed in plan order in
-    ``type_jobs[type_start[t]:type_start[t+1]]``; ``node_types`` lists, per node, the types
-    it may run. A min-heap on (free time, node index) picks the node that frees first; it
-    takes the job of smallest plan rank among the heads of its types, or retires when none
-    is left for it. (Node indices make the heap's order strict, so which node comes out
-    first does not depend on how the heap was built.)
+    A min-heap on (free time, node index) picks the node that frees first; it takes the job
+    of smallest plan rank among the heads of its types (:class:`Dispatch`), or retires when
+    none is left for it. (Node indices make the heap's order strict, so which node comes
+    out first does not depend on how the heap was built.)
     """
+    rank, type_start, type_jobs, node_types_start, node_types = plan
     m = speed.shape[0]
     head = type_start[:-1].copy()
     hfree = np.empty(m)
@@ -190,7 +209,7 @@ def dispatch_row_plain(
     dur: FloatArray,
     speed: FloatArray,
     free_at: FloatArray,
-    order: npt.NDArray[np.int64],
+    order: IndexArray,
     group: int,
     finish: FloatArray,
 ) -> int:
@@ -230,44 +249,33 @@ def dispatch_row_plain(
 
 @jit
 def dynamic_rows(
-    state: U64Array,
+    draws: Draws,
     durations: FloatArray,
-    sigma: FloatArray,
-    shift: FloatArray,
     speed: FloatArray,
     free_at: FloatArray,
-    rank: npt.NDArray[np.int64],
-    type_start: npt.NDArray[np.int64],
-    type_jobs: npt.NDArray[np.int64],
-    node_types_start: npt.NDArray[np.int64],
-    node_types: npt.NDArray[np.int64],
-    x: FloatArray,
-    k: FloatArray,
-    f: FloatArray,
+    plan: Dispatch,
     makespan: FloatArray,
     critical: npt.NDArray[np.int32],
 ) -> None:
     """Dynamic policy, one sample per entry of ``makespan`` (same draws as static).
 
-    With one job type that every node may run, ``type_jobs`` is the plan order and the
+    With one job type that every node may run, ``plan.type_jobs`` is the plan order and the
     grouped :func:`dispatch_row_plain` does the dispatch; otherwise :func:`dispatch_row`.
     """
+    state, sigma, shift, x, k, f = draws
     n = durations.shape[0]
     m = speed.shape[0]
     z = np.empty(n)
     dur = np.empty(n)
     finish = np.empty(m)
-    plain = type_start.shape[0] == 2 and node_types.shape[0] == m
+    plain = plan.type_start.shape[0] == 2 and plan.node_types.shape[0] == m
     group = max(4, int(math.sqrt(m)))
     for s in range(makespan.shape[0]):
         fill_normals(state, z, x, k, f)
         for j in range(n):
             dur[j] = durations[j] * float(np.exp(np.float32(sigma[j] * z[j] - shift[j])))
         if plain:
-            dispatch_row_plain(dur, speed, free_at, type_jobs, group, finish)
+            dispatch_row_plain(dur, speed, free_at, plan.type_jobs, group, finish)
         else:
-            dispatch_row(
-                dur, speed, free_at, rank, type_start, type_jobs, node_types_start, node_types,
-                finish,
-            )  # fmt: skip
+            dispatch_row(dur, speed, free_at, plan, finish)
         _record_last(finish, s, makespan, critical)

@@ -17,7 +17,7 @@ from ..model import Instance
 from ..result import Schedule
 from .simulation import confidence_block
 from .spread import SpreadModel
-from .target import confidence_target, fewest_nodes
+from .target import ConfidenceTarget, confidence_target
 
 #: request keys that ask for a simulation (as does any job's ``duration_p90``)
 SIMULATION_KEYS = ("spread", "confidence_samples", "confidence")
@@ -49,13 +49,13 @@ class SpreadRequest:
     #: first); the request's choice, ``static`` when not given
     policy: str = "static"
 
-    def check(self, inst: Instance, speed: float) -> tuple[Instance, SpreadModel] | None:
+    def check(self, inst: Instance, speed: float) -> ConfidenceTarget | None:
         """The checks that need no sampling, for the jobs and deadline of ``inst``.
 
         The spread model (a p90 on a zero estimate, a spread too wide to simulate) and,
         with a target, :func:`confidence_target` on nodes of ``speed`` (q out of reach of
         the sample count, or of any node count). Cheap: closed forms, no sampling. With a
-        target, returns what :func:`confidence_target` returns (for :func:`fewest_nodes`).
+        target, returns what :func:`confidence_target` returns, ready for its search.
         """
         if self.target is None:
             SpreadModel.from_instance(inst, self.spread)
@@ -85,8 +85,8 @@ def sizing_confidence(
     ``schedule`` is the sizing's answer: its plan on ``nodes_needed`` nodes of the sized
     kind, with the sizing's deadline. ``confidence`` is :func:`confidence_block` of that
     plan (static, with dynamic inside), exactly as for a plan. With a target q,
-    ``confidence_sizing`` is :func:`nodes_for_confidence` for nodes of the same speed, at
-    most ``asked.max_nodes`` (the sizing's own default when absent). The kind's
+    ``confidence_sizing`` is :meth:`ConfidenceTarget.fewest_nodes` for nodes of the same
+    speed, at most ``asked.max_nodes`` (the sizing's own default when absent). The kind's
     ``provides`` need not be passed on: the sizing has already refused any job whose
     ``requires`` the kind lacks, so every node of the kind may run every job, which is
     what the identical nodes of that search assume. The checks that need no sampling run
@@ -105,20 +105,11 @@ def sizing_confidence(
             threads=threads,
         )
     }
-    if checked is not None:  # a target q: check() returned the jobs it checked
+    if checked is not None:  # a target q: check() returned it, checked
         from ..sizing import DEFAULT_MAX_NODES  # the sizing's own cap on the answer
 
-        assert inst.deadline is not None and asked.target is not None  # as check() found
-        one, model = checked
-        answer = fewest_nodes(
-            one,
-            model,
-            inst.deadline,
-            asked.target,
-            speed=speed,
-            samples=asked.samples,
+        answer = checked.fewest_nodes(
             seed=asked.seed,
-            policy="dynamic" if asked.policy == "dynamic" else "static",
             threads=threads,
             max_nodes=DEFAULT_MAX_NODES if asked.max_nodes is None else asked.max_nodes,
         )

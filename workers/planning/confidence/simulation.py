@@ -17,7 +17,7 @@ from __future__ import annotations
 import math
 import os
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Literal
 
 import numpy as np
@@ -26,7 +26,7 @@ import numpy.typing as npt
 from ..errors import InvalidInstance, Issue
 from ..model import FloatArray
 from ..result import Schedule
-from .kernels import dynamic_rows, static_rows
+from .kernels import Dispatch, Draws, dynamic_rows, static_rows
 from .spread import SpreadModel
 from .streams import U64Array, ziggurat_tables
 
@@ -38,8 +38,6 @@ Z95 = 1.959963984540054
 #: draws per chunk of samples (one random stream each; fixed, so results never depend on
 #: the thread count)
 CHUNK_DRAWS = 1 << 21
-
-IntArray = npt.NDArray[np.int64]
 
 
 # -- results ------------------------------------------------------------------------------
@@ -71,7 +69,6 @@ class ConfidenceResult:
     critical: npt.NDArray[np.int32]
     node_ids: tuple[str, ...]
     model: SpreadModel
-    extras: dict[str, Any] = field(default_factory=dict)
 
     @property
     def deterministic(self) -> bool:
@@ -176,7 +173,6 @@ class ConfidenceResult:
                 f"p{round(100 * q)}": list(self.quantile_interval(q)) for q in (0.5, 0.9, 0.99)
             },
             "critical_nodes": self.critical_nodes(),
-            **self.extras,
         }
 
 
@@ -202,8 +198,9 @@ def plan_order(schedule: Schedule) -> npt.NDArray[np.int64]:
     return rank
 
 
-def _dispatch_tables(schedule: Schedule) -> tuple[IntArray, IntArray, IntArray, IntArray]:
-    """Per job type (distinct ``requires``) its jobs in plan order; per node its types."""
+def dispatch_tables(schedule: Schedule) -> Dispatch:
+    """The plan order; per job type (distinct ``requires``) its jobs in plan order; per node
+    its types."""
     inst = schedule.instance
     rank = plan_order(schedule)
     order = np.argsort(rank)
@@ -218,7 +215,8 @@ def _dispatch_tables(schedule: Schedule) -> tuple[IntArray, IntArray, IntArray, 
     for nd in inst.nodes:
         node_types.extend(t for t, r in enumerate(kind_list) if r <= nd.provides)
         node_types_start.append(len(node_types))
-    return (
+    return Dispatch(
+        rank,
         type_start,
         by_type.astype(np.int64),
         np.asarray(node_types_start, dtype=np.int64),
@@ -264,6 +262,10 @@ def _simulate(
     speed = np.array([nd.speed for nd in inst.nodes], dtype=np.float64)
     free_at = np.array([nd.free_at for nd in inst.nodes], dtype=np.float64)
     x, k, f = ziggurat_tables()
+
+    def draws(state: U64Array) -> Draws:
+        return Draws(state, model.sigma, model.shift, x, k, f)
+
     makespan = np.empty(samples, dtype=np.float64)
     critical = np.empty(samples, dtype=np.int32)
     rows_per_chunk = max(1, CHUNK_DRAWS // max(1, n))
@@ -276,16 +278,12 @@ def _simulate(
         base = schedule.loads.astype(np.float64)
 
         def rows_kernel(state: U64Array, ms: FloatArray, cr: Any) -> None:
-            static_rows(state, node_of, weight, model.sigma, model.shift, base, x, k, f, ms, cr)
+            static_rows(draws(state), node_of, weight, base, ms, cr)
     else:
-        rank = plan_order(schedule)
-        tables = _dispatch_tables(schedule)
+        plan = dispatch_tables(schedule)
 
         def rows_kernel(state: U64Array, ms: FloatArray, cr: Any) -> None:
-            dynamic_rows(
-                state, inst.durations, model.sigma, model.shift, speed, free_at,
-                rank, *tables, x, k, f, ms, cr,
-            )  # fmt: skip
+            dynamic_rows(draws(state), inst.durations, speed, free_at, plan, ms, cr)
 
     def run_chunk(c: int) -> None:
         lo = starts[c]
@@ -330,6 +328,11 @@ def confidence_block(
     kw: dict[str, Any] = {"spread": spread, "samples": samples, "seed": seed}
     static = simulate(schedule, deadline=deadline, policy="static", threads=threads, **kw)
     dynamic = simulate(schedule, deadline=deadline, policy="dynamic", threads=threads, **kw)
+    return block_of(static, dynamic)
+
+
+def block_of(static: ConfidenceResult, dynamic: ConfidenceResult) -> dict[str, Any]:
+    """The ``confidence`` block of one plan's two simulations (:func:`confidence_block`)."""
     out = static.to_dict()
     dyn = dynamic.to_dict()
     out["dynamic"] = {key: dyn[key] for key in _DYNAMIC_KEYS}

@@ -1,8 +1,9 @@
 """Sizing to a confidence: the fewest nodes whose plan meets the deadline with P >= q.
 
 :func:`confidence_target` makes the checks that need no sampling (closed forms);
-:func:`nodes_for_confidence` then searches the node count, simulating the longest-first
-plan of each count it tries and deciding on the lower end of the 95% Wilson interval.
+:meth:`ConfidenceTarget.fewest_nodes` then searches the node count, simulating the
+longest-first plan of each count it tries and deciding on the lower end of the 95% Wilson
+interval; :func:`nodes_for_confidence` does both.
 """
 
 from __future__ import annotations
@@ -11,7 +12,7 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from fractions import Fraction
-from typing import Any
+from typing import Any, TypedDict, Unpack
 
 import numpy as np
 
@@ -67,6 +68,19 @@ def lpt_plan(inst: Instance) -> Schedule:
     return Schedule(inst, node_of, start)
 
 
+def check_samples_show(model: SpreadModel, samples: int, q: float) -> None:
+    """Refuse a q that ``samples`` cannot show: with N samples the Wilson lower limit is at
+    most N / (N + z^2), reached when every sample meets the deadline (no limit without
+    spread: the answer is exact)."""
+    best_limit = 1.0 if model.deterministic else wilson_interval(samples, samples)[0]
+    if best_limit < q:
+        need = math.ceil(Z95 * Z95 * q / (1 - q))
+        raise InvalidInstance(
+            f"with {samples} samples the 95% lower limit cannot reach {q}",
+            [Issue(("confidence_samples",), f"need at least about {need} samples for q = {q}")],
+        )
+
+
 def confidence_target(
     durations: Sequence[float] | FloatArray,
     deadline: float,
@@ -78,16 +92,16 @@ def confidence_target(
     samples: int = 1000,
     policy: Policy = "static",
     job_ids: Sequence[str] | None = None,
-) -> tuple[Instance, SpreadModel]:
-    """The checks of a sizing to confidence ``q`` that need no sampling; (jobs, model).
+) -> ConfidenceTarget:
+    """The checks of a sizing to confidence ``q`` that need no sampling.
 
     Raises :class:`InvalidInstance` for bad arguments and when ``samples`` cannot show
     ``q`` at all (with N samples the Wilson lower limit is at most N / (N + z^2), reached
     when every sample meets the deadline), and :class:`Infeasible` when no node count can
     reach ``q``: with every job alone on a node the makespan is the longest job, so the
     product of the jobs' own chances (:func:`job_probabilities`, a closed form) bounds
-    P(meet) from above for any plan. Returns the jobs on one node (the node count is
-    what the caller varies) and their spread model.
+    P(meet) from above for any plan. Returns the target, ready for its search
+    (:meth:`ConfidenceTarget.fewest_nodes`).
     """
     d = np.asarray(durations, dtype=np.float64)
     issues: list[Issue] = []
@@ -104,13 +118,7 @@ def confidence_target(
     if duration_p90 is not None:
         one = _with_p90(one, duration_p90)
     model = SpreadModel.from_instance(one, spread)
-    best_limit = 1.0 if model.deterministic else wilson_interval(samples, samples)[0]
-    if best_limit < q:
-        need = math.ceil(Z95 * Z95 * q / (1 - q))
-        raise InvalidInstance(
-            f"with {samples} samples the 95% lower limit cannot reach {q}",
-            [Issue(("confidence_samples",), f"need at least about {need} samples for q = {q}")],
-        )
+    check_samples_show(model, samples, q)
     reach = job_probabilities(model, one.durations / speed, float(deadline))
     alone = float(np.prod(reach))
     if alone < q:
@@ -125,7 +133,19 @@ def confidence_target(
                 for j in worst
             ],
         )
-    return one, model
+    return ConfidenceTarget(one, model, deadline, q, speed, samples, policy)
+
+
+class TargetOptions(TypedDict, total=False):
+    """The keyword options of :func:`confidence_target` (its defaults apply to those left
+    out), as :func:`nodes_for_confidence` takes them."""
+
+    speed: float
+    duration_p90: Sequence[float | None] | None
+    spread: float | None
+    samples: int
+    policy: Policy
+    job_ids: Sequence[str] | None
 
 
 def nodes_for_confidence(
@@ -133,69 +153,58 @@ def nodes_for_confidence(
     deadline: float,
     q: float,
     *,
-    speed: float = 1.0,
-    duration_p90: Sequence[float | None] | None = None,
-    spread: float | None = None,
-    samples: int = 1000,
     seed: int = 0,
-    policy: Policy = "static",
     max_nodes: int | None = None,
     threads: int | None = None,
-    job_ids: Sequence[str] | None = None,
+    **options: Unpack[TargetOptions],
 ) -> ConfidenceSizing:
-    """Fewest identical nodes (of ``speed``) whose LPT plan meets ``deadline`` with P >= q.
-
-    Decided on the **lower end of the 95% Wilson interval**, so that the answer holds
-    despite the simulation's own error: a count passes when the Wilson lower limit of its
-    P(meet) is at least ``q``. The search starts at the deterministic lower bound
-    ``ceil(total / (speed * deadline))``, gallops upward (1, 2, 4, ... more nodes) to the
-    first passing count, bisects back between the last failing and the first passing
-    count, then steps down while the count below also passes; the answer passes and the
-    count below it was simulated and failed. LPT plans are not monotone in the node count
-    (Graham 1969's anomalies), so "fewest" is this search's answer, verified at the
-    answer and one below. Every count uses the same seed: paired comparisons. The checks
-    that need no sampling come first (:func:`confidence_target`).
-    """
-    one, model = confidence_target(
-        durations,
-        deadline,
-        q,
-        speed=speed,
-        duration_p90=duration_p90,
-        spread=spread,
-        samples=samples,
-        policy=policy,
-        job_ids=job_ids,
-    )
-    return fewest_nodes(
-        one,
-        model,
-        deadline,
-        q,
-        speed=speed,
-        samples=samples,
-        seed=seed,
-        policy=policy,
-        max_nodes=max_nodes,
-        threads=threads,
-    )
+    """Fewest identical nodes (of ``speed``) whose LPT plan meets ``deadline`` with P >= q:
+    the checks that need no sampling (:func:`confidence_target`, with ``options``), then
+    the search (:meth:`ConfidenceTarget.fewest_nodes`)."""
+    target = confidence_target(durations, deadline, q, **options)
+    return target.fewest_nodes(seed=seed, max_nodes=max_nodes, threads=threads)
 
 
-def fewest_nodes(
-    one: Instance,
-    model: SpreadModel,
-    deadline: float,
-    q: float,
-    *,
-    speed: float,
-    samples: int,
-    seed: int,
-    policy: Policy,
-    max_nodes: int | None,
-    threads: int | None,
+@dataclass(frozen=True, eq=False)
+class ConfidenceTarget:
+    """A sizing to confidence ``q`` that passed the checks needing no sampling
+    (:func:`confidence_target`): the jobs on one node (the node count is what the search
+    varies), their spread model, and what the search decides by."""
+
+    one: Instance
+    model: SpreadModel
+    deadline: float
+    q: float
+    speed: float
+    samples: int
+    policy: Policy
+
+    def fewest_nodes(
+        self, *, seed: int = 0, max_nodes: int | None = None, threads: int | None = None
+    ) -> ConfidenceSizing:
+        """Fewest identical nodes (of ``speed``) whose LPT plan meets ``deadline`` with
+        P >= q.
+
+        Decided on the **lower end of the 95% Wilson interval**, so that the answer holds
+        despite the simulation's own error: a count passes when the Wilson lower limit of
+        its P(meet) is at least ``q``. The search starts at the deterministic lower bound
+        ``ceil(total / (speed * deadline))``, gallops upward (1, 2, 4, ... more nodes) to
+        the first passing count, bisects back between the last failing and the first
+        passing count, then steps down while the count below also passes; the answer
+        passes and the count below it was simulated and failed. LPT plans are not monotone
+        in the node count (Graham 1969's anomalies), so "fewest" is this search's answer,
+        verified at the answer and one below. Every count uses the same seed: paired
+        comparisons.
+        """
+        return _fewest_nodes(self, seed, max_nodes, threads)
+
+
+def _fewest_nodes(
+    target: ConfidenceTarget, seed: int, max_nodes: int | None, threads: int | None
 ) -> ConfidenceSizing:
-    """The search of :func:`nodes_for_confidence` on what :func:`confidence_target`
-    returned for the same arguments (the jobs on one node and their spread model)."""
+    """The search of :meth:`ConfidenceTarget.fewest_nodes`."""
+    one, model, deadline, q = target.one, target.model, target.deadline, target.q
+    speed, samples, policy = target.speed, target.samples, target.policy
     n = one.n
     upper = n if max_nodes is None else min(int(max_nodes), max(n, 1))
     # the work needs this many nodes by the deadline, in exact arithmetic
