@@ -19,6 +19,19 @@ asked for beyond the answer. Run::
     python bench/sizing.py            # the full grid (a few minutes)
     python bench/sizing.py --quick    # 1,000 and 10,000 jobs only
     python bench/sizing.py --mix triplets --sizes 100000   # one mix, one size
+    python bench/sizing.py --ratios 1.5 2 2.5              # only these jobs-per-node aims
+    python bench/sizing.py --quick --mix frames --ratios 1.5 2 --diagnose
+
+``--diagnose`` says, for every batch left open, which side is off: offline (30 s each,
+after the timed run) the LP bound of sizing_lp on the *full* set of distinct lengths
+(LPBound's MAX_LENGTHS raised in this process only; every refutation still checked by
+Farley's certificate in integers) and the LP's dive at that bound on the exact lengths;
+a packing there is the optimum, so the bound was off by (that bound - lower) and the
+plan by (upper - that bound).
+
+Ratios 1.5, 2, 2.5, 3, 5, 10 and 30 by default; the summary gives the share proven per
+ratio (mixes other than triplets, which always aim at 3) and the slowest sizing against
+the budget + 5 % + 50 ms.
 
 With ``--mix`` or ``--sizes`` the summary lines count only the rows that ran.
 """
@@ -31,6 +44,7 @@ import sys
 import time
 from collections import defaultdict
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -40,7 +54,7 @@ from workers.planning.sizing import size
 from workers.planning.warmup import warm_up_sizing as warm_up
 
 MIXES = ("frames", "bimodal", "lognormal", "triplets")
-RATIOS = (2, 3, 10, 30)  # jobs per node the deadline aims at
+RATIOS = (1.5, 2, 2.5, 3, 5, 10, 30)  # jobs per node the deadline aims at
 
 
 def durations(mix: str, n: int, rng: np.random.Generator) -> np.ndarray:
@@ -68,7 +82,7 @@ def triplets(n: int, cap: int, rng: np.random.Generator) -> np.ndarray:
     return out
 
 
-def batch(mix: str, n: int, ratio: int, seed: int) -> tuple[np.ndarray, float]:
+def batch(mix: str, n: int, ratio: float, seed: int) -> tuple[np.ndarray, float]:
     """One seeded batch and its deadline."""
     rng = np.random.default_rng(seed)
     if mix == "triplets":
@@ -90,6 +104,12 @@ def main() -> None:
     ap.add_argument(
         "--sizes", type=int, nargs="+", help="only these batch sizes (jobs), e.g. 100000"
     )
+    ap.add_argument(
+        "--diagnose", action="store_true", help="after each open batch: which side is off"
+    )
+    ap.add_argument(
+        "--ratios", type=float, nargs="+", help=f"jobs per node to aim at (default {RATIOS})"
+    )
     args = ap.parse_args()
     sizes = (1_000, 10_000) if args.quick else (1_000, 10_000, 100_000)
     if args.sizes:
@@ -100,16 +120,19 @@ def main() -> None:
     first: dict[int, list[float]] = defaultdict(list)
     for n in sizes:
         for mix in mixes:
-            ratios = (3,) if mix == "triplets" else RATIOS
+            ratios = (3,) if mix == "triplets" else tuple(args.ratios or RATIOS)
             for ratio in ratios:
                 res = []
                 for s in range(args.seeds):
-                    d, deadline = batch(mix, n, ratio, 1000 * n + 10 * ratio + s)
+                    # the seed of ratio 2 is 1000 n + 20 + s, as before ratios 1.5 and 2.5
+                    d, deadline = batch(mix, n, ratio, round(1000 * n + 10 * ratio) + s)
                     t0 = time.perf_counter()
                     r = size(d, deadline, time_budget=args.budget, max_nodes=10**6)
                     wall = time.perf_counter() - t0
                     res.append((r, wall))
                     first[n].append(r.first_answer_seconds)
+                    if args.diagnose and not r.proven_optimal:
+                        diagnose(d, deadline, r.nodes_lower_bound, r.nodes_needed)
                 jobs_per_node = statistics.mean(n / r.nodes_lower_bound for r, _ in res)
                 row = {
                     "n": n,
@@ -118,6 +141,7 @@ def main() -> None:
                     "jobs_per_node": jobs_per_node,
                     "first_ms": 1000 * statistics.median(r.first_answer_seconds for r, _ in res),
                     "wall_ms": 1000 * statistics.median(w for _, w in res),
+                    "wall_max_ms": 1000 * max(w for _, w in res),
                     "proven": sum(r.proven_optimal for r, _ in res),
                     "count": len(res),
                     "ffd_excess": sum(r.ffd_excess for r, _ in res),
@@ -128,21 +152,73 @@ def main() -> None:
                 }
                 rows.append(row)
                 print(
-                    f"{n:>7} {mix:<10} r={ratio:<3} jobs/node {jobs_per_node:6.2f}  "
-                    f"first {row['first_ms']:7.1f} ms  total {row['wall_ms']:7.1f} ms  "
+                    f"{n:>7} {mix:<10} r={ratio:<4g} jobs/node {jobs_per_node:6.2f}  "
+                    f"first {row['first_ms']:7.1f} ms  total {row['wall_ms']:7.1f} ms "
+                    f"(max {row['wall_max_ms']:.0f})  "
                     f"proven {row['proven']}/{row['count']}  open gap {row['gap']}  "
                     f"FFD +{row['ffd_excess']} ({row['ffd_worse']} batches)  "
                     f"[{row['sources']}; {row['methods']}]",
                     flush=True,
                 )
-    lines = summary(rows, first)
+    lines = summary(rows, first, args.budget)
     print("\n".join(lines))
     if args.out:
         Path(args.out).write_text(table(rows, lines, args), encoding="utf-8")
 
 
-def summary(rows: list[dict], first: dict[int, list[float]]) -> list[str]:
+def diagnose(d: np.ndarray, deadline: float, lower: int, upper: int) -> None:
+    """Print which side of an open sizing is off (see the module docstring)."""
+    from workers.planning import sizing_lp
+    from workers.planning.exact import lpbound
+
+    if not (np.all(d == np.round(d)) and float(deadline).is_integer()):
+        print("      (diagnose: whole seconds only)")
+        return
+    q, cap = d.astype(np.int64), int(deadline)
+    saved = lpbound.MAX_LENGTHS
+    lpbound.MAX_LENGTHS = max(saved, int(np.unique(q).size))
+    try:
+        t0 = time.perf_counter()
+        out = sizing_lp.lp_lower(q, cap, lower, upper, 30.0)
+        t1 = time.perf_counter()
+        packing = sizing_lp.lp_dive(q, cap, out.lower, 30.0) if out.lower < upper else None
+        t2 = time.perf_counter()
+    finally:
+        lpbound.MAX_LENGTHS = saved
+    loads = np.bincount(packing, weights=q) if packing is not None else np.zeros(0)
+    packed = packing is not None and int(packing.max()) < out.lower and loads.max() <= cap
+    verdict = (
+        f"optimum {out.lower}: bound off by {out.lower - lower}, plan off by {upper - out.lower}"
+        if packed or out.lower >= upper
+        else f"optimum in [{out.lower}, {upper}] (no dive packing at {out.lower})"
+    )
+    dive = "packed" if packed else ("failed" if out.lower < upper else "not needed")
+    print(
+        f"      open: lower {lower}, upper {upper}; full-length LP bound {out.lower} "
+        f"({t1 - t0:.1f} s), dive at it {dive} ({t2 - t1:.1f} s): {verdict}",
+        flush=True,
+    )
+
+
+def summary(rows: list[dict[str, Any]], first: dict[int, list[float]], budget: float) -> list[str]:
     out = []
+    by_ratio: dict[float, list[int]] = defaultdict(lambda: [0, 0])
+    for r in rows:
+        if r["mix"] != "triplets":
+            by_ratio[r["ratio"]][0] += r["proven"]
+            by_ratio[r["ratio"]][1] += r["count"]
+    for ratio, (p, c) in sorted(by_ratio.items()):
+        out.append(
+            f"proven optimal at ratio {ratio:g} (mixes other than triplets): "
+            f"{p}/{c} = {100 * p / max(1, c):.1f} %"
+        )
+    limit = 1000 * (1.05 * budget + 0.05)
+    worst = max((r["wall_max_ms"] for r in rows), default=0.0)
+    late = sum(r["wall_max_ms"] > limit for r in rows)
+    out.append(
+        f"slowest sizing {worst:.0f} ms (budget + 5 % + 50 ms = {limit:.0f} ms; "
+        f"cells with a sizing past it: {late})"
+    )
     for n, vals in sorted(first.items()):
         out.append(
             f"median time to first answer, {n:,} jobs: {1000 * statistics.median(vals):.1f} ms"
@@ -171,25 +247,30 @@ def summary(rows: list[dict], first: dict[int, list[float]]) -> list[str]:
     return out
 
 
-def table(rows: list[dict], lines: list[str], args: argparse.Namespace) -> str:
+def table(rows: list[dict[str, Any]], lines: list[str], args: argparse.Namespace) -> str:
     cmd = "python bench/sizing.py" + (" --quick" if args.quick else "")
     for mix in args.mix or ():
         cmd += f" --mix {mix}"
     if args.sizes:
         cmd += " --sizes " + " ".join(str(n) for n in args.sizes)
+    if args.diagnose:
+        cmd += " --diagnose"
+    if args.ratios:
+        cmd += " --ratios " + " ".join(f"{x:g}" for x in args.ratios)
     if args.seeds != 5:
         cmd += f" --seeds {args.seeds}"
     if args.budget != 1.0:
         cmd += f" --budget {args.budget}"
     head = [
         "| jobs | mix | ratio | jobs per node (at the lower bound) | first answer (median ms) "
-        "| total (median ms) | proven | open gap (nodes) | FFD above answer (batches, nodes) "
-        "| bound | plan |",
-        "|---:|---|---:|---:|---:|---:|---:|---:|---:|---|---|",
+        "| total (median ms) | total (max ms) | proven | open gap (nodes) "
+        "| FFD above answer (batches, nodes) | bound | plan |",
+        "|---:|---|---:|---:|---:|---:|---:|---:|---:|---:|---|---|",
     ]
     body = [
-        f"| {r['n']:,} | {r['mix']} | {r['ratio']} | {r['jobs_per_node']:.2f} | "
-        f"{r['first_ms']:.1f} | {r['wall_ms']:.1f} | {r['proven']}/{r['count']} | {r['gap']} | "
+        f"| {r['n']:,} | {r['mix']} | {r['ratio']:g} | {r['jobs_per_node']:.2f} | "
+        f"{r['first_ms']:.1f} | {r['wall_ms']:.1f} | {r['wall_max_ms']:.0f} | "
+        f"{r['proven']}/{r['count']} | {r['gap']} | "
         f"{r['ffd_worse']}, +{r['ffd_excess']} | {r['sources']} | {r['methods']} |"
         for r in rows
     ]

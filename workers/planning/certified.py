@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 from abc import ABC, abstractmethod
+from collections.abc import Mapping
 from fractions import Fraction
 from typing import Any
 
@@ -87,6 +88,21 @@ class NodeCountAnswer(Certified):
     def exact_lower_bound(self) -> Fraction:
         return Fraction(self.nodes_lower_bound)
 
+    def contract_head(self, bounds: Mapping[str, int], gap: float | None) -> dict[str, Any]:
+        """The keys every sizing ``result`` object starts with, in the contract's order:
+        the count, its proven bound, the rule and every bound (``bounds``), the flag, the
+        ``gap`` as the result reports it, the stop reason and the time."""
+        return {
+            "nodes_needed": self.nodes_needed,
+            "nodes_lower_bound": self.nodes_lower_bound,
+            "bound_source": self.bound_source,
+            "bounds": dict(bounds),
+            "proven_optimal": self.proven_optimal,
+            "gap": gap,
+            "stop_reason": self.stop_reason,
+            "solve_seconds": self.solve_seconds,
+        }
+
 
 class MakespanAnswer(Certified):
     """A :class:`Certified` plan: its value is a makespan in seconds. Holds what every plan
@@ -114,6 +130,25 @@ class MakespanAnswer(Certified):
     def lower_bound(self) -> float:
         """The best proven bound, rounded down (never above the proof)."""
         return down(self.exact_lower_bound)
+
+    def contract_head(self, bounds: Mapping[str, float], gap: float | None) -> dict[str, Any]:
+        """The keys every plan ``result`` object starts with, in the contract's order: the
+        makespan, its proven bound, the rule and every bound (``bounds``), the ``gap`` as
+        the result reports it, the flag, the method and its ratio, the stop reason, the
+        time and the deadline verdict."""
+        return {
+            "makespan": self.makespan,
+            "lower_bound": self.lower_bound,
+            "bound_source": self.bound_source,
+            "bounds": dict(bounds),
+            "gap": gap,
+            "proven_optimal": self.proven_optimal,
+            "method": self.method,
+            "worst_case_ratio": self.worst_case_ratio,
+            "stop_reason": self.stop_reason,
+            "solve_seconds": self.solve_seconds,
+            "deadline": self.deadline_dict(),
+        }
 
     def deadline_dict(self) -> dict[str, Any] | None:
         """The contract's ``deadline`` object: met, slack, provably unreachable (exact)."""

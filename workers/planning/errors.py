@@ -9,6 +9,7 @@ code.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 #: where in an input a problem is: field names and list positions from its root,
@@ -66,3 +67,17 @@ class Infeasible(SpanwrightError):
     def __init__(self, detail: str, jobs: list[str], issues: list[Issue] | None = None) -> None:
         super().__init__(detail, issues)
         self.jobs = list(jobs)
+
+    @classmethod
+    def naming(
+        cls, why: str, job_ids: Sequence[str], bad: Sequence[int], issue: Callable[[int], Issue]
+    ) -> Infeasible:
+        """``"N job(s) {why}: a, b, ..."`` for the jobs at indices ``bad`` of ``job_ids``,
+        naming the first ten in the sentence, all of them in ``jobs``, and giving the first
+        twenty ``issue(j)``."""
+        ids = [job_ids[j] for j in bad]
+        return cls(
+            f"{len(ids)} job(s) {why}: " + ", ".join(ids[:10]) + (" ..." if len(ids) > 10 else ""),
+            jobs=ids,
+            issues=[issue(j) for j in bad[:20]],
+        )

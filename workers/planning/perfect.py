@@ -189,7 +189,11 @@ def perfect_fill(
 
 
 def warm_up() -> None:
-    """Compile (or load from numba's cache) both kernels on a tiny input."""
+    """Compile (or load from numba's cache) both kernels on a tiny input, and the LP
+    kernels sizing runs before them (:mod:`.sizing_lp`)."""
+    from .sizing_lp import warm_up as lp_warm_up
+
     q = np.array([5, 4, 3, 3, 2, 1], dtype=np.int64)
     bin_of, _ = exact_fill(q, 6, 3, 0, 10, 0)
     eject_walk(q, 6, 0, 10, walk_start(q, 6, 3, bin_of, 0))
+    lp_warm_up()

@@ -4,12 +4,13 @@ With identical nodes this is one-dimensional bin packing: every node is a bin wh
 capacity is the deadline, every job an item of ``duration / speed`` seconds
 (``../shared/references.md`` section 5). The answer is an interval, proven from both
 sides: ``nodes_needed`` comes with a plan that meets the deadline (first fit decreasing,
-best fit decreasing, the perfect packing search of :mod:`workers.planning.perfect` at
-the lower bound, minimum bin slack, the local search or the exact search), and
-``nodes_lower_bound`` with the rule that
-proves no plan with fewer nodes exists (``total_work`` = the work over the deadline
-rounded up; Martello-Toth ``L2``; the ``cardinality`` bound; ``search`` when the exact
-search refuted a count). When they meet, the answer is proven optimal.
+best fit decreasing, the LP's dive of :mod:`.sizing_lp`, the perfect packing search of
+:mod:`workers.planning.perfect` at the lower bound, minimum bin slack, the local search
+or the exact search), and ``nodes_lower_bound`` with the rule that proves no plan with
+fewer nodes exists (``total_work`` = the work over the deadline rounded up;
+Martello-Toth ``L2``; the ``cardinality`` bound; on batches of few jobs per node
+``matching`` and the LP bound ``lp_farley`` of :mod:`.sizing_lp`; ``search`` when the
+exact search refuted a count). When they meet, the answer is proven optimal.
 
 Rounding, so that both sides stay proofs for the true (real) durations. Work is
 measured in ticks of ``resolution`` seconds of a speed-1 node; a node can do
@@ -65,10 +66,11 @@ from .errors import Infeasible, InvalidInstance, Issue
 from .kernels import least_loaded
 from .model import Instance, Node
 from .perfect import perfect_fill
-from .rational import MAX_TICKS, array_sum, ceil_div, decimal_up, down, ticks, up
+from .rational import array_sum, ceil_div, down, ticks, up
 from .result import Schedule
 from .sizing_fit import Fit as _Fit
-from .sizing_result import (
+from .sizing_lp import LP_SHARE, LPOutcome, lp_step, lp_worth
+from .sizing_result import (  # re-exported for their importers
     BILLING as BILLING,
 )
 from .sizing_result import (
@@ -95,6 +97,9 @@ from .sizing_result import (
 from .sizing_result import (
     cost_of as cost_of,
 )
+from .sizing_ticks import _tick_limit as _tick_limit
+from .sizing_ticks import capacity_ticks as capacity_ticks
+from .sizing_ticks import work_ticks as work_ticks
 
 #: billing granularities and their unit in seconds
 DEFAULT_MAX_NODES = 2000
@@ -120,56 +125,15 @@ FILL_MIN_JOBS = 60
 EXACT_MAX_BINS = 1000
 #: best fit decreasing runs for batches up to this many jobs (its bin moves grow with n)
 BFD_MAX_JOBS = 50_000
+#: what follows the searches (the plan's nodes, the curve) costs about this much per job
+#: and per node of the best plan (0.2 s for 100,000 jobs on 50,000 nodes on our machine):
+#: the searches leave it that much of the budget, and at least half of it to themselves
+POST_SECONDS_PER_JOB, POST_SECONDS_PER_NODE = 1e-6, 2.5e-6
 #: curve rows use the lifted bin-packing bound for batches up to this many jobs
 CURVE_LIFT_MAX_JOBS = 20_000
 
 F64 = npt.NDArray[np.float64]
 I64 = npt.NDArray[np.int64]
-
-
-# -- ticks -----------------------------------------------------------------------------
-#: each duration in whole ticks: (rounded down, rounded up), exactly (kept under this name
-#: for its importers; the one algorithm is rational.ticks)
-work_ticks = ticks
-
-
-def capacity_ticks(deadline: float, speed: float, resolution: float) -> int:
-    """floor(deadline * speed / resolution), exactly."""
-    return math.floor(Fraction(deadline) * Fraction(speed) / Fraction(resolution))
-
-
-def _tick_limit(durations: F64, limit: Fraction, resolution: float) -> list[Issue]:
-    """Refuse a capacity or a total work past ``MAX_TICKS`` ticks of ``resolution``.
-
-    Every job is already known to fit the node (at most ``limit`` seconds of speed-1
-    work), so each job's ticks are at most the capacity's plus one. Names the finest
-    resolution that works: with ``W`` the larger of the capacity and the total work in
-    seconds and ``n`` jobs, any ``r >= W / (MAX_TICKS - n)`` keeps both below the limit
-    (ceilings add at most one tick per job), and none below ``W / MAX_TICKS`` does.
-    """
-    tick = Fraction(resolution)
-    cap = math.floor(limit / tick)
-    total = array_sum(durations)
-    n = int(durations.size)
-    if cap <= MAX_TICKS and total / tick + n <= MAX_TICKS:
-        return []
-    if cap <= MAX_TICKS:
-        hi = ticks(durations, resolution)[1]  # each fits int64: at most cap + 1
-        work = sum(hi.tolist())
-        if work <= MAX_TICKS:
-            return []
-    else:
-        work = math.ceil(total / tick)
-    finest = max(limit, total) / max(1, MAX_TICKS - n)
-    shown = decimal_up(finest)
-    return [
-        Issue(
-            ("resolution",),
-            f"too fine: at {resolution:g} s a node holds {cap} ticks and the jobs need "
-            f"{work}, above the limit of 2**53 ({MAX_TICKS}) ticks; use a resolution of at "
-            f"least {shown} s",
-        )
-    ]
 
 
 # -- the core ---------------------------------------------------------------------------
@@ -183,6 +147,38 @@ class _State:
     method: str
     bin_of: npt.NDArray[np.int32]  # by job index
     start: F64
+
+
+@dataclass(frozen=True, eq=False)
+class SizingArgs:
+    """A sizing request read into core objects: the jobs on one node of the kind to rent
+    (``base``, with the deadline and resolution) and the options."""
+
+    base: Instance
+    max_nodes: int
+    node_hour_cost: float | None
+    billing: str
+    curve_nodes: tuple[int, ...]
+
+    @property
+    def node(self) -> Node:
+        return self.base.nodes[0]
+
+    def check(self) -> None:
+        """The checks that need no search (tens of microseconds a job): a job no node of
+        the kind can run or finish in time, a resolution too fine, more nodes needed than
+        ``max_nodes`` by the lower bound alone. Raises what :func:`size` would."""
+        base, node = self.base, self.node
+        deadline = float(base.deadline)  # type: ignore[arg-type]
+        _check_feasible(base, node, base.durations / node.speed, deadline)
+        limit = Fraction(deadline) * Fraction(node.speed)
+        too_fine = _tick_limit(base.durations, limit, base.resolution)
+        if too_fine:
+            raise InvalidInstance("the resolution is too fine for these times", too_fine)
+        q_lo, _ = ticks(base.durations, base.resolution)
+        cap = capacity_ticks(deadline, node.speed, base.resolution)
+        lower, source, _, _ = _lower_bound(q_lo, cap, array_sum(base.durations), limit)
+        _check_lower(lower, source, self.max_nodes)
 
 
 def size(
@@ -221,17 +217,8 @@ def size(
         deadline=deadline,
         resolution=resolution,
     )
-    return _size(
-        base,
-        node,
-        time_budget=time_budget,
-        max_nodes=max_nodes,
-        node_hour_cost=node_hour_cost,
-        billing=billing,
-        curve_nodes=curve_nodes,
-        progress=progress,
-        should_stop=should_stop,
-    )
+    args = SizingArgs(base, max_nodes, node_hour_cost, billing, tuple(curve_nodes))
+    return _size(args, Budget(time_budget, should_stop), progress)
 
 
 def _check_lower(lower: int, source: str, max_nodes: int) -> None:
@@ -284,15 +271,11 @@ def _check_feasible(base: Instance, node: Node, times: F64, deadline: float) -> 
     if base.requires is not None:
         bad = [j for j, r in enumerate(base.requires) if not r <= node.provides]
         if bad:
-            names = [base.job_ids[j] for j in bad]
-            raise Infeasible(
-                f"{len(bad)} job(s) require a tag the node does not provide: "
-                + ", ".join(names[:10])
-                + (" ..." if len(bad) > 10 else ""),
-                jobs=names,
-                issues=[
-                    Issue(("jobs", j, "requires"), "not provided by the node") for j in bad[:20]
-                ],
+            raise Infeasible.naming(
+                "require a tag the node does not provide",
+                base.job_ids,
+                bad,
+                lambda j: Issue(("jobs", j, "requires"), "not provided by the node"),
             )
     # exactly: duration > deadline * speed; floats settle all but the jobs within a few
     # units in the last place of the deadline
@@ -303,17 +286,12 @@ def _check_feasible(base: Instance, node: Node, times: F64, deadline: float) -> 
         over[j] = Fraction(float(base.durations[j])) > limit
     bad_idx = np.flatnonzero(over).tolist()
     if bad_idx:
-        names = [base.job_ids[j] for j in bad_idx]
-        raise Infeasible(
-            f"{len(bad_idx)} job(s) take longer than the deadline ({deadline:g} s) on a node "
-            f"of speed {node.speed:g}, so no number of nodes can meet it: "
-            + ", ".join(names[:10])
-            + (" ..." if len(bad_idx) > 10 else ""),
-            jobs=names,
-            issues=[
-                Issue(("jobs", j, "duration"), f"{times[j]:g} s on this node > deadline")
-                for j in bad_idx[:20]
-            ],
+        raise Infeasible.naming(
+            f"take longer than the deadline ({deadline:g} s) on a node of speed "
+            f"{node.speed:g}, so no number of nodes can meet it",
+            base.job_ids,
+            bad_idx,
+            lambda j: Issue(("jobs", j, "duration"), f"{times[j]:g} s on this node > deadline"),
         )
 
 
@@ -434,19 +412,35 @@ def _search(
     return info
 
 
-def _size(
-    base: Instance,
-    node: Node,
-    *,
-    time_budget: float,
-    max_nodes: int,
-    node_hour_cost: float | None,
-    billing: str,
-    curve_nodes: Sequence[int],
-    progress: SizingProgressHook | None,
-    should_stop: Callable[[], bool] | None,
-) -> SizingResult:
-    budget = Budget(time_budget, should_stop)
+def _take_lp(
+    out: LPOutcome,
+    state: _State,
+    fit: _Fit,
+    notes: tuple[dict[str, int], dict[str, Any], dict[str, int]],
+) -> None:
+    """The matching and LP bounds' raise of the lower bound, and the LP dive's packing at
+    the new bound if it found one (:mod:`.sizing_lp`); ``notes`` are the result's bounds,
+    evidence and upper bounds."""
+    bounds, evidence, upper_bounds = notes
+    rule = str(out.evidence.get("rule", "lp_farley"))
+    evidence["lp"] = out.evidence
+    if out.lower > state.lower:
+        state.lower, state.source = out.lower, rule
+        bounds[rule] = out.lower
+    if out.packing is not None and out.bins < state.upper:
+        bin_of, used, start = fit.settle(out.packing, out.bins)
+        upper_bounds["lp_dive"] = used
+        if used < state.upper:
+            state.upper, state.method = used, "lp_dive"
+            state.bin_of, state.start = bin_of, start
+
+
+def _size(args: SizingArgs, budget: Budget, progress: SizingProgressHook | None) -> SizingResult:
+    """Size ``args`` within ``budget`` (:func:`size`, and ``size_request`` for a request
+    read at the service's edge)."""
+    base, node, max_nodes = args.base, args.node, args.max_nodes
+    node_hour_cost, billing, curve_nodes = args.node_hour_cost, args.billing, args.curve_nodes
+    time_budget = budget.seconds
     deadline = float(base.deadline)  # type: ignore[arg-type]
     speed = node.speed
     times = base.durations / speed  # what Schedule computes for every job on this node
@@ -490,9 +484,24 @@ def _size(
             state.upper, state.method = int(n_bfd), "bfd"
             state.bin_of, state.start = bin_of, start
             report()
-    if state.lower < state.upper and time_budget > 0 and base.n > FILL_MIN_JOBS:
+    # the searches end early enough for the plan's nodes and the curve that follow
+    post = POST_SECONDS_PER_JOB * base.n + POST_SECONDS_PER_NODE * state.upper
+    work = budget.child(max(0.5, 1.0 - post / max(budget.remaining(), 1e-9)))
+    if (
+        state.lower < state.upper
+        and time_budget > 0
+        and lp_worth(base.n, state.lower, state.source)
+    ):
+        lp_budget = work.child(LP_SHARE)
+        out = lp_step(
+            q_lo, q_hi, cap, state.lower, state.upper, lp_budget.remaining(), lp_budget.expired
+        )
+        _take_lp(out, state, fit, (bounds, evidence, upper_bounds))
+        cancelled = lp_budget.cancelled
+        report()
+    if state.lower < state.upper and time_budget > 0 and base.n > FILL_MIN_JOBS and not cancelled:
         # a packing at the lower bound itself, when the bound is tight (issue 5)
-        fill_budget = budget.child(FILL_SHARE)
+        fill_budget = work.child(FILL_SHARE)
         fill = perfect_fill(
             q_hi,
             cap,
@@ -513,7 +522,7 @@ def _size(
                     report()
     if state.lower < state.upper and time_budget > 0 and not cancelled:
         bins = max(1, state.lower)
-        scale = min(1.0, budget.remaining())  # a second's worth of work at most
+        scale = min(1.0, work.remaining())  # a second's worth of work at most
         nodes_per_bin = min(MBS_NODES, max(20, int(scale * MBS_WORK) // bins))
         pair_steps = max(200, min(base.n, int(scale * MBS_PAIR_WORK) // bins))
         b_mbs, _, n_mbs = min_bin_slack(sizes, deadline, nodes_per_bin, pair_steps)
@@ -525,7 +534,7 @@ def _size(
             state.bin_of, state.start = bin_of, start
             report()
     if state.lower < state.upper and time_budget > 0 and not cancelled:
-        search_budget = budget.child(SEARCH_SHARE)  # the rest is for the curve
+        search_budget = work.child(SEARCH_SHARE)  # the rest is for the curve
         info = _search(state, q_lo, q_hi, cap, fit, search_budget, report)
         evidence["search"] = info
         if state.source == "search":
@@ -541,10 +550,10 @@ def _size(
             jobs=[],
             issues=[Issue(("max_nodes",), f"the best plan found needs {state.upper} nodes")],
         )
-    budget.cancelled = budget.cancelled or cancelled
+    budget.cancelled = budget.cancelled or cancelled or work.cancelled
     stop = budget.stop_reason(
         proven=state.lower >= state.upper,
-        ran_out=ran_out or (time_budget > 0 and budget.expired()),
+        ran_out=ran_out or (time_budget > 0 and work.expired()),
     )
     # the same node count, balanced: longest first often ends earlier than the packing
     plan_method = state.method

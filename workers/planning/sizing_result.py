@@ -100,14 +100,7 @@ class SizingResult(NodeCountAnswer):
         inst = self.schedule.instance
         node = inst.nodes[0]
         out: dict[str, Any] = {
-            "nodes_needed": self.nodes_needed,
-            "nodes_lower_bound": self.nodes_lower_bound,
-            "bound_source": self.bound_source,
-            "bounds": dict(self.bounds),
-            "proven_optimal": self.proven_optimal,
-            "gap": self.gap if self.gap != float("inf") else None,
-            "stop_reason": self.stop_reason,
-            "solve_seconds": self.solve_seconds,
+            **self.contract_head(self.bounds, self.gap if self.gap != float("inf") else None),
             "first_answer_seconds": self.first_answer_seconds,
             "method": self.method,
             "plan_method": self.plan_method,
