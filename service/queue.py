@@ -22,7 +22,7 @@ from typing import Any
 
 import redis
 from redis.client import Pipeline
-from rq import Callback, Queue, Retry, Worker
+from rq import Callback, Queue, Retry, Worker, worker_registration
 from rq.job import Job
 from rq.registry import StartedJobRegistry
 from rq.serializers import JSONSerializer
@@ -42,20 +42,21 @@ SECONDS_PER_DRAW = 2e-7
 CONFIDENCE_COUNTS = 40
 
 
-def simulation_allowance(kind: str, body: Any) -> float:
+def simulation_allowance(kind: str, body: Any, *, plain: bool = False) -> float:
     """Seconds of Monte-Carlo simulation a request asks for on top of its time budget.
 
     The confidence block (``workers/planning/confidence.py``) runs after the solve and
     outside the budget: the static and the dynamic policy over ``confidence_samples``
     samples of every job, and for a sizing with a ``confidence`` target, up to
     :data:`CONFIDENCE_COUNTS` node counts more. The job timeout, a crash guard only, must
-    not cut that work short.
+    not cut that work short. ``plain``: every job is a plain ``{id, duration[, group]}``
+    (the body was read in columns), so no job is looked at for a ``duration_p90``.
     """
     if not isinstance(body, dict) or not isinstance(body.get("jobs"), list):
         return 0.0
     jobs = body["jobs"]
-    asked = any(k in body for k in ("spread", "confidence_samples", "confidence")) or any(
-        isinstance(j, dict) and "duration_p90" in j for j in jobs
+    asked = any(k in body for k in ("spread", "confidence_samples", "confidence")) or (
+        not plain and any(isinstance(j, dict) and "duration_p90" in j for j in jobs)
     )
     if not asked:
         return 0.0
@@ -84,6 +85,7 @@ class JobQueue:
         self.settings = settings
         self.queue = Queue(settings.queue_name, connection=conn, serializer=JSONSerializer)
         self._last_reap = float("-inf")
+        self._workers_seen = (float("-inf"), False)
         self._push_back = conn.register_script(_PUSH_BACK)
 
     def enqueue(
@@ -135,6 +137,15 @@ class JobQueue:
             if (now - beat).total_seconds() <= FRESH_HEARTBEAT:
                 alive += 1
         return alive
+
+    def has_workers(self, max_age: float = 1.0) -> bool:
+        """Whether any worker is registered on the queue (RQ's set of its workers), read at
+        most every ``max_age`` seconds per queue object."""
+        now = time.monotonic()
+        if now - self._workers_seen[0] >= max_age:
+            key = worker_registration.WORKERS_BY_QUEUE_KEY % self.queue.name
+            self._workers_seen = (now, int(self.queue.connection.scard(key)) > 0)
+        return self._workers_seen[1]
 
     def depth(self) -> int:
         return int(self.queue.count)

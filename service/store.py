@@ -19,10 +19,11 @@ the result is kept that long after it is computed. Status changes are
 Lua scripts (atomic), and every visible change bumps ``version`` (the ETag).
 
 Round trips per plan: the API stores and enqueues in one transaction (:meth:`Store.create`
-with ``enqueue``) and waits with one ``BLPOP`` plus one read (:meth:`Store.wait_for`); the
-worker claims a record and reads its body in one script (:meth:`Store.claim`) and stores
-the outcome, refreshes every expiry, wakes the waiters and counts the metrics in another
-(:meth:`Store.finish`).
+with ``enqueue``) and answers from what it wrote (:meth:`Store.written`), or waits with one
+``BLPOP`` plus one read (:meth:`Store.wait_for`); the worker claims a record and reads its
+body in one script (:meth:`Store.claim`, inside the transaction that starts its job:
+:meth:`Store.claim_in`) and stores the outcome, refreshes every expiry, wakes the waiters
+and counts the metrics in another (:meth:`Store.finish`).
 """
 
 from __future__ import annotations
@@ -162,6 +163,10 @@ def rfc3339(t: float) -> str:
     return datetime.fromtimestamp(t, UTC).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
 
 
+def _now_text() -> str:
+    return rfc3339(time.time())
+
+
 def new_id(now: float | None = None) -> str:
     """A time-ordered id: 11 hex digits of milliseconds, then 10 random hex digits."""
     ms = int((time.time() if now is None else now) * 1000)
@@ -277,7 +282,7 @@ class Store:
         t = time.time() if now is None else now
         rid = rid or new_id(t)
         fields = self._fields(kind, tenant, meta, t)
-        keep = 2 * self.retention
+        keep = self._keep(fields)
         pipe = self.conn.pipeline(transaction=True)
         pipe.multi()  # explicit: a queue adding its writes finds the transaction open
         self._write_record(pipe, kind, tenant, rid, fields, request_body, work, t, keep)
@@ -296,6 +301,7 @@ class Store:
         key: str,
         fingerprint: str,
         rid: str,
+        now: float | None = None,
         work: bytes | bytearray | None = None,
         enqueue: Callable[[Pipeline], object] | None = None,
     ) -> dict[str, str] | None:
@@ -304,9 +310,9 @@ class Store:
         that was not queued (a failed write leaves nothing behind). Returns None when the
         record was made; when the key is bound already, nothing is written and its binding
         (``{"fingerprint", "id"}``) is returned."""
-        t = time.time()
+        t = time.time() if now is None else now
         fields = self._fields(kind, tenant, meta, t)
-        keep = 2 * self.retention
+        keep = self._keep(fields)
         # claim the key, store the record and queue it in one transaction: a key is never
         # bound to a record that was not queued (a failed write leaves nothing behind)
         ik = self.idem_key(tenant, kind, key)
@@ -330,6 +336,25 @@ class Store:
                 except redis.WatchError:  # the key was bound meanwhile: look again
                     continue
         raise redis.WatchError("the idempotency key kept changing")
+
+    def written(
+        self,
+        kind: str,
+        tenant: str,
+        rid: str,
+        meta: dict[str, Any],
+        t: float,
+        result_json: str | None = None,
+    ) -> Record:
+        """The record :meth:`create` (or :meth:`create_keyed`) wrote with ``now=t``, as
+        :meth:`get` reads it before a worker touches it, without a round trip."""
+        fields = self._fields(kind, tenant, meta, t)
+        return Record(kind, rid, _decode({k: str(v) for k, v in fields.items()}), result_json)
+
+    def _keep(self, fields: dict[str, Any]) -> int:
+        """Seconds a new record lives: twice the retention while queued, else (written
+        finished, see :meth:`finished_in`) the retention."""
+        return self.retention if fields["status"] in FINISHED else 2 * self.retention
 
     @staticmethod
     def _fields(kind: str, tenant: str, meta: dict[str, Any], t: float) -> dict[str, Any]:
@@ -371,34 +396,9 @@ class Store:
         oldest = new_id(t - 3 * self.retention)[:11]
         pipe.zremrangebylex(self.index_key(tenant, kind), "-", "(" + oldest)
 
-    def claim_idempotency(
-        self, tenant: str, kind: str, key: str, fingerprint: str, rid: str
-    ) -> dict[str, str] | None:
-        """Bind ``key`` to ``rid`` unless it is bound already; returns the existing binding."""
-        ik = self.idem_key(tenant, kind, key)
-        doc = json.dumps({"fingerprint": fingerprint, "id": rid})
-        if self.conn.set(ik, doc, nx=True, ex=2 * self.retention):
-            self.conn.hset(self.key(kind, rid), "idem_key", ik)
-            return None
-        raw = self.conn.get(ik)
-        if raw is None:  # expired between the two calls: try once more
-            if self.conn.set(ik, doc, nx=True, ex=2 * self.retention):
-                self.conn.hset(self.key(kind, rid), "idem_key", ik)
-                return None
-            raw = self.conn.get(ik) or b"{}"
-        out: dict[str, str] = json.loads(raw)
-        return out
-
     def release_idempotency(self, tenant: str, kind: str, key: str) -> None:
         """Forget a binding whose record has gone (so the key can be used afresh)."""
         self.conn.delete(self.idem_key(tenant, kind, key))
-
-    def discard(self, kind: str, rid: str, tenant: str) -> None:
-        """Remove a record that was never queued (lost an idempotency race)."""
-        pipe = self.conn.pipeline()
-        pipe.delete(*self._all_keys(kind, rid))
-        pipe.zrem(self.index_key(tenant, kind), rid)
-        pipe.execute()
 
     def mark_solving(self, kind: str, rid: str) -> bool:
         """queued (or solving again after a crash) -> solving; False if not allowed."""
@@ -414,10 +414,20 @@ class Store:
         """queued (or solving again after a crash) -> solving, and what solving needs, in
         one round trip; None when the record is not there to solve (cancelled while
         queued, finished, expired)."""
-        got = self._claim(
-            keys=[self.key(kind, rid), self.key(kind, rid, "work"), self.key(kind, rid, "request")],
-            args=[rfc3339(time.time())],
-        )
+        return self.claimed(self._claim(keys=self._claim_keys(kind, rid), args=[_now_text()]))
+
+    def claim_in(self, pipe: Pipeline, kind: str, rid: str) -> None:
+        """:meth:`claim` added to ``pipe`` (a worker's transaction that starts the job), by
+        the script's digest: its reply, read with :meth:`claimed`, is a ``NoScriptError``
+        when Redis does not hold the script (then nothing was claimed)."""
+        pipe.evalsha(self._claim.sha, 3, *self._claim_keys(kind, rid), _now_text())
+
+    def _claim_keys(self, kind: str, rid: str) -> list[str]:
+        return [self.key(kind, rid), self.key(kind, rid, "work"), self.key(kind, rid, "request")]
+
+    @staticmethod
+    def claimed(got: Any) -> Claim | None:
+        """The :class:`Claim` in the claim script's reply (None: nothing to solve)."""
         if not got:
             return None
         _old, budget, method, body, copy = got
@@ -502,6 +512,22 @@ class Store:
         keys = [*self._all_keys(kind, rid), self.key(kind, rid, "done"), metrics_key]
         keys.append(f"{self.prefix}:active")
         return self._finish(keys=keys, args=args) is not None
+
+    def finished_in(
+        self, pipe: Pipeline, kind: str, rid: str, result_json: str, counters: Counters
+    ) -> None:
+        """The rest of :meth:`finish`, added to the transaction that writes a record in its
+        finished state (a plan the API solved itself, its fields given to :meth:`create`):
+        the result with the retention, the waiters woken, the metrics counted."""
+        pipe.set(self.key(kind, rid, "result"), result_json, ex=self.retention)
+        done = self.key(kind, rid, "done")
+        pipe.rpush(done, b"1")
+        pipe.expire(done, 60)
+        for op, name, amount in counters[1]:
+            if op == "f":
+                pipe.hincrbyfloat(counters[0], name, float(amount))
+            else:
+                pipe.hincrby(counters[0], name, int(amount))
 
     def _refresh_and_notify(self, kind: str, rid: str) -> None:
         idem = self.conn.hget(self.key(kind, rid), "idem_key")

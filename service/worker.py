@@ -7,7 +7,8 @@ RQ's tools and our crash recovery read (the queue, its intermediate list, the jo
 the started registry, executions, worker state and heartbeats, the failure path with its
 retry and callback untouched) and writes them in fewer round trips:
 
-* one pipeline starts a job (RQ's two: the execution, then the job's start);
+* one pipeline starts a job (RQ's two: the execution, then the job's start) and claims
+  our record (a third, in the task);
 * one pipeline ends a successful job that RQ would delete anyway (``result_ttl=0``, no
   dependents, repeats, group or rate limit, first attempt): the execution and the job's
   keys go, the worker's counters and state are updated. Anything else takes RQ's own path;
@@ -28,8 +29,11 @@ interval + 60 s (RQ's ``BaseWorker.get_heartbeat_ttl``). So a dead worker's entr
 at most :data:`JOB_MONITORING_INTERVAL` + 60 = 70 s after its death, whatever the budget;
 jobs shorter than the interval cost no extra write.
 
-With our task's two round trips (``Store.claim``, ``Store.finish``) a plan costs the
-worker six: dequeue, fetch, start, claim, finish, end.
+Our task's record is claimed (``Store.claim``) in the transaction that starts its job,
+and the task stores its outcome in one more (``Store.finish``): a plan costs the worker
+five round trips: dequeue, fetch, start and claim, finish, end. A worker killed between
+the start and the finish leaves the job in the started registry and the record
+``solving``, as before: the retry claims it again.
 """
 
 from __future__ import annotations
@@ -52,7 +56,23 @@ from rq.results import Result
 from rq.utils import now
 from rq.worker import BaseWorker, WorkerStatus
 
+from .queue import TASK
+from .store import Claim, Store
+
 log = logging.getLogger("spanwright.worker")
+
+#: claims made in the transaction that started a job, by RQ job id (see :func:`take_claim`)
+_CLAIMS: dict[str, Claim | None] = {}
+
+
+def take_claim(job_id: str) -> tuple[Claim | None] | None:
+    """The claim :class:`LeanWorker` made for job ``job_id`` when it started it, once:
+    ``(claim,)`` (``(None,)``: nothing to solve), or None when it made none (another
+    worker class, or Redis without the script), and the task claims the record itself."""
+    if job_id not in _CLAIMS:
+        return None
+    return (_CLAIMS.pop(job_id),)
+
 
 #: seconds between heartbeats of a running job (RQ's ``job_monitoring_interval``): a
 #: killed worker's job is seen abandoned at most this + 60 s after the kill
@@ -138,6 +158,7 @@ class LeanWorker(SimpleWorker):
         self._beaten_at = float("-inf")
         self._suspension_checked_at = float("-inf")
         self._started_in_pipeline: str | None = None
+        self._stores: dict[tuple[str, int], Store] = {}
         self._pulse = Pulse(self, self.job_monitoring_interval)
 
     # -- heartbeats while a job runs (see the module docstring) --------------------------
@@ -154,6 +175,7 @@ class LeanWorker(SimpleWorker):
             self.perform_job(job, queue, execution)
         finally:
             self._pulse.stop()
+            _CLAIMS.pop(job.id, None)  # a job that failed before its task took the claim
         self.set_state(WorkerStatus.IDLE)
 
     def teardown(self) -> None:
@@ -194,8 +216,9 @@ class LeanWorker(SimpleWorker):
 
     # -- starting a job: one pipeline --------------------------------------------------
     def prepare_execution(self, job: Job) -> Execution:
-        """The execution (RQ's ``prepare_execution``) and the job's start (RQ's
-        ``prepare_job_execution``) in one transaction."""
+        """The execution (RQ's ``prepare_execution``), the job's start (RQ's
+        ``prepare_job_execution``) and, for our task, the claim of its record
+        (``Store.claim``, handed to the task by :func:`take_claim`) in one transaction."""
         with self.connection.pipeline() as pipe:
             ttl = self.get_heartbeat_ttl(job)
             execution = Execution.create(job, ttl, pipeline=pipe, worker_name=self.name)
@@ -207,9 +230,31 @@ class LeanWorker(SimpleWorker):
             pipe.persist(job.key)
             if len(self.queues) == 1:  # RQ's rule: a single queue's worker tidies its list
                 pipe.lrem(self.queues[0].intermediate_queue_key, 1, job.id)
-            pipe.execute()
+            store = self._store_of(job)
+            if store is not None:
+                kw = job.kwargs
+                store.claim_in(pipe, kw["kind"], kw["record_id"])
+            replies = pipe.execute(raise_on_error=store is None)
+        if store is not None:
+            *rq_replies, got = replies
+            for reply in rq_replies:  # RQ's own writes fail as they would without the claim
+                if isinstance(reply, Exception):
+                    raise reply
+            if not isinstance(got, Exception):  # else (no script in Redis) the task claims
+                _CLAIMS[job.id] = Store.claimed(got)
         self._started_in_pipeline = job.id
         return execution
+
+    def _store_of(self, job: Job) -> Store | None:
+        """Our store for a job of our task (its keys travel in the job's arguments)."""
+        kw = job.kwargs
+        if job.func_name != TASK or not isinstance(kw.get("record_id"), str):
+            return None
+        key = (str(kw["prefix"]), int(kw["retention"]))
+        store = self._stores.get(key)
+        if store is None:
+            store = self._stores[key] = Store(self.connection, prefix=key[0], retention=key[1])
+        return store
 
     def prepare_job_execution(self, job: Job, remove_from_intermediate_queue: bool = False) -> None:
         """Done already by :meth:`prepare_execution` for this job; RQ's otherwise."""

@@ -4,6 +4,11 @@ A resource of kind ``K`` at ``/v1/Ks`` gets: ``POST`` (validate, store, enqueue;
 finished record within ``Prefer: wait=N``; ``Idempotency-Key``), ``GET /{id}`` (ETag and
 ``If-None-Match``), ``DELETE /{id}`` (cancel) and ``GET`` (the tenant's records, newest
 first, ``status``/``limit``/``cursor``). Only the validation differs between kinds.
+
+A small longest-first plan of plain jobs whose client waits (``Prefer: wait``) is solved
+in the request while the queue has a worker (:func:`_solve_here`): it is stored finished,
+listed, counted and bound to its Idempotency-Key as a worker's plan, in one transaction,
+and costs no queue entry (issue 20: the queue and the worker cost more than the plan).
 """
 
 from __future__ import annotations
@@ -15,9 +20,10 @@ import json
 import re
 import shutil
 import threading
+import time
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from flask import Blueprint, Response, request
 
@@ -25,6 +31,7 @@ from workers.planning.errors import Issue
 
 from .. import jobscan, limits
 from ..auth import current
+from ..metrics import finish_counters
 from ..payload import Columns
 from ..problems import (
     AlreadyFinished,
@@ -40,7 +47,10 @@ from ..queue import simulation_allowance
 from ..reading import clock
 from ..services import may_read, services, tenant
 from ..settings import Settings
-from ..store import FINISHED, STATUSES, Record, new_id
+from ..store import FINISHED, STATUSES, Record, new_id, rfc3339
+
+if TYPE_CHECKING:
+    from workers.tasks import Finished
 
 ID_RE = re.compile(r"[0-9a-f]{21}")
 _KEY_RE = re.compile(r"[\x20-\x21\x23-\x5b\x5d-\x7e]{1,255}")  # printable ASCII but " and \
@@ -78,6 +88,10 @@ class Validated:
     data: dict[str, Any]
     #: stored for the worker next to the raw body (``service/payload.py``); None: the raw one
     work: bytes | bytearray | None = None
+    #: a plan of plain jobs: the body in columns and the core problem the checks made of it
+    #: (what a plan solved in the request is solved from)
+    columns: Columns | None = None
+    problem: Any = None
 
 
 #: validate a body: shape (marshmallow) then semantics (the core)
@@ -392,14 +406,38 @@ def _queue_record(
         )
         full.headers = {"Retry-After": "30"}  # type: ignore[attr-defined]
         raise full
-    limits.admit(who, res.kind, rid)  # 429 before anything is stored
+    now = time.time()
+    solved: Finished | None = None  # the plan solved here, or None: queued
+    if wait and _solve_here(res, checked, meta, extra_seconds, more):
+        from workers.tasks import plan_now
+
+        assert checked.columns is not None  # checked by _solve_here
+        solved = plan_now(checked.columns, checked.problem, str(meta["method"]), budget)
+    work = checked.work
+    if solved is None:
+        limits.admit(who, res.kind, rid)  # 429 before anything is stored
+    else:  # never queued, so it takes no queue slot; stored finished, the worker's copy unused
+        meta = {
+            **meta,
+            "status": solved.status,
+            "started_at": rfc3339(now),
+            "finished_at": rfc3339(time.time()),
+            "attempts": 1,
+            "summary": solved.summary,
+            "progress": solved.progress,
+        }
+        work = None
 
     def enqueue(pipe: Any) -> None:
-        svc.queue.enqueue(res.kind, rid, budget, pipeline=pipe, extra_seconds=extra_seconds)
+        if solved is None:
+            svc.queue.enqueue(res.kind, rid, budget, pipeline=pipe, extra_seconds=extra_seconds)
+        else:
+            counters = finish_counters(store.prefix, res.kind, solved.result)
+            store.finished_in(pipe, res.kind, rid, solved.result_json, counters)
 
     try:
         if key is None:  # record and queue entry in one transaction, one round trip
-            store.create(res.kind, who, raw, meta, rid=rid, work=checked.work, enqueue=enqueue)
+            store.create(res.kind, who, raw, meta, rid=rid, now=now, work=work, enqueue=enqueue)
         else:  # the same, with the key claimed in that transaction too
             for _ in range(2):
                 bound = store.create_keyed(
@@ -410,7 +448,8 @@ def _queue_record(
                     key=key,
                     fingerprint=fingerprint,
                     rid=rid,
-                    work=checked.work,
+                    now=now,
+                    work=work,
                     enqueue=enqueue,
                 )
                 if bound is None:
@@ -421,20 +460,52 @@ def _queue_record(
                 if old is None or old.tenant != who:
                     store.release_idempotency(who, res.kind, key)  # its record expired
                     continue
-                limits.release(who, res.kind, rid)
+                if solved is None:
+                    limits.release(who, res.kind, rid)
                 return replay(old)
             else:  # pragma: no cover - needs two expiries in a row
                 raise IdempotencyKeyInFlight("the key is being re-bound; retry in a moment")
     except BaseException:
-        limits.release(who, res.kind, rid)  # nothing was stored: free the slot it held
+        if solved is None:
+            limits.release(who, res.kind, rid)  # nothing was stored: free the slot it held
         raise
-    rec = store.wait_for(res.kind, rid, wait) if wait else store.get(res.kind, rid)
+    if solved is not None or not wait:  # as written: no read back (a worker may have it now)
+        text = None if solved is None else solved.result_json
+        rec = store.written(res.kind, who, rid, meta, now, text)
+        return _respond(rec, res, 201 if wait and rec.status in FINISHED else 202, extra, more)
+    rec = store.wait_for(res.kind, rid, wait)
     if rec is None:  # pragma: no cover - expired within the request
         raise NotFound(f"{res.kind} {rid} vanished")
-    # 201 only answers a wait (the spec's promise); without one a plan that a fast
-    # worker finished before this line still answers 202, its body saying "done"
+    # 201 only answers a wait (the spec's promise)
     done_in_wait = bool(wait) and rec.status in FINISHED
     return _respond(rec, res, 201 if done_in_wait else 202, extra, more)
+
+
+#: plain longest-first plans of at most this many jobs, asked with ``Prefer: wait``, are
+#: solved in the request that brings them (stored, listed and counted as a worker's;
+#: bench/RESULTS.md, issue 20)
+SOLVE_HERE_MAX_JOBS = 2_000
+
+
+def _solve_here(
+    res: Resource, checked: Validated, meta: dict[str, Any], extra: float, more: Any
+) -> bool:
+    """Whether to solve a request whose client waits for it (``Prefer: wait``) in the API
+    rather than queue it (a client that does not wait gets a queued plan, which it may
+    still cancel, as before): a plan (not a re-plan)
+    of plain jobs read in columns (``checked.columns``), longest first, no simulation, at
+    most :data:`SOLVE_HERE_MAX_JOBS` jobs, while the queue has a worker (a service with
+    none queues everything, as before: its work waits for the workers)."""
+    return (
+        res.kind == "plan"
+        and more is None
+        and extra == 0
+        and checked.columns is not None
+        and checked.problem is not None
+        and meta.get("method") == "longest_first"
+        and len(checked.columns.ids) <= SOLVE_HERE_MAX_JOBS
+        and services().queue.has_workers()
+    )
 
 
 def with_start(raw: bytes, body: Any) -> tuple[bytes, Any]:
@@ -471,7 +542,7 @@ def make_blueprint(res: Resource) -> Blueprint:
             "name": data.get("name"),
         }
         counted = jobscan.counted(body) if isinstance(body, Columns) else body
-        extra = simulation_allowance(res.kind, counted)
+        extra = simulation_allowance(res.kind, counted, plain=checked.columns is not None)
         return queue_record(res, raw, checked, meta, fingerprint, extra_seconds=extra)
 
     @bp.get(res.path + "/<rid>")

@@ -45,8 +45,7 @@ def read_plan(body: Any, settings: Settings) -> Validated:
         return Validated(data)
     data, cols = fast
     envelope = {k: v for k, v in body.items() if k != "jobs"}
-    with_stages(read_columns(envelope, cols.ids, cols.durations, cols.groups), envelope)
-    return Validated(data, payload.encode(envelope, cols.ids, cols.durations, cols.groups))
+    return _checked(data, payload.Columns(envelope, cols.ids, cols.durations, cols.groups))
 
 
 def _read_scanned(cols: payload.Columns, settings: Settings) -> Validated:
@@ -64,9 +63,16 @@ def _read_scanned(cols: payload.Columns, settings: Settings) -> Validated:
         load_plan_request({**envelope, "jobs": [job]}, settings)
         raise  # not reached: the same schema refuses the same fields
     data.setdefault("time_budget", settings.default_time_budget)
-    # no tags in columns; limits and slots in the envelope make it a stage graph
-    with_stages(read_columns(envelope, cols.ids, cols.durations, cols.groups), envelope)
-    return Validated(data, payload.encode(envelope, cols.ids, cols.durations, cols.groups))
+    return _checked(data, payload.Columns(envelope, cols.ids, cols.durations, cols.groups))
+
+
+def _checked(data: dict[str, Any], cols: payload.Columns) -> Validated:
+    """The core's semantic checks of a body of plain jobs in columns (no tags in columns;
+    limits and slots in the envelope make it a stage graph), and what they made."""
+    env = cols.envelope
+    problem = with_stages(read_columns(env, cols.ids, cols.durations, cols.groups), env)
+    work = payload.encode(env, cols.ids, cols.durations, cols.groups)
+    return Validated(data, work, columns=cols, problem=problem)
 
 
 def validate_plan(body: Any, settings: Settings) -> dict[str, Any]:

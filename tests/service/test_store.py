@@ -63,8 +63,11 @@ def test_expired_records_leave_the_listing(store: Store) -> None:
 def test_every_key_has_the_retention(store: Store) -> None:
     """Records, requests, the worker's copies, results and idempotency records expire after
     the retention."""
-    rid = store.create("plan", "local", b'{"jobs": []}', {}, work=b"copy")
-    assert store.claim_idempotency("local", "plan", "k", "f", rid) is None
+    rid = new_id()
+    made = store.create_keyed(
+        "plan", "local", b'{"jobs": []}', {}, key="k", fingerprint="f", rid=rid, work=b"copy"
+    )
+    assert made is None
     assert 300 < store.conn.ttl(store.key("plan", rid)) <= 600  # queued: twice the retention
     store.mark_solving("plan", rid)
     store.finish("plan", rid, "done", result_json="{}")
@@ -73,13 +76,19 @@ def test_every_key_has_the_retention(store: Store) -> None:
 
 
 def test_idempotency_binding_is_first_come(store: Store) -> None:
-    """The first claim binds the key; a second returns the first binding (SET NX)."""
-    assert store.claim_idempotency("local", "plan", "key-1", "fp-a", "id-a") is None
-    assert store.claim_idempotency("local", "plan", "key-1", "fp-b", "id-b") == {
-        "fingerprint": "fp-a",
-        "id": "id-a",
-    }
-    assert store.claim_idempotency("other", "plan", "key-1", "fp-b", "id-b") is None
+    """The first request binds the key; a second gets the first binding and stores
+    nothing; another tenant's key of the same name is its own."""
+
+    def keyed(tenant: str, fingerprint: str, rid: str) -> dict[str, str] | None:
+        return store.create_keyed(
+            "plan", tenant, b"{}", {}, key="key-1", fingerprint=fingerprint, rid=rid
+        )
+
+    a, b, c = new_id(), new_id(), new_id()
+    assert keyed("local", "fp-a", a) is None
+    assert keyed("local", "fp-b", b) == {"fingerprint": "fp-a", "id": a}
+    assert store.get("plan", b) is None
+    assert keyed("other", "fp-b", c) is None
 
 
 def test_transitions_are_guarded(store: Store) -> None:
@@ -153,3 +162,51 @@ def test_finish_writes_all_or_nothing(store: Store) -> None:
     }
     rec = store.wait_for("plan", rid, 5)
     assert rec is not None and rec.status == "done" and rec.result_json == '{"a":1}'
+
+
+def test_claim_in_a_transaction_is_the_same_claim(store: Store) -> None:
+    """``claim_in`` (the claim added to a worker's transaction) moves the record and reads
+    its body as ``claim`` does, as read back from the store; a record cancelled while
+    queued gives None; with the script unknown to Redis the reply is an error and the
+    record is left as it was (the task then claims it itself)."""
+    a = store.create("plan", "local", b'{"raw": 1}', {"method": "list"}, work=b"copy")
+    c = store.create("plan", "local", b"{}", {})
+    store.request_cancel("plan", c)
+    store.claim("plan", c)  # the script is loaded into Redis
+    pipe = store.conn.pipeline()
+    store.claim_in(pipe, "plan", a)
+    store.claim_in(pipe, "plan", c)
+    got, none = pipe.execute()
+    claim = Store.claimed(got)
+    assert claim is not None and (claim.body, claim.columns, claim.method) == (
+        b"copy",
+        True,
+        "list",
+    )
+    assert store.status("plan", a) == "solving" and Store.claimed(none) is None
+    assert store.conn.hget(store.key("plan", a), "attempts") == b"1"
+    b = store.create("plan", "local", b"{}", {})
+    store.conn.script_flush()
+    pipe = store.conn.pipeline()
+    store.claim_in(pipe, "plan", b)
+    (reply,) = pipe.execute(raise_on_error=False)
+    assert isinstance(reply, Exception) and store.status("plan", b) == "queued"
+
+
+def test_the_queued_record_is_what_was_stored(store: Store) -> None:
+    """``queued`` (the answer to a submit without a wait, built without a read) equals the
+    record read back from Redis right after ``create`` and ``create_keyed``."""
+    meta = {"method": "longest_first", "time_budget": "2.5", "name": "ep01 shot 010"}
+    rid = store.create("plan", "local", b"{}", meta, now=1.8e9 + 0.125)
+    assert store.written("plan", "local", rid, meta, 1.8e9 + 0.125) == store.get("plan", rid)
+    kid = new_id()
+    assert (
+        store.create_keyed(
+            "plan", "local", b"{}", {}, key="k", fingerprint="f", rid=kid, now=1.8e9 + 1
+        )
+        is None
+    )
+    got = store.get("plan", kid)
+    assert got is not None
+    made = store.written("plan", "local", kid, {}, 1.8e9 + 1)
+    assert made.fields == {k: v for k, v in got.fields.items() if k != "idem_key"}

@@ -183,3 +183,48 @@ def test_progress_moves_while_the_search_does_not_improve(
         time.sleep(0.05)
     assert len(seen) >= 3  # 1.6 s of silence gives at least three heartbeats
     assert max(b - a for a, b in itertools.pairwise(seen)) <= 0.8
+
+
+def lpt_makespan(durations: list[int], nodes: int) -> int:
+    """Longest processing time first (Graham 1969), by hand: each job, longest first, on
+    the node that is free first (the lowest-numbered on ties)."""
+    loads = [0] * nodes
+    for d in sorted(durations, reverse=True):
+        i = loads.index(min(loads))
+        loads[i] += d
+    return max(loads)
+
+
+def test_small_heuristic_plans_are_finished_in_the_request(app: Any, settings: Any) -> None:
+    """With a worker up, a small longest-first plan whose client waits is solved by the
+    API itself: nothing is queued, the answer is 201 ``done`` with the makespan of
+    longest-first worked out by hand; the stored record reads back the same, is listed,
+    counted in the metrics and bound to its Idempotency-Key (a retry gets the same plan
+    back)."""
+    conn = app.extensions["spanwright"].store.conn
+    end = time.monotonic() + 10
+    while not conn.scard(f"rq:workers:{settings.queue_name}"):  # the worker registered
+        assert time.monotonic() < end, "the embedded worker did not start"
+        time.sleep(0.01)
+    durations = [3600 - 97 * i for i in range(25)]
+    body = {
+        "jobs": [{"id": f"ep02_sh{i:03d}", "duration": d} for i, d in enumerate(durations)],
+        "node_count": 4,
+        "method": "longest_first",
+    }
+    c = app.test_client()
+    head = {"Idempotency-Key": "ep02-nightly", "Prefer": "wait=5"}
+    r = c.post("/v1/plans", json=body, headers=head)
+    doc = r.get_json()
+    assert r.status_code == 201 and doc["status"] == "done", doc
+    assert doc["result"]["makespan"] == lpt_makespan(durations, 4)
+    assert conn.llen(f"rq:queue:{settings.queue_name}") == 0
+    assert not conn.exists(f"rq:job:{rq_job_id('plan', doc['id'])}")
+    assert c.get(r.headers["Location"]).get_json() == doc
+    again = c.post("/v1/plans", json=body, headers=head)
+    assert again.status_code == 200 and again.headers["Idempotent-Replayed"] == "true"
+    assert again.get_json() == doc
+    items = c.get("/v1/plans").get_json()["items"]
+    assert [(it["id"], it["status"]) for it in items] == [(doc["id"], "done")]
+    metrics = conn.hgetall(f"{settings.key_prefix}:metrics:plan")
+    assert metrics[b"finished:done"] == b"1"
