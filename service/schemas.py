@@ -37,6 +37,8 @@ MAX_SPREAD = 10.0
 MAX_SAMPLES = 100_000
 #: most random draws (samples x jobs) one confidence simulation may cost
 MAX_DRAWS = 200_000_000
+#: most deadlines of one rental frontier (``deadlines``)
+MAX_DEADLINES = 24
 
 
 class FiniteNumber(fields.Field):  # type: ignore[type-arg]
@@ -286,6 +288,11 @@ class SizingRequestSchema(StrictSchema):
     farm = fields.List(fields.Nested(FarmNodeSchema))
     kinds = fields.List(fields.Nested(KindSchema), validate=validate.Length(min=1))
     min_billed = FiniteNumber(validate=_seconds())
+    #: a rental's frontier: the cheapest cost at each of these deadlines (seconds)
+    deadlines = fields.List(
+        FiniteNumber(validate=_seconds(MIN_DEADLINE)),
+        validate=validate.Length(min=1, max=MAX_DEADLINES),
+    )
     limits = _limits()
     max_nodes = WholeNumber(validate=validate.Range(min=1))
     time_budget = FiniteNumber(validate=validate.Range(min=0))

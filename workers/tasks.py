@@ -14,10 +14,12 @@ exception derives from it).
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import time
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
+from fractions import Fraction
 from typing import Any
 
 from rq import get_current_job
@@ -25,9 +27,12 @@ from rq import get_current_job
 from service import payload
 from service.metrics import failed_counters, finish_counters
 from service.problems import InternalError, problem_dict
-from service.store import Store
+from service.store import Claim, Store
+from service.worker import take_claim
+from workers.planning import rounding
 from workers.planning.errors import SpanwrightError
 from workers.planning.progress import Report
+from workers.planning.result import PlanResult
 
 
 @dataclass(frozen=True, slots=True)
@@ -42,6 +47,10 @@ class Outcome:
     summary: dict[str, Any]
     cancelled: bool
     result_json: str | None = None
+    #: the plan's makespan in exact arithmetic, which the written makespan is rounded up from
+    exact_makespan: Fraction | None = None
+    #: ``result_json`` and the summary are already on the grid of the request's resolution
+    on_grid: bool = False
 
 
 Runner = Callable[..., Outcome]
@@ -54,10 +63,13 @@ def solve_plan(
     time_budget: float,
     progress: Callable[[Any], None],
     should_stop: Callable[[], bool],
+    problem: Any = None,
 ) -> Outcome:
     """``POST /v1/plans`` through the use-case the command line calls too.
 
-    ``body`` is the request body, or the API's copy of it with the jobs in columns.
+    ``body`` is the request body, or the API's copy of it with the jobs in columns; then
+    ``problem``, when given, is what ``reading`` made of those columns already (the API's
+    checks built it), and is solved as it is.
     """
     from service import reading
     from workers.planning import usecases
@@ -66,8 +78,10 @@ def solve_plan(
         return _replan_stages(body, method=method, time_budget=time_budget, should_stop=should_stop)
     inst: reading.Problem
     if isinstance(body, payload.Columns):
-        plain = reading.read_columns(body.envelope, body.ids, body.durations, body.groups)
-        inst = reading.with_stages(plain, body.envelope)  # limits or slots, if any
+        if problem is None:
+            plain = reading.read_columns(body.envelope, body.ids, body.durations, body.groups)
+            problem = reading.with_stages(plain, body.envelope)  # limits or slots, if any
+        inst = problem
         spread = reading.read_spread(body.envelope)  # plain jobs carry no duration_p90
     else:
         inst, spread = reading.read_plan_body(body)
@@ -81,7 +95,26 @@ def solve_plan(
     )
     res = answer.result
     result = answer.to_dict(with_assignment=False)
+    if isinstance(res, PlanResult):  # written on the grid straight from the arrays
+        grid = rounding.grid_decimals(inst.resolution)
+        text = res.to_json(answer.extra, grid)
+        head = _head_of(text) or res.grid_head(grid)
+        out = plan_outcome(res, result, text, inst.n, inst.m)
+        summary = {**out.summary, "makespan": head["makespan"], "lower_bound": head["lower_bound"]}
+        return dataclasses.replace(out, summary=summary, on_grid=True)
     return plan_outcome(res, result, answer.to_json(), inst.n, inst.m)
+
+
+def _head_of(text: str) -> dict[str, Any] | None:
+    """The fields before ``assignment`` of a plan's result JSON (``PlanResult.to_json``
+    writes the rounded head, then the assignment), read without the assignment; None if
+    they cannot be (text cut inside a nested object does not parse)."""
+    cut = text.find(',"assignment":')
+    try:
+        head = json.loads(text[:cut] + "}") if cut > 0 else None
+    except ValueError:
+        return None
+    return head if isinstance(head, dict) and {"makespan", "lower_bound"} <= head.keys() else None
 
 
 def plan_outcome(res: Any, result: dict[str, Any], text: str, jobs: int, nodes: int) -> Outcome:
@@ -97,7 +130,7 @@ def plan_outcome(res: Any, result: dict[str, Any], text: str, jobs: int, nodes: 
         "stop_reason": res.stop_reason,
         "deadline_met": None if dl is None else dl["met"],
     }
-    return Outcome(result, summary, res.stop_reason == "cancelled", text)
+    return Outcome(result, summary, res.stop_reason == "cancelled", text, res.exact_value)
 
 
 def _replan_stages(
@@ -148,7 +181,8 @@ def size_farm(
     d = answer.to_dict()
     cancelled = answer.result.stop_reason == "cancelled"
     keys = ("nodes_needed", "nodes_lower_bound", "proven_optimal", "estimated_cost")
-    return Outcome(d, {k: d.get(k) for k in keys}, cancelled)
+    exact = rounding.exact_makespan_of(answer.result)
+    return Outcome(d, {k: d.get(k) for k in keys}, cancelled, None, exact)
 
 
 RUNNERS: dict[str, Runner] = {"plan": solve_plan, "sizing": size_farm}
@@ -162,7 +196,8 @@ def run_job(
     if job is None:  # pragma: no cover - only RQ calls this
         raise RuntimeError("run_job must run inside an RQ job")
     store = Store(job.connection, prefix=prefix, retention=retention)
-    return run_record(store, kind, record_id, progress_interval=progress_interval)
+    claimed = take_claim(job.id)  # made when LeanWorker started the job, if it did
+    return run_record(store, kind, record_id, progress_interval=progress_interval, claimed=claimed)
 
 
 #: most seconds between two progress writes of a running solve, improved or not (while
@@ -170,18 +205,28 @@ def run_job(
 HEARTBEAT = 0.5
 
 
-def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 0.25) -> str:
+def run_record(
+    store: Store,
+    kind: str,
+    rid: str,
+    *,
+    progress_interval: float = 0.25,
+    claimed: tuple[Claim | None] | None = None,
+) -> str:
     """Solve record ``rid`` and store the outcome; returns the final status (or 'skipped').
+
+    ``claimed`` is ``(Store.claim(kind, rid),)`` when the worker made that claim already
+    (in the transaction that started the job); None claims the record here.
 
     Progress (elapsed, best plan, best bound) is written when the search improves, at most
     every ``progress_interval``, and at least every :data:`HEARTBEAT` seconds while it
     runs, improved or not.
 
-    Redis round trips: one to claim the record and read its body, one to store the outcome
-    (with the metrics); a solve longer than ``progress_interval`` adds its progress writes
-    and cancel checks.
+    Redis round trips: one to claim the record and read its body (none when ``claimed``),
+    one to store the outcome (with the metrics); a solve longer than ``progress_interval``
+    adds its progress writes and cancel checks.
     """
-    claim = store.claim(kind, rid)
+    claim = store.claim(kind, rid) if claimed is None else claimed[0]
     if claim is None:
         return "skipped"  # cancelled while queued, expired, or already finished
     time_budget, method = claim.time_budget, claim.method
@@ -189,8 +234,11 @@ def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 
     last = [t0]  # the first progress write waits one interval: quick solves write none
     best: dict[str, Any] = {}
 
+    body: Any = payload.decode(claim.body) if claim.columns else json.loads(claim.body)
+    grid = rounding.grid_decimals(_resolution(body))
+
     def progress(p: Report) -> None:  # a plan's best so far, or a sizing's interval
-        best.update(p.to_dict(), time_budget=time_budget)
+        best.update(rounding.round_progress(p.to_dict(), grid), time_budget=time_budget)
         now = time.perf_counter()
         if now - last[0] >= progress_interval:
             last[0] = now
@@ -206,7 +254,6 @@ def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 
             store.publish_progress(kind, rid, dict(best))
         return store.cancel_requested(kind, rid)
 
-    body: Any = payload.decode(claim.body) if claim.columns else json.loads(claim.body)
     try:
         out = RUNNERS[kind](
             body,
@@ -224,12 +271,40 @@ def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 
             counters=failed_counters(store.prefix, kind),
         )
         return "failed"
+    done = finished(kind, body, out, grid, time.perf_counter() - t0, time_budget)
+    store.finish(
+        kind,
+        rid,
+        done.status,
+        result_json=done.result_json,
+        summary=done.summary,
+        progress=done.progress,
+        counters=finish_counters(store.prefix, kind, done.result),
+    )
+    return done.status
+
+
+@dataclass(frozen=True, slots=True)
+class Finished:
+    """What ``Store.finish`` stores for a solved record."""
+
+    status: str  # "done" | "cancelled"
+    result_json: str
+    summary: dict[str, Any]
+    progress: dict[str, Any]
+    #: the contract's result object (the metrics read it)
+    result: dict[str, Any]
+
+
+def finished(
+    kind: str, body: Any, out: Outcome, grid: int, elapsed: float, time_budget: float
+) -> Finished:
+    """The stored form of a runner's outcome: the result JSON on the grid with the
+    request's clock, the lists' summary and the final progress."""
     # a cancel that arrives after the solver finished its work changes nothing: status done
     status = "cancelled" if out.cancelled else "done"
-    final: dict[str, Any] = {
-        "elapsed": round(time.perf_counter() - t0, 4),
-        "time_budget": time_budget,
-    }
+    out = _on_grid(kind, out, grid)
+    final: dict[str, Any] = {"elapsed": round(elapsed, 4), "time_budget": time_budget}
     if kind == "plan":
         final.update(
             best_makespan=out.summary.get("makespan"),
@@ -248,16 +323,56 @@ def run_record(store: Store, kind: str, rid: str, *, progress_interval: float = 
     if clock is not None:  # the request's clock, echoed beside the seconds
         text = text[: text.rindex("}")] + ',"clock":' + json.dumps(clock) + "}"
         summary = {**summary, "clock": clock}
-    store.finish(
-        kind,
-        rid,
-        status,
-        result_json=text,
-        summary=summary,
-        progress=final,
-        counters=finish_counters(store.prefix, kind, out.result),
-    )
-    return status
+    return Finished(status, text, summary, final, out.result)
+
+
+def plan_now(
+    body: payload.Columns, problem: Any, method: str, time_budget: float
+) -> Finished | None:
+    """Solve a plan of plain jobs in columns, with the core problem the API's checks made
+    of them (``reading.read_columns``, ``with_stages``), in this thread, as
+    :func:`run_record` would (no progress, no cancel); None when the core refuses it (the
+    queue's worker then fails it with its problem, as for any plan)."""
+    t0 = time.perf_counter()
+    grid = rounding.grid_decimals(_resolution(body))
+    try:
+        out = solve_plan(
+            body,
+            method=method,
+            time_budget=time_budget,
+            progress=lambda p: None,
+            should_stop=lambda: False,
+            problem=problem,
+        )
+    except SpanwrightError:
+        return None
+    return finished("plan", body, out, grid, time.perf_counter() - t0, time_budget)
+
+
+def _resolution(body: Any) -> float:
+    """The request's ``resolution`` (default 1 s), the grid its answer is written on."""
+    env = body.envelope if isinstance(body, payload.Columns) else body
+    env = env.get("stage_replan", {}).get("request", env)
+    value = env.get("resolution")
+    return float(value) if isinstance(value, int | float) and value > 0 else 1.0
+
+
+def _on_grid(kind: str, out: Outcome, grid: int) -> Outcome:
+    """The outcome with its times on the grid ``10**-grid`` s (``rounding``: lower bounds
+    down, plan times up), the lists' summary taken from the rounded result."""
+    if out.on_grid:
+        return out
+    parsed = out.result_json is not None  # a document of its own: rounded in place
+    doc = json.loads(out.result_json) if out.result_json is not None else out.result
+    if kind == "plan":
+        doc = rounding.round_plan(doc, grid, out.exact_makespan, copy=not parsed)
+        keys = ("makespan", "lower_bound")
+        summary = {**out.summary, **{k: doc[k] for k in keys if k in doc and k in out.summary}}
+    else:
+        doc = rounding.round_sizing(doc, grid, out.exact_makespan, copy=not parsed)
+        summary = out.summary
+    text = json.dumps(doc, allow_nan=False, separators=(",", ":"))
+    return Outcome(out.result, summary, out.cancelled, text, out.exact_makespan)
 
 
 def clock_block(body: Any) -> dict[str, Any] | None:

@@ -6,7 +6,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -63,6 +63,19 @@ def plan_request(data: dict[str, Any], budget: float) -> PlanAnswer:
 
     problem, spread = reading.read_plan_body(data)
     return usecases.plan(problem, method=data["method"], spread=spread, time_budget=budget)
+
+
+def on_grid(answer: Any, data: dict[str, Any], kind: str, **options: bool) -> dict[str, Any]:
+    """``answer.to_dict(**options)`` with its times on the grid of the request's
+    ``resolution``, rounded as the service writes them (``workers.planning.rounding``):
+    ``--json`` prints what ``GET /v1/{kind}s/{id}`` would answer."""
+    from workers.planning import rounding
+
+    grid = rounding.grid_decimals(float(data.get("resolution", 1.0)))
+    doc = answer.to_dict(**options)
+    if kind == "plan":
+        return rounding.round_plan(doc, grid, answer.result.exact_value)
+    return rounding.round_sizing(doc, grid, rounding.exact_makespan_of(answer.result))
 
 
 def finite(x: float) -> float | None:
@@ -154,6 +167,23 @@ def read_farm(path: str) -> tuple[list[dict[str, Any]], CsvRows | None]:
         f"{path} must hold a JSON list of nodes or an object with 'nodes'",
         [Issue((), "not a list of nodes")],
     )
+
+
+def add_local_arguments(
+    p: argparse.ArgumentParser,
+    body_options: Callable[[argparse.ArgumentParser], None],
+    *,
+    budget_help: str,
+    json_help: str,
+) -> None:
+    """What ``solve`` and ``size`` take alike: the batch file (a JSON request body or a CSV
+    of jobs), the options that fill in its body, ``--time-budget`` and ``--json``."""
+    p.add_argument(
+        "file", help="request body as JSON ('-' for standard input), or jobs as FILE.csv"
+    )
+    body_options(p)
+    p.add_argument("--time-budget", type=float, help=budget_help)
+    p.add_argument("--json", action="store_true", help=json_help)
 
 
 def add_plan_options(p: argparse.ArgumentParser) -> None:

@@ -14,7 +14,8 @@ from typing import Any
 from workers.planning.errors import InvalidInstance, Issue
 
 from ..csvio import plural
-from ._io import load_request, plan_request, print_json, time_budget
+from ._io import load_request, on_grid, plan_request, print_json, time_budget
+from ._text import duration, plan_lines
 
 NAME = "confidence"
 HELP = "plan a batch file and estimate by simulation how likely it makes its deadline"
@@ -39,12 +40,12 @@ def run(args: argparse.Namespace) -> int:
     if args.seed is not None:
         data["confidence_seed"] = args.seed
     answer = plan_request(data, time_budget(None, data))
-    block = answer.extra["confidence"]
+    doc = on_grid(answer, data, "plan")
     if args.json:
-        print_json(block)
+        print_json(doc["confidence"])
         return 0
-    print(answer.result.summary())
-    print(block_lines(block))
+    print(plan_lines(doc))
+    print(block_lines(doc["confidence"]))
     return 0
 
 
@@ -57,8 +58,8 @@ def block_lines(block: dict[str, Any]) -> str:
     ]
     for title, part in (("static", block), ("dynamic", block["dynamic"])):
         lines.append(
-            f"{title:<16}p50 {part['makespan_p50']:.6g} s, p90 {part['makespan_p90']:.6g} s, "
-            f"p99 {part['makespan_p99']:.6g} s"
+            f"{title:<16}p50 {duration(part['makespan_p50'])}, "
+            f"p90 {duration(part['makespan_p90'])}, p99 {duration(part['makespan_p99'])}"
         )
         p = part["deadline_probability"]
         if p is not None:

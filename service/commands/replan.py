@@ -10,6 +10,7 @@ from workers.planning.solve import METHODS
 
 from ..csvio import plural
 from ._io import print_json, read_json
+from ._text import duration, plan_lines
 
 NAME = "replan"
 HELP = (
@@ -69,13 +70,16 @@ def run(args: argparse.Namespace) -> int:
         res = replan(
             problem, reading.planned_nodes(result), ev, method=str(method), time_budget=seconds
         )
-    doc = res.to_dict()
+    from workers.planning import rounding
+
+    grid = rounding.grid_decimals(float(request.get("resolution", 1.0)))  # type: ignore[arg-type]
+    doc = rounding.round_plan(res.to_dict(), grid, res.exact_value)  # as the service writes it
     if args.json:
         print_json(doc)
     else:
-        print(res.summary())
+        print(plan_lines(doc))
         info = doc["replan"]
-        print(f"time origin     {info['time_origin']:.6g} s after the original start")
+        print(f"time origin     {duration(info['time_origin'])} after the original start")
         print(
             f"kept running    {plural(len(info['running']), 'job')}; planned again "
             f"{plural(info['planned'], 'job')}, {len(info['replanned_from_lost_nodes'])} from "

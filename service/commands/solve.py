@@ -6,7 +6,16 @@ import argparse
 
 from workers.planning.solve import METHODS
 
-from ._io import add_plan_options, check_request, plan_batch, plan_request, print_json, time_budget
+from ._io import (
+    add_local_arguments,
+    add_plan_options,
+    check_request,
+    on_grid,
+    plan_batch,
+    plan_request,
+    print_json,
+    time_budget,
+)
 
 NAME = "solve"
 HELP = (
@@ -16,13 +25,9 @@ HELP = (
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument(
-        "file", help="request body as JSON ('-' for standard input), or jobs as FILE.csv"
-    )
-    add_plan_options(p)
+    budget, json_help = "seconds of search (exact and auto)", "print exactly the result object"
+    add_local_arguments(p, add_plan_options, budget_help=budget, json_help=json_help)
     p.add_argument("--method", choices=METHODS, help="overrides the file's 'method'")
-    p.add_argument("--time-budget", type=float, help="seconds of search (exact and auto)")
-    p.add_argument("--json", action="store_true", help="print exactly the result object")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -37,12 +42,14 @@ def run(args: argparse.Namespace) -> int:
 
             warm_up()  # load the compiled search before its clock starts, not out of the budget
         answer = plan_request(data, budget)
+    doc = on_grid(answer, data, "plan")
     if args.json:
-        print_json(answer.to_dict())
+        print_json(doc)
     else:
+        from ._text import plan_lines
         from .confidence import block_lines
 
-        print(answer.result.summary())
-        if "confidence" in answer.extra:
-            print(block_lines(answer.extra["confidence"]))
+        print(plan_lines(doc))
+        if "confidence" in doc:
+            print(block_lines(doc["confidence"]))
     return 0

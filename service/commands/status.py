@@ -7,9 +7,9 @@ from typing import Any
 
 from ..csvio import plural
 from ..web.pages import certificate_sentence, deadline_text
-from ..web.svg import fmt_duration
 from . import _remote
 from ._io import print_json
+from ._text import duration
 
 NAME = "status"
 HELP = "show the status (and certificate, when done) of a plan or a sizing on a server"
@@ -27,7 +27,7 @@ def sizing_sentence(result: dict[str, Any]) -> str:
     text = (
         f"{plural(need, 'node')} {'meets' if need == 1 else 'meet'} the deadline of "
         f"{deadline_text(result, float(result['deadline']))} for these estimates (the plan "
-        f"finishes in {fmt_duration(float(result['makespan']))})"
+        f"finishes in {duration(float(result['makespan']))})"
     )
     if need == low:
         text += "; no fewer can (proven), so this is the fewest."

@@ -17,9 +17,9 @@ from ..cli import (
 )
 from ..client import ClientError
 from ..web.pages import deadline_text
-from ..web.svg import fmt_duration
 from . import _remote
 from ._io import add_plan_options, plan_batch
+from ._text import duration
 
 NAME = "submit"
 HELP = "submit a batch (JSON body or CSV of jobs) to a spanwright server"
@@ -42,7 +42,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     add_plan_options(p)
     p.add_argument("--method", choices=("list", "longest_first", "exact", "auto"))
     p.add_argument("--time-budget", type=float, help="seconds of search")
-    p.add_argument("--wait", action="store_true", help="follow progress until the plan is done")
+    p.add_argument(
+        "--wait",
+        action="store_true",
+        help="follow progress until the plan is done (the server's event stream, else polling)",
+    )
     p.add_argument("--json", action="store_true", help="print the final status body as JSON")
     _remote.add_server_arguments(p)
 
@@ -55,12 +59,12 @@ def deadline_verdict(result: dict[str, Any]) -> tuple[str, int] | None:
         return None
     when = deadline_text(result, float(dl["deadline"]))
     if dl.get("met"):
-        return f"deadline {when}: met, {fmt_duration(float(dl['slack']))} to spare", EXIT_OK
-    late = fmt_duration(-float(dl["slack"]))
+        return f"deadline {when}: met, {duration(float(dl['slack']))} to spare", EXIT_OK
+    late = duration(-float(dl["slack"]))
     if dl.get("provably_unreachable"):
         return (
             f"deadline {when}: provably unreachable: no plan can finish before "
-            f"{fmt_duration(float(result['lower_bound']))} ({result['bound_source']}); "
+            f"{duration(float(result['lower_bound']))} ({result['bound_source']}); "
             f"this one is {late} late",
             EXIT_DEADLINE_UNREACHABLE,
         )
@@ -82,7 +86,7 @@ def run(args: argparse.Namespace) -> int:
         print(f"submitted {doc['id']} ({doc.get('status')})", file=sys.stderr)
         if args.wait:
             line = _remote.ProgressLine(sys.stderr)
-            doc = api.wait(doc["id"], on_update=line)
+            doc = _remote.follow(api, doc["id"], on_update=line)  # live, through SSE
             line.close()
     except ClientError as err:
         return _remote.report_client_error(err, batch)
@@ -98,8 +102,8 @@ def run(args: argparse.Namespace) -> int:
         print(doc["id"])
         if res:
             print(
-                f"makespan {fmt_duration(res['makespan'])}, lower bound "
-                f"{fmt_duration(res['lower_bound'])} ({res['bound_source']}), "
+                f"makespan {duration(res['makespan'])}, lower bound "
+                f"{duration(res['lower_bound'])} ({res['bound_source']}), "
                 f"gap {100 * res['gap']:.3f}%"
             )
         if verdict:

@@ -48,9 +48,12 @@ def test_stage_plan_is_feasible_and_its_bounds_hold(client: Any) -> None:
         for job in row["jobs"]:
             j, k = ids.index(job["id"]), node_index[row["node"]]
             start = Fraction(job["start"])
-            # each job runs its stated duration at its node's speed, from a whole tick;
-            # the reference checks the plan in its whole ticks (durations rounded up)
-            assert Fraction(job["end"]) == start + Fraction(g.p[j]) / Fraction(g.speeds[k])
+            # each job runs its stated duration at its node's speed, from a whole tick; its
+            # end is written rounded up to the 1 s grid of resolution 1 (the contract's
+            # PlanResult rounding); the reference checks the plan in its whole ticks
+            # (durations rounded up)
+            exact_end = start + Fraction(g.p[j]) / Fraction(g.speeds[k])
+            assert Fraction(job["end"]) == math.ceil(exact_end)
             ticks = math.ceil(Fraction(g.p[j]) / Fraction(g.speeds[k]))
             rows.append((j, (k, job["slot"], int(start), int(start) + ticks)))
     rows.sort()

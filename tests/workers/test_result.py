@@ -97,3 +97,36 @@ def test_json_text_refuses_non_finite_times_like_json_dumps() -> None:
         json.dumps(res.schedule.to_assignment(), allow_nan=False)
     with pytest.raises(ValueError):
         res.schedule.assignment_json()
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    st.lists(st.floats(0.001, 5000.0), min_size=1, max_size=30),
+    st.lists(st.tuples(st.sampled_from([1.0, 1.5, 2.0, 3.0]), st.floats(0.0, 99.9)), max_size=4),
+    st.integers(1, 4),
+    st.sampled_from([0.001, 0.1, 0.25, 1.0, 5.0]),
+    st.sampled_from(["longest_first", "list"]),
+)
+def test_the_grid_written_from_arrays_is_the_parsed_document_rounded(
+    durations: list[float],
+    farm: list[tuple[float, float]],
+    m: int,
+    resolution: float,
+    method: str,
+) -> None:
+    """The worker writes a plan's times on the grid of its resolution straight from the
+    arrays (``PlanResult.to_json(grid=...)``); that text parses to exactly the document
+    ``rounding.round_plan`` makes of the plan's JSON (whose rules tests/service/
+    test_rounding.py checks against exact fractions), keys in the same order."""
+    from workers.planning import rounding
+    from workers.planning.model import Node
+
+    nodes: int | list[Node] = m
+    if farm:
+        nodes = [Node(f"n{k}", speed=s, free_at=f) for k, (s, f) in enumerate(farm)]
+    inst = Instance.build(durations, nodes, resolution=resolution, deadline=sum(durations) / 3)
+    res = solve(inst, method)
+    grid = rounding.grid_decimals(resolution)
+    slow = rounding.round_plan(json.loads(res.to_json()), grid, res.exact_value, copy=False)
+    fast = json.loads(res.to_json(grid=grid))
+    assert json.dumps(fast) == json.dumps(slow)

@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from . import rounding
 from .budget import StopReason
 from .certified import MakespanAnswer
 from .kernels import chain_starts, pure
@@ -193,18 +194,23 @@ class Schedule:
             )
         return out
 
-    def assignment_json(self) -> str:
+    def assignment_json(self, grid: int | None = None) -> str:
         """:meth:`to_assignment` as compact JSON text, built from the arrays directly.
 
         ``json.loads(assignment_json()) == to_assignment()``: the same nodes, jobs, ids and
         floats (each float written as ``json.dumps`` writes it, ``float.__repr__``), without
         making a dict per job first; several times faster for big batches. Non-finite
-        times are refused like ``json.dumps(..., allow_nan=False)`` refuses them.
+        times are refused like ``json.dumps(..., allow_nan=False)`` refuses them. With
+        ``grid``, every time is written rounded up on the grid ``10**-grid`` s
+        (``rounding.ceil_array``, as ``rounding.round_plan`` rounds a parsed plan).
         """
         inst = self.instance
         order = np.lexsort((self.start, self.node_of))
         start, end = self.start[order], self.end[order]
         loads = self.loads
+        if grid is not None:
+            start, end = rounding.ceil_array(start, grid), rounding.ceil_array(end, grid)
+            loads = rounding.ceil_array(loads, grid)
         if not (np.isfinite(start).all() and np.isfinite(end).all() and np.isfinite(loads).all()):
             raise ValueError("Out of range float values are not JSON compliant")
         cuts = np.searchsorted(self.node_of[order], np.arange(inst.m + 1)).tolist()
@@ -297,17 +303,7 @@ class PlanResult(MakespanAnswer):
     def to_dict(self, *, with_assignment: bool = True) -> dict[str, Any]:
         """The contract's ``result`` object."""
         out: dict[str, Any] = {
-            "makespan": self.makespan,
-            "lower_bound": self.lower_bound,
-            "bound_source": self.certificate.source,
-            "bounds": dict(self.certificate.bounds),
-            "gap": self.gap,
-            "proven_optimal": self.proven_optimal,
-            "method": self.method,
-            "worst_case_ratio": self.worst_case_ratio,
-            "stop_reason": self.stop_reason,
-            "solve_seconds": self.solve_seconds,
-            "deadline": self.deadline_dict(),
+            **self.contract_head(self.certificate.bounds, self.gap),
             "nodes": self.schedule.instance.m,
             "jobs": self.schedule.instance.n,
             "resolution": self.schedule.instance.resolution,
@@ -318,17 +314,28 @@ class PlanResult(MakespanAnswer):
             out["assignment"] = self.schedule.to_assignment()
         return out
 
-    def to_json(self, extra: Mapping[str, Any] | None = None) -> str:
+    def grid_head(self, grid: int) -> dict[str, Any]:
+        """``to_dict(with_assignment=False)`` on the grid ``10**-grid`` s, as
+        ``rounding.round_plan`` writes it with the assignment beside it."""
+        loads = self.schedule.loads
+        top = float(rounding.ceil_array(loads, grid).max()) if loads.size else 0.0
+        head = self.to_dict(with_assignment=False)
+        return rounding.round_plan(head, grid, self.exact_value, copy=False, top=top)
+
+    def to_json(self, extra: Mapping[str, Any] | None = None, grid: int | None = None) -> str:
         """``to_dict()`` (then the ``extra`` keys) as compact JSON, fast.
 
         ``json.loads(to_json(extra)) == {**to_dict(), **extra}``, with the keys in that
-        order; the assignment is written by :meth:`Schedule.assignment_json`.
+        order; the assignment is written by :meth:`Schedule.assignment_json`. With
+        ``grid``, it is ``rounding.round_plan`` of that document, without parsing it.
         """
-        head = self.to_dict(with_assignment=False)
+        head = self.to_dict(with_assignment=False) if grid is None else self.grid_head(grid)
         head.pop("assignment", None)
         text = json.dumps(head, allow_nan=False, separators=(",", ":"))
-        out = text[:-1] + ',"assignment":' + self.schedule.assignment_json()
+        out = text[:-1] + ',"assignment":' + self.schedule.assignment_json(grid)
         tail = {k: v for k, v in (extra or {}).items() if k != "assignment"}
+        if grid is not None and tail:
+            tail = rounding.round_plan(tail, grid, None)  # the confidence block's times
         if tail:
             out += "," + json.dumps(tail, allow_nan=False, separators=(",", ":"))[1:-1]
         return out + "}"

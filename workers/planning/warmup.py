@@ -17,10 +17,16 @@ def warm_up_sizing() -> None:
 
 
 def warm_up_exact() -> None:
-    """Every kernel of the exact search for identical nodes, LP bound included."""
+    """Every kernel of the exact searches: identical nodes (LP bound included), farms
+    (the pattern LP's knapsack and scipy's LP solver) and stage graphs (the list
+    scheduler and its local walk)."""
+    from . import farm_exact_lp
     from .exact import warm_up
+    from .stages import listing
 
     warm_up()
+    farm_exact_lp.warm_up()
+    listing.warm_up()
 
 
 def warm_up_rental() -> None:

@@ -74,7 +74,7 @@ def test_progress_on_a_slow_solve(
     )
     assert code == 0
     err = capsys.readouterr().err
-    lines = [ln for ln in err.splitlines() if "/2.0 s" in ln]
+    lines = [ln for ln in err.splitlines() if " of 2s" in ln]
     assert any(ln.startswith("solving") for ln in lines), err
     assert lines[-1].startswith("done")
     assert "best " in lines[-1] and "bound " in lines[-1]
@@ -218,3 +218,62 @@ def test_export_of_a_cancelled_plan_best_so_far(
     assert "was cancelled; exporting its best plan so far" in captured.err
     rows = list(csv.DictReader(io.StringIO(captured.out)))
     assert sorted(r["job"] for r in rows) == sorted(j["id"] for j in body["jobs"])
+
+
+def test_submit_wait_follows_the_event_stream(
+    url: str, tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """``submit --wait`` follows the record through ``GET /v1/plans/{id}/events`` (the
+    WHATWG event-stream format: ``progress`` events, then one ``end`` with the final status
+    document), not by polling: with polling made to fail, it still ends done, and the
+    last progress line is the final document's."""
+    import json
+
+    from service.client import Client
+
+    def no_polling(*args: Any, **kw: Any) -> Any:
+        raise AssertionError("polled instead of following the event stream")
+
+    monkeypatch.setattr(Client, "wait", no_polling)
+    f = tmp_path / "batch.json"
+    f.write_text(json.dumps({"jobs": [{"id": "a", "duration": 7}, {"id": "b", "duration": 5}]}))
+    assert main(["submit", str(f), "--nodes", "2", "--server", url, "--wait"]) == 0
+    captured = capsys.readouterr()
+    assert captured.out.split()[1:3] == ["makespan", "7s,"]
+    assert captured.err.splitlines()[-1].startswith("done")
+
+
+def test_event_stream_parsed_as_the_standard_says(url: str) -> None:
+    """The events of a finished plan's stream: the reconnection delay is no event, then one
+    ``end`` whose data is the status document of ``GET /v1/plans/{id}``, as one JSON line."""
+    import json
+
+    from service.client import Client
+    from service.commands import _remote
+
+    api = Client(url)
+    rid = api.submit({"jobs": [{"id": "a", "duration": 3}], "node_count": 1})["id"]
+    final = api.wait(rid, timeout=30)
+    seen = list(_remote.events(api, rid))
+    assert [name for name, _ in seen] == ["end"]
+    assert json.loads(seen[0][1]) == final
+
+
+def test_submit_wait_polls_a_server_without_the_stream(
+    url: str, tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A server that answers the stream with a 404 (an older one) is polled instead, with
+    the same outcome."""
+    import json
+
+    from service.client import ClientError
+    from service.commands import _remote
+
+    def no_stream(*args: Any, **kw: Any) -> Any:
+        raise ClientError(404, {"detail": "no event stream (404)"})
+
+    monkeypatch.setattr(_remote, "events", no_stream)
+    f = tmp_path / "batch.json"
+    f.write_text(json.dumps({"jobs": [{"id": "a", "duration": 7}, {"id": "b", "duration": 5}]}))
+    assert main(["submit", str(f), "--nodes", "2", "--server", url, "--wait"]) == 0
+    assert capsys.readouterr().err.splitlines()[-1].startswith("done")
