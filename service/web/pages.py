@@ -16,7 +16,8 @@ from ..reading.clock import parse_time
 from .stage_svg import StageRequest, limit_chart
 from .svg import FarmNode, fmt_duration, line_chart, timeline
 
-#: seconds between self-refreshes of a page whose plan is still being worked on
+#: seconds between self-refreshes of a page whose plan is still being worked on (without
+#: JavaScript; with it, a record's page follows its event stream instead)
 REFRESH_SECONDS = 2
 
 #: what proved a plan's lower bound, to read after "proven by"
@@ -147,6 +148,20 @@ def progress_sentence(progress: dict[str, Any]) -> str:
     return text + " longer than the best possible."
 
 
+def record_row(item: Mapping[str, Any], page: str) -> dict[str, str]:
+    """The cells every list page's row starts with: the record (its id, linked to its page
+    under ``/{page}/``, its name and method), its status and when it was submitted."""
+    return {
+        "id": item["id"],
+        "href": f"/{page}/{item['id']}",
+        "name": item.get("name") or "",
+        "method": item.get("method") or "",
+        "status": item.get("status", "?"),
+        "submitted_at": item.get("submitted_at", ""),
+        "submitted": when(item.get("submitted_at") or ""),
+    }
+
+
 def list_rows(items: list[dict[str, Any]]) -> list[dict[str, str]]:
     """Rows of the plan list page."""
     rows = []
@@ -157,11 +172,7 @@ def list_rows(items: list[dict[str, Any]]) -> list[dict[str, str]]:
         met = "-" if flag is None else ("met" if flag else "missed")
         rows.append(
             {
-                "id": it["id"],
-                "href": f"/plans/{it['id']}",
-                "name": it.get("name") or "",
-                "method": it.get("method") or "",
-                "status": it.get("status", "?"),
+                **record_row(it, "plans"),
                 "size": f"{r.get('jobs', '-')} / {r.get('nodes', '-')}",
                 "makespan": fmt_duration(r["makespan"]) if "makespan" in r else "-",
                 "lower_bound": fmt_duration(r["lower_bound"]) if "lower_bound" in r else "-",
@@ -169,8 +180,6 @@ def list_rows(items: list[dict[str, Any]]) -> list[dict[str, str]]:
                 "met": met,
                 "met_class": {"met": "met-yes", "missed": "met-no"}.get(met, ""),
                 "deadline_at": clock_deadline(r),
-                "submitted_at": it.get("submitted_at", ""),
-                "submitted": when(it.get("submitted_at") or ""),
             }
         )
     return rows
@@ -178,12 +187,16 @@ def list_rows(items: list[dict[str, Any]]) -> list[dict[str, str]]:
 
 def record_context(kind: str, record: dict[str, Any]) -> tuple[dict[str, Any], bool]:
     """The template values every record's page starts from (title, the record under the name
-    of its ``kind``, the self-refresh while it is worked on), and whether it is."""
+    of its ``kind``), and whether it is still worked on. While it is, the page follows
+    the record's event stream by script (``live``: the stream's path and the kind, read
+    by static/live.js) and, without JavaScript, refreshes itself every ``refresh``
+    seconds."""
     working = record.get("status") in ("queued", "solving")
     ctx: dict[str, Any] = {
         "title": f"{kind} {record['id']}",
         kind: record,
         "refresh": REFRESH_SECONDS if working else None,
+        "live": {"events": f"/v1/{kind}s/{record['id']}/events", "kind": kind} if working else None,
     }
     return ctx, working
 

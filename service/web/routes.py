@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from collections.abc import Callable
 from typing import Any
 
 from flask import Blueprint, Response, render_template, request
@@ -14,7 +15,14 @@ from . import pages, sizings
 from .stage_svg import StageRequest
 from .svg import FarmNode
 
-blueprint = Blueprint("pages", __name__, template_folder="templates")
+#: static/live.js, the script a working record's page follows its event stream with
+blueprint = Blueprint(
+    "pages",
+    __name__,
+    template_folder="templates",
+    static_folder="static",
+    static_url_path="/static/web",
+)
 
 #: above this many jobs the page shows the certificate but not every bar
 MAX_TIMELINE_JOBS = 20_000
@@ -85,34 +93,40 @@ def _with_results(kind: str, items: list[dict[str, Any]]) -> list[dict[str, Any]
     return items
 
 
-@blueprint.get("/")
-def plan_list() -> Response:
-    items, nxt = services().store.list(tenant(), "plan", limit=50, cursor=_cursor())
+def _list_page(
+    kind: str,
+    template: str,
+    path: str,
+    rows: Callable[[list[dict[str, Any]]], list[dict[str, str]]],
+) -> Response:
+    """One page of the caller's records of ``kind``, newest first, with a link to the next
+    (older) page at ``path?cursor=...``."""
+    items, nxt = services().store.list(tenant(), kind, limit=50, cursor=_cursor())
     return _html(
         render_template(
-            "list.html",
-            title="recent plans",
-            rows=pages.list_rows(items),
-            next_href=f"/?cursor={nxt}" if nxt else None,
+            template,
+            title=f"recent {kind}s",
+            rows=rows(items),
+            next_href=f"{path}?cursor={nxt}" if nxt else None,
             banner=_banner(),
             refresh=_refresh(items),
         )
     )
 
 
+@blueprint.get("/")
+def plan_list() -> Response:
+    return _list_page("plan", "list.html", "/", pages.list_rows)
+
+
 @blueprint.get("/sizings")
 def sizing_list() -> Response:
     """The caller's sizings, newest first, like the plans at ``GET /`` (issue 19 point 3)."""
-    items, nxt = services().store.list(tenant(), "sizing", limit=50, cursor=_cursor())
-    return _html(
-        render_template(
-            "sizings.html",
-            title="recent sizings",
-            rows=sizings.sizing_list_rows(_with_results("sizing", items)),
-            next_href=f"/sizings?cursor={nxt}" if nxt else None,
-            banner=_banner(),
-            refresh=_refresh(items),
-        )
+    return _list_page(
+        "sizing",
+        "sizings.html",
+        "/sizings",
+        lambda items: sizings.sizing_list_rows(_with_results("sizing", items)),
     )
 
 

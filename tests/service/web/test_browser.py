@@ -19,6 +19,7 @@ import time
 import urllib.error
 import urllib.request
 from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import replace
 from pathlib import Path
 from typing import Any
@@ -64,8 +65,10 @@ def settings(settings: Settings) -> Settings:
     return replace(settings, max_time_budget=SOLVING_BUDGET, max_nodes=100)
 
 
-@pytest.fixture
-def browser() -> Iterator[Any]:
+@contextmanager
+def chromium(javascript: bool = True) -> Iterator[Any]:
+    """Headless Chromium through chromedriver (skips when either is missing); with
+    ``javascript=False`` it runs no script, as a reader who turned JavaScript off."""
     _need_browser()
     from selenium import webdriver
     from selenium.webdriver.chrome.service import Service
@@ -79,6 +82,10 @@ def browser() -> Iterator[Any]:
         "--hide-scrollbars", "--force-device-scale-factor=1",
     ):  # fmt: skip
         opts.add_argument(arg)
+    if not javascript:
+        opts.add_experimental_option(
+            "prefs", {"profile.managed_default_content_settings.javascript": 2}
+        )
     opts.binary_location = CHROMIUM or ""
     driver = webdriver.Chrome(service=Service(DRIVER or ""), options=opts)
     driver.set_page_load_timeout(30)
@@ -87,6 +94,12 @@ def browser() -> Iterator[Any]:
     finally:
         driver.quit()
         shutil.rmtree(profile, ignore_errors=True)
+
+
+@pytest.fixture
+def browser() -> Iterator[Any]:
+    with chromium() as driver:
+        yield driver
 
 
 @pytest.fixture
@@ -163,7 +176,7 @@ def shot(driver: Any, name: str, still: str = "true") -> Path:
 
 
 #: one chart's own axis (from its <svg> attributes), points, marks and the page status,
-#: read in one script so a self-refreshing page cannot change between the reads
+#: read in one script so a live or self-refreshing page cannot change between the reads
 READ_CHART = """
 const svg = document.querySelector(arguments[0]);
 const status = document.querySelector('p.status');
@@ -273,8 +286,9 @@ def test_list_page_links_to_plan(browser: Any, url: str) -> None:
 
 
 def test_solving_page_turns_done_by_itself(browser: Any, url: str) -> None:
-    """A plan opened while its exact search runs refreshes itself until it shows done,
-    with no reload from the test (the page's own refresh, no JavaScript needed)."""
+    """A plan opened while its exact search runs turns to done with no reload from the
+    test (the page follows its event stream and loads the finished page at its end;
+    without JavaScript its own refresh does it, test_live_pages.py)."""
     from selenium.common.exceptions import StaleElementReferenceException
     from selenium.webdriver.support.ui import WebDriverWait
 
@@ -300,13 +314,13 @@ def test_solving_page_turns_done_by_itself(browser: Any, url: str) -> None:
 
 def test_solving_page_charts_incumbent_and_bound(browser: Any, url: str, app: Any) -> None:
     """An exact search with a 6 s budget on a batch it cannot prove optimal in seconds,
-    its page opened while it runs: once the page (by its own refresh) shows at least 6
-    progress points, each point of the best-makespan and the lower-bound lines sits where
-    the chart's own axes put that point of the plan's stored progress history (the
-    history the worker wrote; the page's points are its first entries, in order), the x
-    axis runs from 0 to the time budget the JSON API reports, and the JSON API's latest
-    progress is no worse than the page's last points (best makespan only falls, the
-    bound only rises)."""
+    its page opened while it runs: once the page (which fetches its chart again while it
+    follows the event stream) shows at least 6 progress points, each point of the
+    best-makespan and the lower-bound lines sits where the chart's own axes put that
+    point of the plan's stored progress history (the history the worker wrote; the
+    page's points are its first entries, in order), the x axis runs from 0 to the time
+    budget the JSON API reports, and the JSON API's latest progress is no worse than the
+    page's last points (best makespan only falls, the bound only rises)."""
     from selenium.webdriver.support.ui import WebDriverWait
 
     store = app.extensions["spanwright"].store
