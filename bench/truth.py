@@ -51,16 +51,7 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests"))
 
-from reference import (  # noqa: E402
-    exact_min_nodes,
-    exact_optimum,
-    exact_plan_makespan,
-    float_at_or_above,
-    float_below,
-    float_near,
-    plan_problems,
-    tick_count,
-)
+import reference as ref  # noqa: E402  (the exact oracle of the tests)
 
 METHODS = ("list", "longest_first", "exact", "auto")
 ROWS = (*METHODS, "size")
@@ -116,23 +107,23 @@ def instance(seed: int, i: int) -> dict[str, Any]:
         gpu = tags and (k == 0 or rnd.random() < 0.5)
         nodes.append((speed, free_at, frozenset({"gpu"}) if gpu else PLAIN))
     requires = [frozenset({"gpu"}) if rnd.random() < 0.5 else PLAIN for _ in d] if tags else None
-    opt = exact_optimum(d, nodes, requires)
+    opt = ref.exact_optimum(d, nodes, requires)
     size_speed = nodes[0][0]
     size_where = rnd.choice(["below", "at", "under", "over", "infeasible"])
     longest = Fraction(max(d)) / Fraction(size_speed)
     if size_where == "infeasible":  # one float below the longest job: no count can do it
-        size_deadline = float_below(longest)
+        size_deadline = ref.float_below(longest)
     else:
         k = rnd.randint(1, n)
-        on_k = exact_optimum(d, [(size_speed, 0.0, nodes[0][2])] * k, requires)
-        size_deadline = max(float_near(on_k, size_where), float_at_or_above(longest))
+        on_k = ref.exact_optimum(d, [(size_speed, 0.0, nodes[0][2])] * k, requires)
+        size_deadline = max(ref.float_near(on_k, size_where), ref.float_at_or_above(longest))
     return {
         "index": i,
         "durations": d,
         "nodes": nodes,
         "requires": requires,
         "resolution": rnd.choice(RESOLUTIONS),
-        "deadline": float_near(opt, rnd.choice(["below", "at", "under", "over"])),
+        "deadline": ref.float_near(opt, rnd.choice(["below", "at", "under", "over"])),
         "opt": opt,
         "size_speed": size_speed,
         "size_provides": nodes[0][2],
@@ -144,9 +135,9 @@ def ticks(inst: dict[str, Any], sizing: bool = False) -> tuple[Fraction, Fractio
     """(the largest tick count the plan or the sizing can reach, the longest job in ticks)."""
     d, r = inst["durations"], inst["resolution"]
     if sizing:
-        most = tick_count(d, [(inst["size_speed"], 0.0, PLAIN)], r, inst["size_deadline"])
+        most = ref.tick_count(d, [(inst["size_speed"], 0.0, PLAIN)], r, inst["size_deadline"])
     else:
-        most = tick_count(d, inst["nodes"], r, inst["deadline"])
+        most = ref.tick_count(d, inst["nodes"], r, inst["deadline"])
     return most, Fraction(max(d)) / Fraction(r)
 
 
@@ -198,7 +189,7 @@ def check_plan(inst: dict[str, Any], method: str, budget: float) -> tuple[list[s
         why.append(f"lower bound {r['lower_bound']!r} {above} > optimum {float(opt)!r}")
     # proven: the plan's exact makespan is the optimum, stated rounded to the nearest float
     proven_wrong = r["proven_optimal"] and (
-        r["makespan"] != float(opt) or exact_plan_makespan(r, d, nodes, ids(len(d))) != opt
+        r["makespan"] != float(opt) or ref.exact_plan_makespan(r, d, nodes, ids(len(d))) != opt
     )
     if proven_wrong or ((r["gap"] == 0) != r["proven_optimal"]):
         kinds.append("false optima")
@@ -209,7 +200,7 @@ def check_plan(inst: dict[str, Any], method: str, budget: float) -> tuple[list[s
     if r["deadline"]["provably_unreachable"] and Fraction(inst["deadline"]) >= opt:
         kinds.append("false unreachable")
         why.append(f"deadline {inst['deadline']!r} called unreachable, optimum {float(opt)!r}")
-    problems = plan_problems(r, d, nodes, inst["requires"], ids(len(d)))
+    problems = ref.plan_problems(r, d, nodes, inst["requires"], ids(len(d)))
     if problems:
         kinds.append("infeasible plans")
         why.extend(problems[:3])
@@ -226,7 +217,7 @@ def check_sizing(inst: dict[str, Any], budget: float) -> tuple[list[str], list[s
 
     d, speed, deadline = inst["durations"], inst["size_speed"], inst["size_deadline"]
     provides = inst["size_provides"] | (frozenset({"gpu"}) if inst["requires"] else PLAIN)
-    truth = exact_min_nodes(d, deadline, speed, provides, inst["requires"])
+    truth = ref.exact_min_nodes(d, deadline, speed, provides, inst["requires"])
     most, longest = ticks(inst, sizing=True)
     try:
         r = size(
@@ -255,7 +246,7 @@ def check_sizing(inst: dict[str, Any], budget: float) -> tuple[list[str], list[s
         kinds.append("false optima")
         why.append(f"proven at {r['nodes_needed']}, fewest {truth}")
     spec = [(speed, 0.0, provides)] * r["nodes_needed"]
-    problems = plan_problems(r, d, spec, inst["requires"], ids(len(d)), deadline)
+    problems = ref.plan_problems(r, d, spec, inst["requires"], ids(len(d)), deadline)
     if problems:
         kinds.append("infeasible plans")
         why.extend(problems[:3])

@@ -7,7 +7,7 @@ import math
 from collections.abc import Mapping
 from typing import Any, TypeGuard
 
-from workers.planning.errors import InvalidInstance, Issue
+from workers.planning.errors import InvalidInstance, Issue, Path
 from workers.planning.model import Node
 from workers.planning.replan import Events, RemainingWork, Running
 
@@ -18,14 +18,20 @@ def _num(x: object) -> TypeGuard[int | float]:
     return isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x)
 
 
-def _ids(body: Mapping[str, Any], key: str, issues: list[Issue]) -> tuple[str, ...]:
+def _list(body: Mapping[str, Any], key: str, of: str, issues: list[Issue]) -> list[Any]:
+    """The list at ``key`` (absent or null: empty); anything else is refused as not a list
+    of ``of``, and read as empty."""
     raw = body.get(key) or []
-    if not isinstance(raw, list):
-        issues.append(Issue((key,), "must be a list of ids"))
-        return ()
+    if isinstance(raw, list):
+        return raw
+    issues.append(Issue((key,), f"must be a list of {of}"))
+    return []
+
+
+def _ids(body: Mapping[str, Any], key: str, issues: list[Issue]) -> tuple[str, ...]:
     out: list[str] = []
     seen: set[str] = set()
-    for i, x in enumerate(raw):
+    for i, x in enumerate(_list(body, key, "ids", issues)):
         if not isinstance(x, str) or not x:
             issues.append(Issue((key, i), "must be a non-empty string"))
         elif x in seen:
@@ -34,6 +40,49 @@ def _ids(body: Mapping[str, Any], key: str, issues: list[Issue]) -> tuple[str, .
             seen.add(x)
             out.append(x)
     return tuple(out)
+
+
+def _running(r: object, ptr: Path, elapsed: float, issues: list[Issue]) -> Running | None:
+    """One entry of ``running`` (at ``ptr``), or None where it names no job and node."""
+    if not isinstance(r, Mapping):
+        issues.append(Issue(ptr, "must be an object"))
+        return None
+    job, node, at = r.get("job"), r.get("node"), r.get("started_at")
+    if not isinstance(job, str) or not job:
+        issues.append(Issue((*ptr, "job"), "must be a job id"))
+    if not isinstance(node, str) or not node:
+        issues.append(Issue((*ptr, "node"), "must be a node id"))
+    started = 0.0
+    if _num(at) and 0 <= at <= elapsed:
+        started = float(at)
+    else:
+        issues.append(Issue((*ptr, "started_at"), "must be a number between 0 and elapsed"))
+    if isinstance(job, str) and isinstance(node, str):
+        return Running(job, node, started)
+    return None
+
+
+def _added_node(nd: object, ptr: Path, issues: list[Issue]) -> Node | None:
+    """One entry of ``added_nodes`` (at ``ptr``), or None where it has no id."""
+    if not isinstance(nd, Mapping) or not isinstance(nd.get("id"), str) or not nd["id"]:
+        issues.append(Issue((*ptr, "id"), "must be a node with a non-empty string id"))
+        return None
+    if nd.get(NODE_FIELD) is not None:
+        issues.append(
+            Issue((*ptr, NODE_FIELD), "not used in events: give free_at, seconds from now")
+        )
+    speed, free = nd.get("speed", 1.0), nd.get("free_at", 0.0)
+    tags = nd.get("provides") or []
+    if not _num(speed) or speed <= 0:
+        issues.append(Issue((*ptr, "speed"), "must be a finite number > 0"))
+        speed = 1.0
+    if not _num(free) or free < 0:
+        issues.append(Issue((*ptr, "free_at"), "must be a finite number >= 0"))
+        free = 0.0
+    if not isinstance(tags, list) or not all(isinstance(t, str) and t for t in tags):
+        issues.append(Issue((*ptr, "provides"), "must be a list of non-empty strings"))
+        tags = []
+    return Node(nd["id"], float(speed), frozenset(tags), float(free))
 
 
 def read_events(body: Mapping[str, Any]) -> Events:
@@ -50,53 +99,15 @@ def read_events(body: Mapping[str, Any]) -> Events:
     finished = _ids(body, "finished", issues)
     lost = _ids(body, "lost_nodes", issues)
     running: list[Running] = []
-    raw = body.get("running") or []
-    if not isinstance(raw, list):
-        issues.append(Issue(("running",), "must be a list of {job, node, started_at}"))
-        raw = []
-    for i, r in enumerate(raw):
-        ptr = ("running", i)
-        if not isinstance(r, Mapping):
-            issues.append(Issue(ptr, "must be an object"))
-            continue
-        job, node, at = r.get("job"), r.get("node"), r.get("started_at")
-        if not isinstance(job, str) or not job:
-            issues.append(Issue((*ptr, "job"), "must be a job id"))
-        if not isinstance(node, str) or not node:
-            issues.append(Issue((*ptr, "node"), "must be a node id"))
-        started = 0.0
-        if _num(at) and 0 <= at <= elapsed:
-            started = float(at)
-        else:
-            issues.append(Issue((*ptr, "started_at"), "must be a number between 0 and elapsed"))
-        if isinstance(job, str) and isinstance(node, str):
-            running.append(Running(job, node, started))
+    for i, r in enumerate(_list(body, "running", "{job, node, started_at}", issues)):
+        entry = _running(r, ("running", i), elapsed, issues)
+        if entry is not None:
+            running.append(entry)
     added: list[Node] = []
-    raw = body.get("added_nodes") or []
-    if not isinstance(raw, list):
-        issues.append(Issue(("added_nodes",), "must be a list of nodes"))
-        raw = []
-    for k, nd in enumerate(raw):
-        ptr = ("added_nodes", k)
-        if not isinstance(nd, Mapping) or not isinstance(nd.get("id"), str) or not nd["id"]:
-            issues.append(Issue((*ptr, "id"), "must be a node with a non-empty string id"))
-            continue
-        if nd.get(NODE_FIELD) is not None:
-            issues.append(
-                Issue((*ptr, NODE_FIELD), "not used in events: give free_at, seconds from now")
-            )
-        speed, free = nd.get("speed", 1.0), nd.get("free_at", 0.0)
-        tags = nd.get("provides") or []
-        if not _num(speed) or speed <= 0:
-            issues.append(Issue((*ptr, "speed"), "must be a finite number > 0"))
-            speed = 1.0
-        if not _num(free) or free < 0:
-            issues.append(Issue((*ptr, "free_at"), "must be a finite number >= 0"))
-            free = 0.0
-        if not isinstance(tags, list) or not all(isinstance(t, str) and t for t in tags):
-            issues.append(Issue((*ptr, "provides"), "must be a list of non-empty strings"))
-            tags = []
-        added.append(Node(nd["id"], float(speed), frozenset(tags), float(free)))
+    for k, nd in enumerate(_list(body, "added_nodes", "nodes", issues)):
+        node = _added_node(nd, ("added_nodes", k), issues)
+        if node is not None:
+            added.append(node)
     method = body.get("method")
     if method is not None and not isinstance(method, str):
         issues.append(Issue(("method",), "must be a string"))

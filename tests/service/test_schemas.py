@@ -14,6 +14,7 @@ from service.problems import LimitExceeded, json_pointer
 from service.reading import read_columns, read_instance
 from service.schemas import JobList, JobSchema, load_plan_request, messages_to_issues
 from service.settings import Settings
+from tests.service.plan_verdicts import envelopes, verdict
 from workers.planning.errors import InvalidInstance
 
 S = Settings(max_jobs=10, max_nodes=4, max_time_budget=3.0, default_time_budget=1.0)
@@ -160,32 +161,7 @@ _plain_jobs = st.lists(
     ),
     max_size=4,
 )
-_envelope = st.fixed_dictionaries(
-    {},
-    optional={
-        "node_count": st.one_of(st.integers(0, 5), st.sampled_from([2.0, 2.5, "2", True])),
-        "nodes": st.lists(
-            st.fixed_dictionaries({"id": st.sampled_from(["n", "m", ""])}), max_size=2
-        ),
-        "method": st.sampled_from(["longest_first", "list", "bogus"]),
-        "time_budget": st.sampled_from([0.5, 9.0, -1.0]),
-        "deadline": st.sampled_from([100.0, 0.0, None]),
-        "name": st.text(max_size=2),
-        "colour": st.just("red"),
-    },
-)
-
-
-def _verdict(run: Any) -> Any:
-    try:
-        data = run()
-    except (InvalidInstance, LimitExceeded) as exc:
-        return (
-            type(exc).__name__,
-            exc.detail,
-            [(json_pointer(i.path), i.detail) for i in exc.issues],
-        )
-    return ("ok", data)
+_envelope = envelopes(5)
 
 
 @settings(max_examples=400, deadline=None)
@@ -208,8 +184,8 @@ def test_read_once_in_columns_agrees_with_the_per_job_path(
         read_instance(data)
         return data
 
-    got = _verdict(lambda: read_plan(body, S).data)
-    assert got == _verdict(reference)
+    got = verdict(lambda: read_plan(body, S).data)
+    assert got == verdict(reference)
     # when a worker's copy was stored, it reads back to the per-job path's instance
     work = read_plan(body, S).work if got[0] == "ok" else None
     copies = [] if work is None else [payload.decode(work)]
