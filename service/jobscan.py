@@ -93,6 +93,8 @@ def scan(
         ids.clear()
 
     def hook(pairs: list[tuple[str, Any]]) -> Any:
+        if len(ids) >= _BATCH:  # the jobs read so far into one text, before the next
+            pack()
         if len(pairs) == 2:  # the common case first: {"id": ..., "duration": ...}
             (k1, v1), (k2, v2) = pairs
             if k1 == "id" and k2 == "duration" and type(v1) is str:
@@ -102,8 +104,6 @@ def scan(
                     add_seconds(v2)
                     if grouped:
                         add_group(None)
-                    if len(ids) == _BATCH:
-                        pack()
                     return _MARK
         elif len(pairs) != 3 or not grouped:
             return dict(pairs)
@@ -115,8 +115,6 @@ def scan(
                     add_id(v1)
                     add_seconds(v2)
                     add_group(v3)
-                    if len(ids) == _BATCH:
-                        pack()
                     return _MARK
         job = dict(pairs)  # any other order, or not plain
         if len(job) == len(pairs) and _KEYS.issuperset(job) and "id" in job:
@@ -131,8 +129,6 @@ def scan(
                 add_seconds(x)
                 if grouped:
                     add_group(group)
-                if len(ids) == _BATCH:
-                    pack()
                 return _MARK
         return job
 

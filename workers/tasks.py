@@ -97,24 +97,12 @@ def solve_plan(
     result = answer.to_dict(with_assignment=False)
     if isinstance(res, PlanResult):  # written on the grid straight from the arrays
         grid = rounding.grid_decimals(inst.resolution)
-        text = res.to_json(answer.extra, grid)
-        head = _head_of(text) or res.grid_head(grid)
+        head = res.grid_head(grid)
+        text = res.to_json(answer.extra, grid, head)
         out = plan_outcome(res, result, text, inst.n, inst.m)
         summary = {**out.summary, "makespan": head["makespan"], "lower_bound": head["lower_bound"]}
         return dataclasses.replace(out, summary=summary, on_grid=True)
     return plan_outcome(res, result, answer.to_json(), inst.n, inst.m)
-
-
-def _head_of(text: str) -> dict[str, Any] | None:
-    """The fields before ``assignment`` of a plan's result JSON (``PlanResult.to_json``
-    writes the rounded head, then the assignment), read without the assignment; None if
-    they cannot be (text cut inside a nested object does not parse)."""
-    cut = text.find(',"assignment":')
-    try:
-        head = json.loads(text[:cut] + "}") if cut > 0 else None
-    except ValueError:
-        return None
-    return head if isinstance(head, dict) and {"makespan", "lower_bound"} <= head.keys() else None
 
 
 def plan_outcome(res: Any, result: dict[str, Any], text: str, jobs: int, nodes: int) -> Outcome:

@@ -19,7 +19,7 @@ from ..schemas import (
 )
 from ..settings import Settings
 from .events import add_events
-from .jobs import Resource, Validated, make_blueprint
+from .jobs import SOLVE_HERE_MAX_JOBS, Resource, Validated, make_blueprint
 
 
 def read_plan(body: Any, settings: Settings) -> Validated:
@@ -71,6 +71,8 @@ def _checked(data: dict[str, Any], cols: payload.Columns) -> Validated:
     limits and slots in the envelope make it a stage graph), and what they made."""
     env = cols.envelope
     problem = with_stages(read_columns(env, cols.ids, cols.durations, cols.groups), env)
+    if len(cols.ids) > SOLVE_HERE_MAX_JOBS:
+        problem = None  # only a small plan may be solved here: not held while encoding
     work = payload.encode(env, cols.ids, cols.durations, cols.groups)
     return Validated(data, work, columns=cols, problem=problem)
 

@@ -322,16 +322,23 @@ class PlanResult(MakespanAnswer):
         head = self.to_dict(with_assignment=False)
         return rounding.round_plan(head, grid, self.exact_value, copy=False, top=top)
 
-    def to_json(self, extra: Mapping[str, Any] | None = None, grid: int | None = None) -> str:
+    def to_json(
+        self,
+        extra: Mapping[str, Any] | None = None,
+        grid: int | None = None,
+        head: Mapping[str, Any] | None = None,
+    ) -> str:
         """``to_dict()`` (then the ``extra`` keys) as compact JSON, fast.
 
         ``json.loads(to_json(extra)) == {**to_dict(), **extra}``, with the keys in that
         order; the assignment is written by :meth:`Schedule.assignment_json`. With
-        ``grid``, it is ``rounding.round_plan`` of that document, without parsing it.
+        ``grid``, it is ``rounding.round_plan`` of that document, without parsing it;
+        ``head`` is :meth:`grid_head` of that grid when the caller has it already.
         """
-        head = self.to_dict(with_assignment=False) if grid is None else self.grid_head(grid)
-        head.pop("assignment", None)
-        text = json.dumps(head, allow_nan=False, separators=(",", ":"))
+        if head is None:
+            head = self.to_dict(with_assignment=False) if grid is None else self.grid_head(grid)
+        fields = {k: v for k, v in head.items() if k != "assignment"}
+        text = json.dumps(fields, allow_nan=False, separators=(",", ":"))
         out = text[:-1] + ',"assignment":' + self.schedule.assignment_json(grid)
         tail = {k: v for k, v in (extra or {}).items() if k != "assignment"}
         if grid is not None and tail:
