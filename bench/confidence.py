@@ -18,7 +18,6 @@ load average is printed, because the timings depend on it.
 
 from __future__ import annotations
 
-import argparse
 import math
 import os
 import statistics
@@ -27,6 +26,9 @@ import time
 from pathlib import Path
 
 import numpy as np
+
+# scale_options: bench/, beside this script
+from scale_options import scale_options
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
@@ -79,11 +81,8 @@ def numpy_reference(sched, model, samples: int, seed: int, deadline: float):  # 
 
 
 def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--jobs", type=int, default=10_000)
-    ap.add_argument("--nodes", type=int, default=200)
+    ap = scale_options(__doc__, jobs=10_000, nodes=200)
     ap.add_argument("--samples", type=int, default=10_000)
-    ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--seed", type=int, default=2026)
     args = ap.parse_args()
 

@@ -15,13 +15,15 @@ a tenth of the jobs require a tag that half the nodes provide.
 
 from __future__ import annotations
 
-import argparse
 import gc
 import graphlib
 import time
 from typing import Any
 
 import numpy as np
+
+# scale_options: bench/, beside this script
+from scale_options import scale_options
 
 from workers.planning import Instance, Node
 from workers.planning.stages.list_kernel import kernel_loaded
@@ -74,11 +76,8 @@ def generate(jobs: int, arcs: int, nodes: int, seed: int = 1) -> dict[str, Any]:
 
 
 def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--jobs", type=int, default=100_000)
+    ap = scale_options(__doc__, jobs=100_000, nodes=500)
     ap.add_argument("--arcs", type=int, default=200_000)
-    ap.add_argument("--nodes", type=int, default=500)
-    ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument(
         "--warm-up",
         action="store_true",

@@ -54,23 +54,18 @@ class Tiny:
     busy: list[tuple[int, float]] = field(default_factory=list)
     #: (limit, until seconds): a job running at 0 holds one place of that limit until then
     held: list[tuple[int, float]] = field(default_factory=list)
+    #: the number of jobs and of nodes (of ``p`` and ``speeds``), set at construction
+    n: int = field(init=False, repr=False, compare=False)
+    m: int = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
-        n, m = len(self.p), len(self.speeds)
+        n, m = self.n, self.m = len(self.p), len(self.speeds)
         self.free_at = self.free_at or [0.0] * m
         self.slots = self.slots or [1] * m
         self.requires = self.requires or [set() for _ in range(n)]
         self.provides = self.provides or [set() for _ in range(m)]
         self.uses = self.uses or [[] for _ in range(n)]
         self.release = self.release or [0.0] * n
-
-    @property
-    def n(self) -> int:
-        return len(self.p)
-
-    @property
-    def m(self) -> int:
-        return len(self.speeds)
 
     def ticks(self, j: int, k: int) -> int | None:
         """Running time of job j on node k in ticks, or None where it may not run."""

@@ -32,6 +32,8 @@ from typing import Any
 
 import pytest
 
+from tests.service.test_cli import _serve as serve_process
+
 ROOT = Path(__file__).resolve().parents[2]
 SPEC = ROOT / "openapi" / "openapi.yaml"
 PACKAGE = "spanwright_generated_client"
@@ -57,16 +59,10 @@ def generated(tmp_path_factory: pytest.TempPathFactory) -> Iterator[ModuleType]:
     out = tmp_path_factory.mktemp("generated_client")
     closed = "http://127.0.0.1:9"  # the discard port: nothing listens there
     env = {k: v for k, v in os.environ.items() if "proxy" not in k.lower()}
-    env.update(
-        # its post-generation hooks run ruff (a dependency of the generator) from the venv
-        PATH=f"{Path(sys.executable).parent}{os.pathsep}{env.get('PATH', '')}",
-        HTTP_PROXY=closed,
-        HTTPS_PROXY=closed,
-        ALL_PROXY=closed,
-        http_proxy=closed,
-        https_proxy=closed,
-        all_proxy=closed,
-    )
+    # its post-generation hooks run ruff (a dependency of the generator) from the venv
+    env["PATH"] = f"{Path(sys.executable).parent}{os.pathsep}{env.get('PATH', '')}"
+    for name in ("HTTP_PROXY", "HTTPS_PROXY", "ALL_PROXY"):  # both spellings of each
+        env[name] = env[name.lower()] = closed
     proc = subprocess.run(
         [
             sys.executable,
@@ -121,16 +117,7 @@ def _listening_url(proc: subprocess.Popen[str], seconds: float) -> str:
 @pytest.fixture(scope="module")
 def base_url() -> Iterator[str]:
     """``spanwright serve --port 0`` (embedded store and worker) on 127.0.0.1."""
-    env = {k: v for k, v in os.environ.items() if k != "REDIS_URL"}
-    env["PYTHONPATH"] = str(ROOT)
-    proc = subprocess.Popen(
-        [sys.executable, "-m", "service.cli", "serve", "--port", "0"],
-        cwd=ROOT,
-        env=env,
-        stdout=subprocess.DEVNULL,
-        stderr=subprocess.PIPE,
-        text=True,
-    )
+    proc = serve_process(0)
     try:
         yield _listening_url(proc, 60)
     finally:
@@ -161,19 +148,30 @@ def _models(generated: ModuleType) -> Any:
     return importlib.import_module(f"{generated.__name__}.models")
 
 
-def _submit_and_read(generated: ModuleType, client: Any, kind: str, body: Any) -> Any:
-    """Submit ``body`` with ``Prefer: wait`` (answered 201, finished), then read the record
-    back by its id through the generated operations; returns the typed record read."""
-    status = getattr(_models(generated), f"{kind.capitalize()}Status")
+def _status_model(generated: ModuleType, kind: str) -> Any:
+    """The typed record of a ``kind`` (``plan`` or ``sizing``): ``PlanStatus``, ..."""
+    return getattr(_models(generated), f"{kind.capitalize()}Status")
+
+
+def _submit_waiting(generated: ModuleType, client: Any, kind: str, body: Any) -> Any:
+    """Submit ``body`` with ``Prefer: wait``: answered 201 with the finished record, typed;
+    returns that record."""
     submitted = _api(generated, f"submit_{kind}").sync_detailed(
         client=client, body=body, prefer="wait=20"
     )
     assert submitted.status_code == 201, submitted.content
-    assert isinstance(submitted.parsed, status)
-    got = _api(generated, f"get_{kind}").sync_detailed(client=client, id=submitted.parsed.id)
+    assert isinstance(submitted.parsed, _status_model(generated, kind))
+    return submitted.parsed
+
+
+def _submit_and_read(generated: ModuleType, client: Any, kind: str, body: Any) -> Any:
+    """Submit ``body`` with ``Prefer: wait`` (answered 201, finished), then read the record
+    back by its id through the generated operations; returns the typed record read."""
+    submitted = _submit_waiting(generated, client, kind, body)
+    got = _api(generated, f"get_{kind}").sync_detailed(client=client, id=submitted.id)
     assert got.status_code == 200
-    assert isinstance(got.parsed, status)
-    assert got.parsed.id == submitted.parsed.id
+    assert isinstance(got.parsed, _status_model(generated, kind))
+    assert got.parsed.id == submitted.id
     return got.parsed
 
 
@@ -315,11 +313,7 @@ def test_generated_models_send_no_default_that_changes_the_answer(
     )
     assert "free_at" not in plan_body.to_dict()["nodes"][0]
     assert "confidence_samples" not in plan_body.to_dict()
-    planned = _api(generated, "submit_plan").sync_detailed(
-        client=client, body=plan_body, prefer="wait=20"
-    )
-    assert planned.status_code == 201, planned.content
-    result = planned.parsed.result
+    result = _submit_waiting(generated, client, "plan", plan_body).result
     assert isinstance(result, models.PlanResult)
     assert result.makespan == 1800
     assert isinstance(result.confidence, generated.types.Unset)
@@ -340,11 +334,7 @@ def test_generated_models_send_no_default_that_changes_the_answer(
         kinds=[models.SizingRequestKindsItem(name="node-rented", hour_cost=1.8)],
     )
     assert "max_nodes" not in rent_body.to_dict()
-    rented = _api(generated, "submit_sizing").sync_detailed(
-        client=client, body=rent_body, prefer="wait=20"
-    )
-    assert rented.status_code == 201, rented.content
-    sizing = rented.parsed.result
+    sizing = _submit_waiting(generated, client, "sizing", rent_body).result
     assert isinstance(sizing, models.SizingResult)
     assert isinstance(sizing.rent, models.SizingResultRent)
     assert sizing.rent.additional_properties == {"node-rented": 2}

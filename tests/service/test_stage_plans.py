@@ -11,17 +11,11 @@ from fractions import Fraction
 from typing import Any
 
 from reference_stages import Tiny, brute_force_optimum, check_rows
+from stage_bodies import issue_graph
 
+#: the issue's example graph in short durations, planned exactly
 SHOT: dict[str, Any] = {
-    "limits": {"lic": 2},
-    "nodes": [{"id": "node-01", "slots": 2}, {"id": "node-02"}, {"id": "node-03", "speed": 2}],
-    "jobs": [
-        {"id": "bg", "duration": 6, "uses": ["lic"]},
-        {"id": "fg", "duration": 9, "uses": ["lic"]},
-        {"id": "fx", "duration": 4, "uses": ["lic"]},
-        {"id": "comp", "duration": 3, "after": ["bg", "fg", "fx"]},
-        {"id": "encode", "duration": 2, "after": ["comp"]},
-    ],
+    **issue_graph({"bg": 6, "fg": 9, "fx": 4, "comp": 3, "encode": 2}, licence="lic"),
     "method": "exact",
     "time_budget": 1,
 }

@@ -15,7 +15,7 @@ from typing import NamedTuple
 import numpy as np
 import numpy.typing as npt
 
-from .kernels import Farm, jit
+from .kernels import Farm, jit, place_job
 
 
 @jit
@@ -89,9 +89,7 @@ def earliest_finish_classes(
                     best_k = k
                     best_c = c
         if best_c >= 0:
-            node_of[j] = best_k
-            start[j] = load[best_k]
-            load[best_k] = best_end
+            place_job(j, best_k, best_end, node_of, start, load)
             lo = class_start[best_c]
             _sift_down(heap, lo, class_start[best_c + 1] - lo, 0, load)
     return node_of, start

@@ -40,6 +40,18 @@ def jit(func: F) -> F:
     return cast(F, numba.njit(cache=True, nogil=True)(func))
 
 
+def inline(func: F) -> F:
+    """A helper of the kernels: compiled into each :func:`jit` function that calls it
+    (numba's ``register_jitable``, inlined there), plain Python when called from Python, so
+    a kernel's pure-Python twin stays plain Python through its helpers (numpy scalars keep
+    their types and wrapping arithmetic)."""
+    if numba is None:
+        return func
+    from numba.extending import register_jitable
+
+    return register_jitable(inline="always")(func)
+
+
 def pure(func: F) -> F:
     """The pure-Python source of a :func:`jit` function (itself when not compiled)."""
     return cast(F, getattr(func, "py_func", func))
@@ -97,6 +109,21 @@ def assign_in_order(
     return node, start
 
 
+@inline
+def place_job(
+    j: int,
+    k: int,
+    end: float,
+    node_of: npt.NDArray[np.int32],
+    start: npt.NDArray[np.float64],
+    load: npt.NDArray[np.float64],
+) -> None:
+    """Job ``j`` on node ``k``: it starts at the node's load, which becomes ``end``."""
+    node_of[j] = k
+    start[j] = load[k]
+    load[k] = end
+
+
 class Farm(NamedTuple):
     """A farm as the kernels read it: each node's speed and the time it is free, each job's
     type (a distinct ``requires`` set) and whether node k may run jobs of type t
@@ -134,9 +161,7 @@ def earliest_finish(
                     best_end = e
                     best = k
         if best >= 0:
-            node_of[j] = best
-            start[j] = load[best]
-            load[best] = best_end
+            place_job(j, best, best_end, node_of, start, load)
     return node_of, start
 
 

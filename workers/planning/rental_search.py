@@ -52,13 +52,25 @@ KEEPS = (0, 3, 10, 1 << 40)
 
 @dataclass
 class Found:
+    """The best verified plan so far, every proven bound on the cheapest cost by its rule
+    (``bounds``, each with its ``evidence``), when the first plan was found and whether
+    the budget ran out before a proof."""
+
     best: Verified
-    bound: Fraction
-    source: str
     bounds: dict[str, Fraction]
     evidence: dict[str, Any]
     first: float
     ran_out: bool = False
+
+    @property
+    def source(self) -> str:
+        """The rule of the best bound (the first found of equal ones)."""
+        return max(self.bounds, key=lambda k: self.bounds[k])
+
+    @property
+    def bound(self) -> Fraction:
+        """The best bound so far."""
+        return self.bounds[self.source]
 
     @property
     def proven(self) -> bool:
@@ -107,20 +119,20 @@ def search(mk: Market, budget: Budget, outer: Budget) -> Found:
         v, bounds["nodes"], evidence["nodes"] = from_sizing(mk, budget.child(0.5))
         if v is not None and v.key < best.key:
             best = v
-    found = Found(best, bounds["work"], "work", bounds, evidence, first)
-    _settle(found)
+    found = Found(best, bounds, evidence, first)
+    _check_bound(found)
     cov: Cover | None = None
     if not found.proven:
         cov = cover_bound(mk, best.cost, budget.child(0.5))
         evidence["cover"] = {"complete": cov.complete, "visited": cov.visited}
         if cov.complete:
             bounds["cover"] = min(cov.value, best.cost)
-        _settle(found)
+        _check_bound(found)
         if not found.proven:
             guided = _guided(mk, best.cost, budget, cov)
             if guided is not None and guided.key < found.best.key:
                 found.best = guided
-            _settle(found)
+            _check_bound(found)
     if not found.proven and mk.instance.n <= BRANCH_JOBS:
         br = branch(mk, found.best, found.bound, budget.child(0.8))
         found.best = br.best
@@ -131,16 +143,16 @@ def search(mk: Market, budget: Budget, outer: Budget) -> Found:
         }
         if br.bound is not None:
             bounds["search"] = br.bound
-        _settle(found)
+        _check_bound(found)
     if not found.proven and budget.remaining() >= STEP_SECONDS:
         better = improve(mk, as_plan(mk, found.best), budget)
         v = verify(mk, better) if better is not None else None
         if v is not None and v.key < found.best.key:
             found.best = v
-        _settle(found)
+        _check_bound(found)
     if not found.proven and not budget.expired():
         bounds["lp_patterns"], evidence["lp_patterns"] = pattern_bound(mk, budget)
-        _settle(found)
+        _check_bound(found)
     if not found.proven:
         _more(mk, found, budget, cov)
     found.ran_out = not found.proven  # _more returns unproven only once the budget is spent
@@ -164,15 +176,15 @@ def _more(mk: Market, found: Found, budget: Budget, cov: Cover | None) -> None:
         took = budget.elapsed() - t0
         if v is not None and v.key < found.best.key:
             found.best = v
-            _settle(found)
+            _check_bound(found)
 
 
-def _settle(found: Found) -> None:
-    """The best bound so far (never above the plan's cost: the bounds are proofs)."""
-    src = max(found.bounds, key=lambda k: found.bounds[k])
-    found.bound, found.source = found.bounds[src], src
+def _check_bound(found: Found) -> None:
+    """The best bound so far is never above the plan's cost (the bounds are proofs)."""
     if found.bound > found.best.cost:
-        raise ArithmeticError(f"bound {src} above a verified plan's cost: a bound is wrong")
+        raise ArithmeticError(
+            f"bound {found.source} above a verified plan's cost: a bound is wrong"
+        )
 
 
 def _guided(

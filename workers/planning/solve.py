@@ -5,7 +5,7 @@ from __future__ import annotations
 import dataclasses
 import time
 from collections.abc import Callable
-from typing import Any, overload
+from typing import Any, TypedDict, Unpack, overload
 
 from . import bounds, greedy
 from .budget import DEFAULT_SECONDS, Budget
@@ -20,25 +20,21 @@ from .stages.result import StageResult
 METHODS = ("list", "longest_first", "exact", "auto")
 
 
+class SolveOptions(TypedDict, total=False):
+    """The keyword options of :func:`solve`, the same whatever it plans."""
+
+    time_budget: float
+    progress: ProgressHook | None
+    should_stop: Callable[[], bool] | None
+
+
 @overload
-def solve(
-    inst: Instance,
-    method: str = ...,
-    *,
-    time_budget: float = ...,
-    progress: ProgressHook | None = ...,
-    should_stop: Callable[[], bool] | None = ...,
-) -> PlanResult: ...
+def solve(inst: Instance, method: str = ..., **options: Unpack[SolveOptions]) -> PlanResult: ...
 
 
 @overload
 def solve(
-    inst: StageProblem,
-    method: str = ...,
-    *,
-    time_budget: float = ...,
-    progress: ProgressHook | None = ...,
-    should_stop: Callable[[], bool] | None = ...,
+    inst: StageProblem, method: str = ..., **options: Unpack[SolveOptions]
 ) -> PlanResult | StageResult: ...
 
 

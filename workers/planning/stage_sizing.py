@@ -161,12 +161,19 @@ class StageSizingResult(NodeCountAnswer):
 
     args: StageSizingArgs
     nodes_needed: int
-    nodes_lower_bound: int
-    bound_source: str
-    bounds: dict[str, int]
+    #: the proven fewest nodes, the rule that proved it and every rule's count
+    floor: NodeFloor
     plan: StageResult
     stop_reason: StopReason
     solve_seconds: float
+
+    @property
+    def nodes_lower_bound(self) -> int:  # type: ignore[override]
+        return self.floor.nodes
+
+    @property
+    def bound_source(self) -> str:  # type: ignore[override]
+        return self.floor.rule
 
     @property
     def cost(self) -> float | None:
@@ -180,7 +187,7 @@ class StageSizingResult(NodeCountAnswer):
         deadline = self.args.deadline
         plan = self.plan.to_dict(with_assignment=with_plan)
         out: dict[str, Any] = {
-            **self.contract_head(self.bounds, self.gap),
+            **self.contract_head(self.floor.counts, self.gap),
             "method": "stages",
             "plan_method": self.plan.method,
             "deadline": deadline,
@@ -248,9 +255,7 @@ def size_stages(args: StageSizingArgs, budget: Budget) -> StageSizingResult:
     return StageSizingResult(
         args=args,
         nodes_needed=k,
-        nodes_lower_bound=floor.nodes,
-        bound_source=floor.rule,
-        bounds=floor.counts,
+        floor=floor,
         plan=best,
         stop_reason=budget.stop_reason(proven=floor.nodes == k, ran_out=budget.expired()),
         solve_seconds=time.perf_counter() - t0,

@@ -17,6 +17,7 @@ from live import fine_grained, serve
 from stack import small_settings
 
 from service.cli import main
+from tests.service.conftest import PRICED_SIZING
 
 
 @pytest.fixture
@@ -159,17 +160,11 @@ def test_status_and_export_of_a_sizing(
     """``status`` and ``export`` take a sizing id (the issue, point 3: status said "no
     plan" and exit 3). A 1 h job and two 30 min jobs for a 1 h deadline need 2 nodes
     (by hand: 2 h of work; the long job alone, the short two together), and the exported
-    plan has every job once on those 2 nodes."""
+    plan has every job once on those 2 nodes. The batch is the hand-checked one of
+    tests/service/conftest.py (``PRICED_SIZING``), without its price."""
     from service.client import Client
 
-    body = {
-        "jobs": [
-            {"id": "lh_beauty", "duration": 3600},
-            {"id": "lh_fx1", "duration": 1800},
-            {"id": "lh_fx2", "duration": 1800},
-        ],
-        "deadline": 3600,
-    }
+    body = {k: v for k, v in PRICED_SIZING.items() if k != "node_hour_cost"}
     api = Client(url)
     rid = api.submit(body, "sizings")["id"]
     assert api.wait(rid, "sizings", timeout=30)["status"] == "done"
@@ -179,7 +174,7 @@ def test_status_and_export_of_a_sizing(
     assert "nodes meets" not in out and "1 nodes" not in out
     assert main(["export", rid, "--format", "csv", "--server", url]) == 0
     rows = list(csv.DictReader(io.StringIO(capsys.readouterr().out)))
-    assert sorted(r["job"] for r in rows) == ["lh_beauty", "lh_fx1", "lh_fx2"]
+    assert sorted(r["job"] for r in rows) == ["lh_sq010_beauty", "lh_sq010_fx", "lh_sq020_fx"]
     assert len({r["node"] for r in rows}) == 2
 
 

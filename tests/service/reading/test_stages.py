@@ -20,6 +20,12 @@ def body(jobs: list[dict[str, Any]], **extra: Any) -> dict[str, Any]:
     return {"jobs": jobs, "node_count": 2, **extra}
 
 
+def unit_jobs(**fields: dict[str, Any]) -> list[dict[str, Any]]:
+    """Jobs of 1 s named by the keywords, each with its graph ``fields`` (``after``,
+    ``uses``), in the keywords' order."""
+    return [{"id": name, "duration": 1, **more} for name, more in fields.items()]
+
+
 def paths(exc: pytest.ExceptionInfo[InvalidInstance]) -> list[tuple[str | int, ...]]:
     return [i.path for i in exc.value.issues]
 
@@ -40,11 +46,7 @@ def test_plain_body_stays_a_batch_and_graph_fields_make_a_stage_problem() -> Non
 
 def test_cycle_is_refused_naming_its_jobs_in_order() -> None:
     """a waits for c, b for a, c for b: the cycle a -> b -> c -> a (in some rotation)."""
-    jobs = [
-        {"id": "a", "duration": 1, "after": ["c"]},
-        {"id": "b", "duration": 1, "after": ["a"]},
-        {"id": "c", "duration": 1, "after": ["b"]},
-    ]
+    jobs = unit_jobs(a={"after": ["c"]}, b={"after": ["a"]}, c={"after": ["b"]})
     with pytest.raises(InvalidInstance) as exc:
         read_problem(body(jobs))
     rotations = ("a -> b -> c -> a", "b -> c -> a -> b", "c -> a -> b -> c")
@@ -54,11 +56,7 @@ def test_cycle_is_refused_naming_its_jobs_in_order() -> None:
 
 def test_unknown_id_self_wait_and_unknown_limit_are_refused_by_path() -> None:
     """Each problem at its own field: the unknown id, the self-wait, the unknown limit."""
-    jobs = [
-        {"id": "a", "duration": 1, "after": ["nobody"]},
-        {"id": "b", "duration": 1, "after": ["b"]},
-        {"id": "c", "duration": 1, "uses": ["licence"]},
-    ]
+    jobs = unit_jobs(a={"after": ["nobody"]}, b={"after": ["b"]}, c={"uses": ["licence"]})
     with pytest.raises(InvalidInstance) as exc:
         read_problem(body(jobs))
     assert paths(exc) == [("jobs", 0, "after", 0), ("jobs", 1, "after", 0), ("jobs", 2, "uses", 0)]

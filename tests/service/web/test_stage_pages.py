@@ -21,6 +21,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from stage_bodies import issue_graph
 
 from service.demo import demo_files
 from service.web.pages import plan_context
@@ -30,17 +31,11 @@ from service.web.svg import timeline
 NS = {"s": "http://www.w3.org/2000/svg"}
 
 #: the issue's example batch
-BODY: dict[str, Any] = {
-    "limits": {"lumen_licence": 2},
-    "nodes": [{"id": "node-01", "slots": 2}, {"id": "node-02"}, {"id": "node-03", "speed": 2}],
-    "jobs": [
-        {"id": "sh12_bg", "duration": 600, "uses": ["lumen_licence"]},
-        {"id": "sh12_fg", "duration": 900, "uses": ["lumen_licence"]},
-        {"id": "sh12_fx", "duration": 450, "uses": ["lumen_licence"]},
-        {"id": "sh12_comp", "duration": 300, "after": ["sh12_bg", "sh12_fg", "sh12_fx"]},
-        {"id": "sh12_encode", "duration": 120, "after": ["sh12_comp"]},
-    ],
-}
+BODY: dict[str, Any] = issue_graph(
+    {"bg": 600, "fg": 900, "fx": 450, "comp": 300, "encode": 120},
+    licence="lumen_licence",
+    prefix="sh12_",
+)
 
 #: a plan of BODY worked out by hand: bg and fg on node-01's two slots from 0, fx on
 #: node-02 once bg has freed a licence (600 to 1050), then comp and encode on node-03 at

@@ -18,7 +18,7 @@ import math
 import os
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
-from typing import Any, Literal
+from typing import Any, Literal, TypedDict, Unpack
 
 import numpy as np
 import numpy.typing as npt
@@ -311,23 +311,26 @@ def _simulate(
     )
 
 
+class SimulationOptions(TypedDict, total=False):
+    """What a ``confidence`` block asks both simulations for (:func:`simulate`'s
+    arguments of the same names, with its defaults)."""
+
+    spread: float | None
+    samples: int
+    seed: int
+    deadline: float | None
+
+
 def confidence_block(
-    schedule: Schedule,
-    *,
-    spread: float | None = None,
-    samples: int = 1000,
-    seed: int = 0,
-    deadline: float | None = None,
-    threads: int | None = None,
+    schedule: Schedule, *, threads: int | None = None, **options: Unpack[SimulationOptions]
 ) -> dict[str, Any]:
     """The ``confidence`` block of a plan result: static policy, with ``dynamic`` inside.
 
     This is what the service adds to a plan result (``result["confidence"] = ...``) when the
     request carries ``duration_p90``, ``spread`` or ``confidence_samples``.
     """
-    kw: dict[str, Any] = {"spread": spread, "samples": samples, "seed": seed}
-    static = simulate(schedule, deadline=deadline, policy="static", threads=threads, **kw)
-    dynamic = simulate(schedule, deadline=deadline, policy="dynamic", threads=threads, **kw)
+    static = simulate(schedule, policy="static", threads=threads, **options)
+    dynamic = simulate(schedule, policy="dynamic", threads=threads, **options)
     return block_of(static, dynamic)
 
 

@@ -44,7 +44,7 @@ probability with its Wilson score interval (Wilson, J. Amer. Statist. Assoc. 22:
 from __future__ import annotations
 
 from collections.abc import Iterator
-from typing import Any
+from typing import Any, Unpack
 
 import numpy as np
 import numpy.typing as npt
@@ -53,7 +53,13 @@ from ..model import FloatArray
 from ..stages.listing import rank_of
 from ..stages.plan import StagePlan
 from ..stages.result import StageResult
-from .simulation import _DYNAMIC_KEYS, CHUNK_DRAWS, ConfidenceResult, _check_args
+from .simulation import (
+    CHUNK_DRAWS,
+    ConfidenceResult,
+    SimulationOptions,
+    _check_args,
+    block_of,
+)
 from .spread import SpreadModel
 from .streams import fill_normals, ziggurat_tables
 
@@ -198,19 +204,10 @@ def simulate_stages(
 
 
 def stage_confidence_block(
-    plan: StagePlan | StageResult,
-    *,
-    spread: float | None = None,
-    samples: int = 1000,
-    seed: int = 0,
-    deadline: float | None = None,
+    plan: StagePlan | StageResult, **options: Unpack[SimulationOptions]
 ) -> dict[str, Any]:
     """The ``confidence`` block of a stage plan result: the static policy, with
     ``dynamic`` inside (the shape of :func:`.simulation.confidence_block`)."""
-    kw: dict[str, Any] = {"spread": spread, "samples": samples, "seed": seed}
-    static = simulate_stages(plan, deadline=deadline, policy="static", **kw)
-    dynamic = simulate_stages(plan, deadline=deadline, policy="dynamic", **kw)
-    out = static.to_dict()
-    dyn = dynamic.to_dict()
-    out["dynamic"] = {key: dyn[key] for key in _DYNAMIC_KEYS}
-    return out
+    static = simulate_stages(plan, policy="static", **options)
+    dynamic = simulate_stages(plan, policy="dynamic", **options)
+    return block_of(static, dynamic)

@@ -24,7 +24,7 @@ from functools import cache
 import numpy as np
 import numpy.typing as npt
 
-from ..kernels import jit
+from ..kernels import inline, jit
 from ..model import FloatArray
 
 #: ziggurat layers
@@ -79,22 +79,33 @@ def ziggurat_tables(layers: int = ZIG_LAYERS) -> tuple[FloatArray, FloatArray, F
     return x, k, f
 
 
+U64 = np.uint64
+
+
+@inline
+def sfc64_step(a: U64, b: U64, c: U64, w: U64) -> tuple[U64, U64, U64, U64, U64]:
+    """One step of the Small Fast Chaotic generator as numpy implements it (``np.random.
+    SFC64``): the word drawn and the state ``(a, b, c, w)`` after it. Inlined into the
+    kernels, so the state stays in registers."""
+    word = a + b + w
+    return (
+        word,
+        b ^ (b >> U64(11)),
+        c + (c << U64(3)),
+        ((c << U64(24)) | (c >> U64(40))) + word,
+        w + U64(1),
+    )
+
+
 @jit
 def sfc64_raw(state: U64Array, count: int) -> U64Array:
-    """``count`` raw words of numpy's SFC64 from ``state`` (advanced in place).
-
-    The step of the Small Fast Chaotic generator as numpy implements it (``np.random.
-    SFC64``); the tests check it bit for bit against ``SFC64.random_raw``.
+    """``count`` raw words of numpy's SFC64 from ``state`` (advanced in place), by
+    :func:`sfc64_step`; the tests check them bit for bit against ``SFC64.random_raw``.
     """
     out = np.empty(count, dtype=np.uint64)
     a, b, c, w = state[0], state[1], state[2], state[3]
     for i in range(count):
-        tmp = a + b + w
-        w += np.uint64(1)
-        a = b ^ (b >> np.uint64(11))
-        b = c + (c << np.uint64(3))
-        c = ((c << np.uint64(24)) | (c >> np.uint64(40))) + tmp
-        out[i] = tmp
+        out[i], a, b, c, w = sfc64_step(a, b, c, w)
     state[0], state[1], state[2], state[3] = a, b, c, w
     return out
 
@@ -111,23 +122,18 @@ def fill_normals(
     more words, each a uniform in (0, 1): one (``u2``) for the wedge, pairs (``u2``, ``u3``)
     for the tail until a pair is accepted.
 
-    The SFC64 step is written out where a word is taken (the first word of a try, and the
-    further words of a rejection) rather than called: the state stays in four registers,
-    and the ``py_func`` twin keeps numpy's wrapping uint64 arithmetic (a compiled helper
-    called from Python would hand back Python ints).
+    The SFC64 step (:func:`sfc64_step`) is inlined where a word is taken (the first word
+    of a try, and the further words of a rejection): the state stays in four registers,
+    and the ``py_func`` twin calls it as plain Python, keeping numpy's wrapping uint64
+    arithmetic.
     """
     r = x[1]
     scale = 1.0 / 9007199254740992.0  # 2**-53
     a, b, c, w = state[0], state[1], state[2], state[3]
-    one = np.uint64(1)
-    s11, s3, s24, s40 = np.uint64(11), np.uint64(3), np.uint64(24), np.uint64(40)
+    s11 = np.uint64(11)
     for i in range(out.shape[0]):
         while True:
-            word = a + b + w
-            w += one
-            a = b ^ (b >> s11)
-            b = c + (c << s3)
-            c = ((c << s24) | (c >> s40)) + word
+            word, a, b, c, w = sfc64_step(a, b, c, w)
             layer = int(word & np.uint64(255))
             u = float(np.int64(word) >> np.int64(10)) * scale
             z = u * x[layer]
@@ -135,11 +141,7 @@ def fill_normals(
                 break
             u2 = -1.0  # none drawn yet
             while True:
-                word = a + b + w
-                w += one
-                a = b ^ (b >> s11)
-                b = c + (c << s3)
-                c = ((c << s24) | (c >> s40)) + word
+                word, a, b, c, w = sfc64_step(a, b, c, w)
                 v = (float(np.int64(word >> s11)) + 0.5) * scale  # in (0, 1)
                 if u2 < 0.0:
                     u2 = v
