@@ -1,12 +1,15 @@
 """Deadline sizing on generated batches: time to the first answer, share proven optimal.
 
-Batches of 1,000 to 100,000 jobs from four duration mixes of our own studio scenario
+Batches of 1,000 to 100,000 jobs from five duration mixes of our own studio scenario
 (seeded), each with deadlines chosen for several jobs-per-node ratios:
 
 ``frames``     uniform short frames, 30 s to 10 min;
 ``bimodal``    a fifth long simulation frames (1 to 3 h), the rest short comp frames
                (1 to 10 min);
 ``lognormal``  median 10 min, sigma 1 (a long right tail), cut at the deadline;
+``farm``       a render farm's night: a quarter shot renders (20 to 90 min each, to the
+               second) and three quarters transcode chunks of a few nominal lengths (30,
+               45, 60, 90 or 120 s, most of them exact, some a second or two off);
 ``triplets``   triplet-like hard batches after Falkenauer's construction (1996): every
                node of the hidden optimum runs exactly three jobs that fill the deadline
                to the second, so OPT = n / 3 and first fit decreasing needs more.
@@ -24,14 +27,15 @@ asked for beyond the answer. Run::
 
 ``--diagnose`` says, for every batch left open, which side is off: offline (30 s each,
 after the timed run) the LP bound of sizing_lp on the *full* set of distinct lengths
-(LPBound's MAX_LENGTHS raised in this process only; every refutation still checked by
-Farley's certificate in integers) and the LP's dive at that bound on the exact lengths;
-a packing there is the optimum, so the bound was off by (that bound - lower) and the
-plan by (upper - that bound).
+(LPBound's MAX_LENGTHS and MAX_DP_CELLS raised in this process only, the sizing's plan
+as its first columns; every refutation still checked by Farley's certificate in
+integers) and a packing at that bound on the exact lengths (the LP's fractional packing
+rounded, else its dive); a packing there is the optimum, so the bound was off by (that
+bound - lower) and the plan by (upper - that bound).
 
 Ratios 1.5, 2, 2.5, 3, 5, 10 and 30 by default; the summary gives the share proven per
-ratio (mixes other than triplets, which always aim at 3) and the slowest sizing against
-the budget + 5 % + 50 ms.
+ratio (mixes other than triplets, which always aim at 3) with each mix's count, and the
+slowest sizing against the budget + 5 % + 50 ms.
 
 With ``--mix`` or ``--sizes`` the summary lines count only the rows that ran.
 """
@@ -53,7 +57,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from workers.planning.sizing import size
 from workers.planning.warmup import warm_up_sizing as warm_up
 
-MIXES = ("frames", "bimodal", "lognormal", "triplets")
+MIXES = ("frames", "bimodal", "lognormal", "farm", "triplets")
 RATIOS = (1.5, 2, 2.5, 3, 5, 10, 30)  # jobs per node the deadline aims at
 
 
@@ -68,6 +72,13 @@ def durations(mix: str, n: int, rng: np.random.Generator) -> np.ndarray:
         )
     if mix == "lognormal":
         return np.maximum(1.0, np.round(rng.lognormal(np.log(600.0), 1.0, n)))
+    if mix == "farm":
+        shot = rng.random(n) < 0.25
+        render = 60 * rng.integers(20, 91, n) + rng.integers(0, 60, n)
+        chunk = rng.choice(np.array([30, 45, 60, 90, 120]), n, p=[0.15, 0.2, 0.35, 0.2, 0.1])
+        # most chunks run their nominal length, some a second or two over or short
+        chunk = chunk + rng.choice(np.array([-2, -1, 0, 0, 0, 0, 1, 2]), n)
+        return np.where(shot, render, chunk).astype(np.float64)
     raise ValueError(mix)
 
 
@@ -132,7 +143,8 @@ def main() -> None:
                     res.append((r, wall))
                     first[n].append(r.first_answer_seconds)
                     if args.diagnose and not r.proven_optimal:
-                        diagnose(d, deadline, r.nodes_lower_bound, r.nodes_needed)
+                        plan = np.asarray(r.schedule.node_of)
+                        diagnose(d, deadline, r.nodes_lower_bound, r.nodes_needed, plan)
                 jobs_per_node = statistics.mean(n / r.nodes_lower_bound for r, _ in res)
                 row = {
                     "n": n,
@@ -166,36 +178,42 @@ def main() -> None:
         Path(args.out).write_text(table(rows, lines, args), encoding="utf-8")
 
 
-def diagnose(d: np.ndarray, deadline: float, lower: int, upper: int) -> None:
+def diagnose(d: np.ndarray, deadline: float, lower: int, upper: int, plan: np.ndarray) -> None:
     """Print which side of an open sizing is off (see the module docstring)."""
     from workers.planning import sizing_lp
     from workers.planning.exact import lpbound
+    from workers.planning.sizing_round import round_packing
 
     if not (np.all(d == np.round(d)) and float(deadline).is_integer()):
         print("      (diagnose: whole seconds only)")
         return
     q, cap = d.astype(np.int64), int(deadline)
-    saved = lpbound.MAX_LENGTHS
+    saved, saved_cells = lpbound.MAX_LENGTHS, lpbound.MAX_DP_CELLS
     lpbound.MAX_LENGTHS = max(saved, int(np.unique(q).size))
+    lpbound.MAX_DP_CELLS = max(saved_cells, 64_000_000)  # whole ticks, no grouping
     try:
         t0 = time.perf_counter()
-        out = sizing_lp.lp_lower(q, cap, lower, upper, 30.0)
+        out = sizing_lp.lp_lower(q, cap, lower, upper, 30.0, packing=plan.astype(np.int32))
         t1 = time.perf_counter()
-        packing = sizing_lp.lp_dive(q, cap, out.lower, 30.0) if out.lower < upper else None
+        packing = None
+        if out.lower < upper and out.fractional is not None:
+            packing = round_packing(out.fractional, q, cap, 30.0)
+        if out.lower < upper and packing is None:
+            packing = sizing_lp.lp_dive(q, cap, out.lower, 30.0)
         t2 = time.perf_counter()
     finally:
-        lpbound.MAX_LENGTHS = saved
+        lpbound.MAX_LENGTHS, lpbound.MAX_DP_CELLS = saved, saved_cells
     loads = np.bincount(packing, weights=q) if packing is not None else np.zeros(0)
     packed = packing is not None and int(packing.max()) < out.lower and loads.max() <= cap
     verdict = (
         f"optimum {out.lower}: bound off by {out.lower - lower}, plan off by {upper - out.lower}"
         if packed or out.lower >= upper
-        else f"optimum in [{out.lower}, {upper}] (no dive packing at {out.lower})"
+        else f"optimum in [{out.lower}, {upper}] (no packing found at {out.lower})"
     )
-    dive = "packed" if packed else ("failed" if out.lower < upper else "not needed")
+    found = "found" if packed else ("failed" if out.lower < upper else "not needed")
     print(
         f"      open: lower {lower}, upper {upper}; full-length LP bound {out.lower} "
-        f"({t1 - t0:.1f} s), dive at it {dive} ({t2 - t1:.1f} s): {verdict}",
+        f"({t1 - t0:.1f} s), packing at it {found} ({t2 - t1:.1f} s): {verdict}",
         flush=True,
     )
 
@@ -207,10 +225,17 @@ def summary(rows: list[dict[str, Any]], first: dict[int, list[float]], budget: f
         if r["mix"] != "triplets":
             by_ratio[r["ratio"]][0] += r["proven"]
             by_ratio[r["ratio"]][1] += r["count"]
+    by_mix: dict[float, dict[str, list[int]]] = defaultdict(dict)
+    for r in rows:
+        if r["mix"] != "triplets":
+            cell = by_mix[r["ratio"]].setdefault(r["mix"], [0, 0])
+            cell[0] += r["proven"]
+            cell[1] += r["count"]
     for ratio, (p, c) in sorted(by_ratio.items()):
+        mixes = ", ".join(f"{m} {a}/{b}" for m, (a, b) in by_mix[ratio].items())
         out.append(
             f"proven optimal at ratio {ratio:g} (mixes other than triplets): "
-            f"{p}/{c} = {100 * p / max(1, c):.1f} %"
+            f"{p}/{c} = {100 * p / max(1, c):.1f} % ({mixes})"
         )
     limit = 1000 * (1.05 * budget + 0.05)
     worst = max((r["wall_max_ms"] for r in rows), default=0.0)
@@ -233,7 +258,7 @@ def summary(rows: list[dict[str, Any]], first: dict[int, list[float]], budget: f
     easy = [r for r in dense if r["mix"] != "triplets"]
     ep, ec = sum(r["proven"] for r in easy), sum(r["count"] for r in easy)
     out.append(
-        f"  of which the three mixes other than triplets: {ep}/{ec} = {100 * ep / max(1, ec):.1f} %"
+        f"  of which the mixes other than triplets: {ep}/{ec} = {100 * ep / max(1, ec):.1f} %"
     )
     allp = sum(r["proven"] for r in rows)
     allc = sum(r["count"] for r in rows)

@@ -4,7 +4,8 @@ With identical nodes this is one-dimensional bin packing: every node is a bin wh
 capacity is the deadline, every job an item of ``duration / speed`` seconds
 (``../shared/references.md`` section 5). The answer is an interval, proven from both
 sides: ``nodes_needed`` comes with a plan that meets the deadline (first fit decreasing,
-best fit decreasing, the LP's dive of :mod:`.sizing_lp`, the perfect packing search of
+best fit decreasing, the LP's fractional packing rounded (:mod:`.sizing_round`) or its
+dive (:mod:`.sizing_lp`), the perfect packing search of
 :mod:`workers.planning.perfect` at the lower bound, minimum bin slack, the local search
 or the exact search), and ``nodes_lower_bound`` with the rule that proves no plan with
 fewer nodes exists (``total_work`` = the work over the deadline rounded up;
@@ -69,7 +70,9 @@ from .perfect import perfect_fill
 from .rational import array_sum, ceil_div, down, ticks, up
 from .result import Schedule
 from .sizing_fit import Fit as _Fit
-from .sizing_lp import LP_SHARE, LPOutcome, lp_step, lp_worth
+from .sizing_lp import LP_SHARE, lp_worth
+from .sizing_phase import State as _State
+from .sizing_phase import lp_phase as _lp_phase
 from .sizing_result import (  # re-exported for their importers
     BILLING as BILLING,
 )
@@ -111,6 +114,10 @@ SEARCH_FIRST_WORK = 20_000_000
 #: minimum bin slack: search nodes per bin, and steps of its two-item completion
 #: (fewer when the bins are many: about MBS_WORK nodes and MBS_PAIR_WORK steps in all)
 MBS_NODES, MBS_WORK, MBS_PAIR_WORK = 1000, 4_000_000, 30_000_000
+#: ... which take about MBS_SECONDS in all; minimum bin slack gets MBS_SHARE of the time
+#: left (it does not read the clock itself), and is skipped when even its least work (20
+#: nodes and 200 pair steps a bin: about MBS_FLOOR_PER_BIN seconds a bin) exceeds that
+MBS_SECONDS, MBS_SHARE, MBS_FLOOR_PER_BIN = 1.4, 0.5, 1.5e-5
 #: local search: share of each round's time, bins emptied per try, move evaluations per try
 LOCAL_SHARE, LOCAL_FREE_BINS, LOCAL_WORK = 0.5, 3, 2_000_000
 #: share of the time left that the search may use (the curve comes after it)
@@ -121,14 +128,19 @@ SEARCH_SHARE = 0.85
 FILL_SHARE = 0.9
 #: ... for batches of more than this many jobs (below, the exact search is the stronger)
 FILL_MIN_JOBS = 60
+#: the LP step (:mod:`.sizing_lp`) gets LP_SHARE of the time left before the perfect
+#: packing on batches of at most LP_FULL_JOBS_PER_NODE jobs per node at the lower bound;
+#: beyond, LP_DENSE_SHARE before it (its refutations take milliseconds; no dives) and
+#: LP_SHARE of what is left after it (the perfect packing closes most of those batches)
+LP_FULL_JOBS_PER_NODE, LP_DENSE_SHARE = 2.9, 0.08
 #: the exact search runs for lower bounds up to this many nodes (a node of it costs O(bins))
 EXACT_MAX_BINS = 1000
 #: best fit decreasing runs for batches up to this many jobs (its bin moves grow with n)
 BFD_MAX_JOBS = 50_000
 #: what follows the searches (the plan's nodes, the curve) costs about this much per job
-#: and per node of the best plan (0.2 s for 100,000 jobs on 50,000 nodes on our machine):
+#: and per node of the best plan (0.2-0.3 s for 100,000 jobs on our machine, more under load):
 #: the searches leave it that much of the budget, and at least half of it to themselves
-POST_SECONDS_PER_JOB, POST_SECONDS_PER_NODE = 1e-6, 2.5e-6
+POST_SECONDS_PER_JOB, POST_SECONDS_PER_NODE = 1.6e-6, 2.5e-6
 #: curve rows use the lifted bin-packing bound for batches up to this many jobs
 CURVE_LIFT_MAX_JOBS = 20_000
 
@@ -137,18 +149,6 @@ I64 = npt.NDArray[np.int64]
 
 
 # -- the core ---------------------------------------------------------------------------
-@dataclass
-class _State:
-    """The interval so far and the plan that proves its upper end."""
-
-    lower: int
-    source: str
-    upper: int
-    method: str
-    bin_of: npt.NDArray[np.int32]  # by job index
-    start: F64
-
-
 @dataclass(frozen=True, eq=False)
 class SizingArgs:
     """A sizing request read into core objects: the jobs on one node of the kind to rent
@@ -412,29 +412,6 @@ def _search(
     return info
 
 
-def _take_lp(
-    out: LPOutcome,
-    state: _State,
-    fit: _Fit,
-    notes: tuple[dict[str, int], dict[str, Any], dict[str, int]],
-) -> None:
-    """The matching and LP bounds' raise of the lower bound, and the LP dive's packing at
-    the new bound if it found one (:mod:`.sizing_lp`); ``notes`` are the result's bounds,
-    evidence and upper bounds."""
-    bounds, evidence, upper_bounds = notes
-    rule = str(out.evidence.get("rule", "lp_farley"))
-    evidence["lp"] = out.evidence
-    if out.lower > state.lower:
-        state.lower, state.source = out.lower, rule
-        bounds[rule] = out.lower
-    if out.packing is not None and out.bins < state.upper:
-        bin_of, used, start = fit.settle(out.packing, out.bins)
-        upper_bounds["lp_dive"] = used
-        if used < state.upper:
-            state.upper, state.method = used, "lp_dive"
-            state.bin_of, state.start = bin_of, start
-
-
 def _size(args: SizingArgs, budget: Budget, progress: SizingProgressHook | None) -> SizingResult:
     """Size ``args`` within ``budget`` (:func:`size`, and ``size_request`` for a request
     read at the service's edge)."""
@@ -487,18 +464,15 @@ def _size(args: SizingArgs, budget: Budget, progress: SizingProgressHook | None)
     # the searches end early enough for the plan's nodes and the curve that follow
     post = POST_SECONDS_PER_JOB * base.n + POST_SECONDS_PER_NODE * state.upper
     work = budget.child(max(0.5, 1.0 - post / max(budget.remaining(), 1e-9)))
-    if (
-        state.lower < state.upper
-        and time_budget > 0
-        and lp_worth(base.n, state.lower, state.source)
-    ):
-        lp_budget = work.child(LP_SHARE)
-        out = lp_step(
-            q_lo, q_hi, cap, state.lower, state.upper, lp_budget.remaining(), lp_budget.expired
-        )
-        _take_lp(out, state, fit, (bounds, evidence, upper_bounds))
-        cancelled = lp_budget.cancelled
-        report()
+    notes = (bounds, evidence, upper_bounds)
+    lp_ok = time_budget > 0 and lp_worth(base.n, state.lower, state.source)
+    # with more jobs a node the perfect packing closes most batches: the LP gets a short
+    # turn before it (its refutations take milliseconds) and the rest of its share after
+    few = base.n <= LP_FULL_JOBS_PER_NODE * max(1, state.lower)
+    if lp_ok and state.lower < state.upper:
+        share = LP_SHARE if few else LP_DENSE_SHARE
+        lp_budget = work.child(share)
+        cancelled = _lp_phase(state, (q_lo, q_hi, cap), fit, lp_budget, notes, report, few)
     if state.lower < state.upper and time_budget > 0 and base.n > FILL_MIN_JOBS and not cancelled:
         # a packing at the lower bound itself, when the bound is tight (issue 5)
         fill_budget = work.child(FILL_SHARE)
@@ -520,9 +494,19 @@ def _size(args: SizingArgs, budget: Budget, progress: SizingProgressHook | None)
                     state.upper, state.method = used, "perfect_fill"
                     state.bin_of, state.start = bin_of, start
                     report()
-    if state.lower < state.upper and time_budget > 0 and not cancelled:
+    if lp_ok and not few and state.lower < state.upper and not cancelled:
+        cancelled = _lp_phase(state, (q_lo, q_hi, cap), fit, work.child(LP_SHARE), notes, report)
+    mbs_time = MBS_SHARE * work.remaining()
+    if (
+        state.lower < state.upper
+        and time_budget > 0
+        and not cancelled
+        and MBS_FLOOR_PER_BIN * state.lower <= mbs_time
+    ):
         bins = max(1, state.lower)
-        scale = min(1.0, work.remaining())  # a second's worth of work at most
+        # MBS_WORK + MBS_PAIR_WORK steps take about MBS_SECONDS (40 ns a step on our
+        # machine): at most MBS_SHARE of the time left, a second's worth at most
+        scale = min(1.0, mbs_time / MBS_SECONDS)
         nodes_per_bin = min(MBS_NODES, max(20, int(scale * MBS_WORK) // bins))
         pair_steps = max(200, min(base.n, int(scale * MBS_PAIR_WORK) // bins))
         b_mbs, _, n_mbs = min_bin_slack(sizes, deadline, nodes_per_bin, pair_steps)

@@ -9,11 +9,13 @@ from __future__ import annotations
 
 
 def warm_up_sizing() -> None:
-    """Every kernel of deadline sizing: the packings and the exact fill."""
-    from . import binpacking, perfect
+    """Every kernel of deadline sizing: the packings, the exact fill and the LP bound
+    with its dive (:mod:`.sizing_lp`)."""
+    from . import binpacking, perfect, sizing_lp
 
     binpacking.warm_up()
     perfect.warm_up()
+    sizing_lp.warm_up()
 
 
 def warm_up_exact() -> None:

@@ -119,7 +119,10 @@ class LPBound:
     lengths, longest first, and ``counts`` their multiplicities. The bound starts at
     capacity ``cap`` and moves up as capacities are refuted, at most to ``dpcap``
     (default ``cap``); :attr:`cap` is the capacity it works on, :attr:`refuted_up_to` the
-    largest capacity refuted so far (-1: none).
+    largest capacity refuted so far (-1: none). ``max_lengths`` and ``max_columns``
+    replace ``MAX_LENGTHS`` and ``MAX_COLUMNS`` for this instance (a generation whose
+    column store is full stops as if the master were optimal: NOT_REFUTED, a weaker bound
+    but never a wrong one).
     """
 
     cg: CGState  # (only when neither trivial nor too large)
@@ -133,6 +136,8 @@ class LPBound:
         dpcap: int | None = None,
         compiled: bool = True,
         counts: I64 | None = None,
+        max_lengths: int | None = None,
+        max_columns: int | None = None,
     ) -> None:
         q = np.asarray(q, dtype=np.int64)
         if counts is None:
@@ -171,21 +176,20 @@ class LPBound:
             self.trivial = True
             return
         dpcap = self.dpcap
-        if r > MAX_LENGTHS:
+        if r > (MAX_LENGTHS if max_lengths is None else max_lengths):
             self.too_large = True
             self.status = NOT_REFUTED
             return
         u = np.minimum(self.d, dpcap // self.s).astype(np.int64)
         chunks = int(sum(int(x).bit_length() for x in u.tolist()))
-        if chunks * (dpcap + 1) > MAX_DP_CELLS or r > MAX_LENGTHS:
+        if chunks * (dpcap + 1) > MAX_DP_CELLS:
             self.too_large = True
             self.status = NOT_REFUTED
             return
         n = int(self.d.sum())
         self.st[_DPCAP] = dpcap
-        # Y_i <= ymax keeps sum d_i Y_i and m K (K <= n ymax) inside 63 bits
-        self.st[_YMAX] = int(min(1 << 40, (1 << 62) // ((n + 1) * (m + 1))))
-        maxc = MAX_COLUMNS
+        self._set_ymax(m)
+        maxc = MAX_COLUMNS if max_columns is None else max(r + 1, int(max_columns))
         # a pattern holds at most dpcap // (shortest length) jobs, so as many lengths
         width = max(1, min(r, dpcap // int(self.s[-1])))
         cols = Columns(
@@ -225,6 +229,28 @@ class LPBound:
             value=np.zeros(1),
         )
 
+    def _set_ymax(self, m: int) -> None:
+        # Y_i <= ymax keeps sum d_i Y_i and m K (K <= n ymax) inside 63 bits
+        n = int(self.d0.sum())
+        self.st[_YMAX] = int(min(1 << 40, (1 << 62) // ((n + 1) * (m + 1))))
+
+    def raise_nodes(self, m: int) -> None:
+        """After a refutation (REFUTED by :meth:`run`, at the capacity it started on, with
+        ``dpcap`` that capacity): ask the same question for ``m`` nodes (``m`` larger),
+        keeping the columns and the basis -- a warm start of the next column generation.
+        The refutation's certificate is forgotten: read it before."""
+        if self.trivial or self.too_large or self.diving:
+            raise RuntimeError("only a bound that is not diving can ask for more nodes")
+        if self.cap != self.dpcap or m < self.m:
+            raise ValueError("at its one capacity, for at least as many nodes")
+        self.m = int(m)
+        self.st[_MLEFT] = self.m
+        self.st[_REFCAP] = -1
+        self.st[_NUM] = 0
+        self.st[_K] = 0
+        self._set_ymax(self.m)
+        self.status = PAUSED
+
     @property
     def cap(self) -> int:
         """The capacity the column generation works on."""
@@ -244,6 +270,28 @@ class LPBound:
         if int((pat * self.s).sum()) > self.cap or bool((pat > self.d0).any()):
             raise ValueError("the pattern does not fit")
         pure(_add_column)(pat, self.r, self.cg.cols, self.st)
+
+    def add_patterns(self, pats: I64) -> int:
+        """Add columns: the rows of ``pats`` (job counts per distinct length), those that
+        fit (and while there is room for columns). Returns how many were added."""
+        if self.trivial or self.too_large or self.status != PAUSED:
+            return 0
+        pats = np.asarray(pats, dtype=np.int64).reshape(-1, self.r)
+        ok = ((pats * self.s).sum(axis=1) <= self.cap) & (pats <= self.d0).all(axis=1)
+        ok &= (pats >= 0).all(axis=1) & (pats.sum(axis=1) > 0)
+        cols, added = self.cg.cols, 0
+        width = cols.idx.shape[1]
+        for row in pats[ok]:
+            t = int(self.st[_NCOLS])
+            nz = np.flatnonzero(row)
+            if t >= cols.idx.shape[0] or nz.size > width:
+                break
+            cols.idx[t, : nz.size] = nz
+            cols.cnt[t, : nz.size] = row[nz]
+            cols.nnz[t] = nz.size
+            self.st[_NCOLS] = t + 1
+            added += 1
+        return added
 
     def patterns_of(self, q: I64, node_of: I32) -> list[I64]:
         """The nodes of a packing of ``q`` that fit in :attr:`cap`, as patterns."""
