@@ -148,7 +148,9 @@ def run_once(size: str, workers: int, plans: int, tmp: Path) -> dict[str, Any]:
     site = tmp / "site"
     site.mkdir()
     (site / "sitecustomize.py").write_text(SITECUSTOMIZE)
-    topo = Topology(tmp, workers=workers)
+    # every plan through the queue, even a small longest-first one while a worker is
+    # registered (the API would solve it itself): this bench measures the workers
+    topo = Topology(tmp, workers=workers, extra_env={"SPANWRIGHT_SOLVE_HERE_MAX_JOBS": "0"})
     out: dict[str, Any] = {"size": size, "jobs": n, "nodes": m, "workers": workers, "plans": plans}
     try:
         topo.start_redis()

@@ -8,7 +8,7 @@ into RFC 9457 problem+json (``service/problems.py``).
 from __future__ import annotations
 
 import redis
-from flask import Flask, g
+from flask import Flask, g, request
 
 from . import auth, limits, problems
 from .queue import JobQueue
@@ -47,12 +47,20 @@ def create_app(settings: Settings, *, connection: redis.Redis | None = None) -> 
     @app.before_request
     def _admit() -> None:
         """After authentication: the per-tenant rate limit, then hand plans of killed
-        workers back to the queue when a sweep is due (``service/queue.py``)."""
+        workers back to the queue when a sweep is due (``service/queue.py``). A new
+        plan's count may wait for the script that stores it (``limits.defer_rate``)."""
         who = g.get("principal")
         if who is None:  # an open path (health, spec, problems, metrics)
             return
-        limits.check_rate(who.tenant)
+        if request.endpoint != "plans.submit" or not limits.defer_rate(who.tenant):
+            limits.check_rate(who.tenant)
         svc: Services = app.extensions["spanwright"]
         svc.queue.reap_if_due()
+
+    @app.teardown_request
+    def _count_late(exc: BaseException | None) -> None:
+        """A request whose count waited and that stored nothing (refused, replayed) is
+        counted once answered."""
+        limits.settle(refuse=False)
 
     return app

@@ -8,7 +8,9 @@ nothing already accepted is ever removed to make room.
   (``INCR``, and ``EXPIRE`` on the window's first request, in one script): at most
   ``SPANWRIGHT_RATE_LIMIT`` requests per ``SPANWRIGHT_RATE_WINDOW`` seconds;
   ``Retry-After`` is the time to the next window.
-  Open paths (health, spec, problem pages) are not counted.
+  Open paths (health, spec, problem pages) are not counted. A new plan may be counted in
+  the script that stores it instead (one round trip less, :data:`DEFER_MARGIN`), which
+  refuses past the limit the same way before writing anything.
 * **Queue depth**: each accepted record is a member of ``{prefix}:active:{tenant}`` and of
   ``{prefix}:active`` (sorted sets scored by submission time). Admission is one Lua script:
   add to both unless either is at its limit (``SPANWRIGHT_MAX_QUEUED_PER_TENANT``,
@@ -21,16 +23,18 @@ nothing already accepted is ever removed to make room.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import time
 import weakref
 from typing import Any
 
 import redis
+from flask import g
 
 from .problems import TooManyRequests
 from .services import services
-from .store import FINISHED
+from .store import FINISHED, RateCount
 
 # KEYS[1] tenant set, KEYS[2] global set; ARGV: member, score, tenant limit, global limit, ttl.
 # Returns 0 when admitted, 1 when the tenant is full, 2 when the service is full.
@@ -68,25 +72,81 @@ def _active_key(prefix: str, tenant: str | None) -> str:
     return f"{prefix}:active:{tenant}" if tenant is not None else f"{prefix}:active"
 
 
+def _counter(tenant: str) -> RateCount:
+    """The tenant's request counter of the current window."""
+    s = services().settings
+    window = int(time.time() // s.rate_window)
+    return RateCount(f"{s.key_prefix}:rate:{tenant}:{window}", s.rate_limit, s.rate_window + 1)
+
+
 def check_rate(tenant: str) -> None:
     """Count one request of ``tenant``; 429 beyond the window's limit."""
-    svc = services()
-    s, conn = svc.settings, svc.store.conn
-    now = time.time()
-    window = int(now // s.rate_window)
-    key = f"{s.key_prefix}:rate:{tenant}:{window}"
+    rate = _counter(tenant)
     try:
-        count = int(_script(conn, _COUNT)(keys=[key], args=[s.rate_window + 1]))
+        count = int(_script(services().store.conn, _COUNT)(keys=[rate.key], args=[rate.expiry]))
     except redis.exceptions.OutOfMemoryError:
         # Redis at maxmemory refuses the count (a write): let the request through, so
         # reads and cancels go on; a write it makes is refused with 503 where it happens
         return
+    refuse_past(tenant, count)
+
+
+def refuse_past(tenant: str, count: int) -> None:
+    """Remember the count of ``tenant``'s window; 429 when it is past the limit."""
+    s = services().settings
+    now = time.time()
+    window = int(now // s.rate_window)
+    _SEEN[(s.key_prefix, tenant)] = (window, count)
     if count > s.rate_limit:
         retry = math.ceil((window + 1) * s.rate_window - now)
         raise TooManyRequests(
             f"more than {s.rate_limit} requests in {s.rate_window} s for this tenant",
             retry,
         )
+
+
+#: a request that brings new work is counted in the script that stores its record
+#: (``Store.create_finished``, one round trip less) while its tenant's count of the
+#: window, as this process last saw it, is at least this far below the limit; nearer (or
+#: not seen yet this window) it is counted before its body is read, as any request. A
+#: count in the store's script refuses past the limit all the same, before anything is
+#: written: only the early refusal is given up, never the limit.
+DEFER_MARGIN = 64
+
+#: (key prefix, tenant) -> (window number, the last count seen in it), per process
+_SEEN: dict[tuple[str, str], tuple[int, int]] = {}
+
+
+def defer_rate(tenant: str) -> bool:
+    """Whether this request's count may wait for the script that stores its record (see
+    :data:`DEFER_MARGIN`); when it may, it is pending until :func:`take_deferred` or
+    :func:`settle` counts it."""
+    s = services().settings
+    window, count = _SEEN.get((s.key_prefix, tenant), (-1, 0))
+    if window != int(time.time() // s.rate_window) or count + DEFER_MARGIN > s.rate_limit:
+        return False
+    g.rate_pending = tenant
+    return True
+
+
+def take_deferred() -> RateCount | None:
+    """The count pending for this request, handed to the script that stores its record
+    (which refuses past the limit), or None when there is none (counted already)."""
+    tenant = g.pop("rate_pending", None)
+    return None if tenant is None else _counter(tenant)
+
+
+def settle(*, refuse: bool = True) -> None:
+    """Count a pending request now (a request that queues its work, before its queue slot;
+    ``refuse=False``: one already answered, an error or a replay, counted afterwards)."""
+    tenant = g.pop("rate_pending", None)
+    if tenant is None:
+        return
+    if refuse:
+        check_rate(tenant)
+        return
+    with contextlib.suppress(TooManyRequests, redis.exceptions.RedisError):
+        check_rate(tenant)  # answered already: only the count matters
 
 
 #: a member with no record yet is a submit between admission and its first store write;

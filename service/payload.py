@@ -1,15 +1,17 @@
-"""The worker's copy of a validated plan request, with its jobs in columns.
+"""A plan body with its plain jobs in columns, and the layout that stores them.
 
-The API reads and checks a plan body once (``service/schemas.py``, then the core's
-``Instance.from_columns``). When every job is a plain ``{id, duration[, group]}`` object it
-also stores this copy next to the raw body, so the worker builds the instance without
-parsing a JSON object per job or checking it again. The raw body stays stored as it came
-(the pages and re-planning read it); the worker falls back to it when there is no copy.
+The API reads a body of plain ``{id, duration[, group]}`` jobs into :class:`Columns`
+(``service/jobscan.py``, ``service/schemas.py``) without a Python object per job. The
+stored form of a checked request (``service/workform.py``) keeps such jobs in this
+module's layout (:func:`write`, :func:`read`) under its own first two lines; this
+module's own document, ``spanwright-columns/1`` (:func:`encode`, :func:`decode`: the body
+without its jobs as the header), is what an API before that form stored, which a worker
+still reads.
 
 Layout (one Redis string, five parts separated by the first four newlines)::
 
-    spanwright-columns/1
-    {"node_count": 40, ...}      the body without "jobs", compact JSON
+    spanwright-columns/1         (the document's name)
+    {"node_count": 40, ...}      a header: here the body without "jobs", compact JSON
     ["ep2_sc14_0101", ...]       job ids, JSON (escaped: no raw newline inside)
     null | ["ep2_sc14", null]    job groups, JSON
     <8 bytes per job>            durations, IEEE 754 float64, little-endian
@@ -21,7 +23,7 @@ bytes, and it is last.
 from __future__ import annotations
 
 import json
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -60,24 +62,27 @@ def _json_list(out: bytearray, values: Sequence[Any]) -> None:
     out += b"]"
 
 
-def encode(
-    envelope: Mapping[str, Any],
-    ids: Sequence[str],
-    durations: npt.ArrayLike,
-    groups: Sequence[str | None] | None = None,
-) -> bytearray:
-    """The stored form of a plan body (``envelope`` must not hold ``jobs``), built in one
-    buffer (Redis takes it as it is)."""
-    d = np.ascontiguousarray(durations, dtype=_FLOAT64)
-    if d.shape != (len(ids),) or (groups is not None and len(groups) != len(ids)):
-        raise ValueError("job columns differ in length")
-    if "jobs" in envelope:
+def encode(cols: Columns) -> bytearray:
+    """The stored form of a plan body (``cols.envelope`` must not hold ``jobs``), built in
+    one buffer (Redis takes it as it is)."""
+    if "jobs" in cols.envelope:
         raise ValueError("the envelope must not hold the jobs")
-    out = bytearray(MAGIC)
+    envelope = json.dumps(dict(cols.envelope), allow_nan=False, separators=(",", ":"))
+    return write(MAGIC, envelope.encode(), cols)
+
+
+def write(magic: bytes, header: bytes, cols: Columns) -> bytearray:
+    """``magic``, ``header`` (one line) and the job columns of ``cols``, in this module's
+    layout (``service/workform.py`` writes its own header the same way)."""
+    d = np.ascontiguousarray(cols.durations, dtype=_FLOAT64)
+    groups = cols.groups
+    if d.shape != (len(cols.ids),) or (groups is not None and len(groups) != len(cols.ids)):
+        raise ValueError("job columns differ in length")
+    out = bytearray(magic)
     out += b"\n"
-    out += json.dumps(dict(envelope), allow_nan=False, separators=(",", ":")).encode()
+    out += header
     out += b"\n"
-    _json_list(out, ids)
+    _json_list(out, cols.ids)
     out += b"\n"
     if groups is None:
         out += b"null"
@@ -95,17 +100,29 @@ def is_columns(raw: bytes | bytearray) -> bool:
 
 def decode(raw: bytes | bytearray) -> Columns:
     """Read what :func:`encode` wrote; ``ValueError`` if it is not that."""
-    parts = raw.split(b"\n", 4)
-    if len(parts) != 5 or parts[0] != MAGIC:
+    header, cols = read(MAGIC, raw)
+    envelope = json.loads(header)
+    if not isinstance(envelope, dict) or cols is None:
         raise ValueError("not a spanwright-columns/1 document")
-    envelope = json.loads(parts[1])
+    return Columns(envelope, cols.ids, cols.durations, cols.groups)
+
+
+def read(magic: bytes, raw: bytes | bytearray) -> tuple[bytes | bytearray, Columns | None]:
+    """What :func:`write` wrote: the header line, and the jobs in columns (None when its
+    ids are ``null``: a document with no jobs in columns); ``ValueError`` if it is not
+    that."""
+    parts = raw.split(b"\n", 4)
+    if len(parts) != 5 or parts[0] != magic:
+        raise ValueError(f"not a {magic.decode()} document")
     ids = json.loads(parts[2])
     groups = json.loads(parts[3])
+    if ids is None:
+        return parts[1], None
     if len(parts[4]) != 8 * len(ids):
         raise ValueError("job columns differ in length")
     durations = np.frombuffer(parts[4], dtype=_FLOAT64).astype(np.float64)
-    if not isinstance(envelope, dict) or not isinstance(ids, list):
-        raise ValueError("not a spanwright-columns/1 document")
+    if not isinstance(ids, list):
+        raise ValueError(f"not a {magic.decode()} document")
     if groups is not None and (not isinstance(groups, list) or len(groups) != len(ids)):
         raise ValueError("job columns differ in length")
-    return Columns(envelope, ids, durations, groups)
+    return parts[1], Columns({}, ids, durations, groups)

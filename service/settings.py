@@ -12,12 +12,23 @@ import math
 import re
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields
-from typing import Any
+from typing import Any, TypeVar
 
 from workers.planning.budget import DEFAULT_SECONDS
 from workers.planning.errors import Issue, SpanwrightError
 
 PREFIX = "SPANWRIGHT_"
+
+T = TypeVar("T")
+
+
+def knob(default: T, doc: str, *, zero_ok: bool = False, secret: bool = False) -> T:
+    """A setting: its default, what it does (:func:`variables` lists it with its
+    environment variable), whether 0 is a meaningful value of a number (otherwise it
+    must be > 0), and whether it is a secret (never in ``repr``)."""
+    meta = {"doc": doc, "zero_ok": zero_ok}
+    made: T = field(default=default, repr=not secret, metadata=meta)
+    return made
 
 
 class SettingsError(SpanwrightError):
@@ -32,61 +43,39 @@ class SettingsError(SpanwrightError):
 class Settings:
     """Everything configurable about the API and its workers (times in seconds)."""
 
-    #: ``REDIS_URL``; None means the embedded in-process store (``spanwright serve`` only)
-    redis_url: str | None = None
-    #: prefix of every Redis key we own (RQ keeps its own ``rq:`` keys)
-    key_prefix: str = "spanwright"
-    #: the one RQ queue the API fills and the workers drain
-    queue_name: str = "spanwright"
-    #: how long plans, results and idempotency records are kept after submission
-    retention: int = 86_400
-    #: largest request body accepted (bytes); larger ones get 413
-    max_request_bytes: int = 32 * 1024 * 1024
-    #: most jobs in one batch (422 beyond)
-    max_jobs: int = 200_000
-    #: most nodes in one request (422 beyond)
-    max_nodes: int = 10_000
-    #: ceiling on a request's ``time_budget`` (422 beyond)
-    max_time_budget: float = 60.0
-    #: ``time_budget`` when a request gives none
-    default_time_budget: float = DEFAULT_SECONDS
-    #: longest ``Prefer: wait=N`` honoured; longer waits are cut to this
-    max_wait: float = 30.0
-    #: requests of one process that may hold a thread in ``Prefer: wait`` at once; keep it
-    #: below gunicorn's threads (8) so probes and reads always find a thread. A request
+    redis_url: str | None = knob(None, "the Redis URL; unset: the embedded store (``serve`` only)")
+    key_prefix: str = knob("spanwright", "prefix of every Redis key we own (RQ keeps ``rq:``)")
+    queue_name: str = knob("spanwright", "the one RQ queue the API fills and the workers drain")
+    retention: int = knob(86_400, "seconds records, results and keys are kept once finished")
+    max_request_bytes: int = knob(32 * 1024 * 1024, "largest request body (bytes; 413 beyond)")
+    max_jobs: int = knob(200_000, "most jobs in one batch (422 beyond)")
+    max_nodes: int = knob(10_000, "most nodes in one request (422 beyond)")
+    max_time_budget: float = knob(60.0, "ceiling on a request's ``time_budget`` (422 beyond)")
+    default_time_budget: float = knob(DEFAULT_SECONDS, "``time_budget`` when a request has none")
+    max_wait: float = knob(30.0, "longest ``Prefer: wait=N`` honoured (longer ones are cut)")
+    #: below gunicorn's threads (8), so probes and reads always find a thread; a request
     #: past it is answered at once (202, no Preference-Applied) and polls
-    max_waiters: int = 6
-    #: refuse new work (503 + Retry-After) once Redis uses this share of its maxmemory,
+    max_waiters: int = knob(6, "requests of one process waiting (``Prefer: wait``) at once")
     #: so reads, cancels and finishing workers keep the rest (no effect without maxmemory)
-    store_high_water: float = 0.9
-    #: RQ job timeout = time budget + this margin: a crash guard, never the normal stop
-    job_timeout_margin: int = 30
-    #: how often a solving worker publishes progress at most
-    progress_interval: float = 0.25
-    #: most items one page of ``GET /v1/plans`` may hold
-    max_page: int = 200
-    #: tenant of requests in keyless mode (no keys file: loopback callers only)
-    default_tenant: str = "local"
-    #: file of API keys, lines ``<tenant> <sha256 hex of the key> [admin]``; "" = keyless
-    keys_file: str = ""
-    #: most queued + solving records of one tenant (429 beyond; nothing queued is dropped)
-    max_queued_per_tenant: int = 1_000
-    #: most queued + solving records in the whole service (429 beyond)
-    max_queued_total: int = 10_000
-    #: requests one tenant may make per ``rate_window`` seconds (429 beyond)
-    rate_limit: int = 1_200
-    #: length of the request-rate window in seconds (a fixed window)
-    rate_window: int = 60
-    #: Redis Sentinels, ``host1:26379,host2:26379``; set, they replace ``REDIS_URL``
-    sentinels: str = ""
-    #: the master name the Sentinels monitor (required with ``sentinels``)
-    sentinel_master: str = ""
-    #: database number on the Sentinel-named master
-    sentinel_db: int = 0
-    #: password of the Redis data nodes behind the Sentinels; never logged, not in repr
-    sentinel_password: str = field(default="", repr=False)
-    #: level of the JSON logs (``DEBUG``, ``INFO``, ``WARNING``, ``ERROR``, ``CRITICAL``)
-    log_level: str = "INFO"
+    store_high_water: float = knob(0.9, "share of Redis's maxmemory from which new work is 503")
+    job_timeout_margin: int = knob(30, "RQ's job timeout past the budget: a crash guard only")
+    progress_interval: float = knob(0.25, "how often a solving worker publishes progress at most")
+    max_page: int = knob(200, "most items one page of ``GET /v1/plans`` may hold")
+    default_tenant: str = knob("local", "tenant of keyless requests (loopback callers only)")
+    #: lines ``<tenant> <sha256 hex of the key> [admin]``
+    keys_file: str = knob("", "the file of API keys; empty: keyless")
+    max_queued_per_tenant: int = knob(1_000, "most queued + solving records of a tenant (429)")
+    max_queued_total: int = knob(10_000, "most queued + solving records in all (429 beyond)")
+    rate_limit: int = knob(1_200, "requests one tenant may make per ``rate_window`` (429)")
+    rate_window: int = knob(60, "length of the request-rate window in seconds (a fixed window)")
+    sentinels: str = knob("", "Redis Sentinels ``host1:26379,host2:26379``, instead of the URL")
+    sentinel_master: str = knob("", "the master the Sentinels monitor (with ``sentinels``)")
+    sentinel_db: int = knob(0, "database number on the Sentinel-named master", zero_ok=True)
+    sentinel_password: str = knob("", "password of the Redis data nodes", secret=True)
+    log_level: str = knob("INFO", "level of the JSON logs: DEBUG, INFO, WARNING, ERROR, CRITICAL")
+    #: stored finished, listed, counted and replayed as a worker's plan, while the queue has
+    #: a worker; larger, exact and simulated plans take the queue
+    solve_here_max_jobs: int = knob(2_000, "most jobs of a plan solved by the API", zero_ok=True)
 
     def __post_init__(self) -> None:
         issues: list[Issue] = []
@@ -97,11 +86,11 @@ class Settings:
         for f in fields(self):
             v = getattr(self, f.name)
             number = isinstance(v, int | float) and not isinstance(v, bool)
-            if f.name in _MAY_BE_ZERO:
+            if f.metadata["zero_ok"]:
                 if number and not v >= 0:
-                    issues.append(Issue((PREFIX + f.name.upper(),), "must be a whole number >= 0"))
+                    issues.append(Issue((env_var(f.name),), "must be a whole number >= 0"))
             elif number and not (math.isfinite(v) and v > 0):
-                issues.append(Issue((PREFIX + f.name.upper(),), "must be a finite number > 0"))
+                issues.append(Issue((env_var(f.name),), "must be a finite number > 0"))
         if self.sentinels:
             try:
                 if not parse_sentinels(self.sentinels):
@@ -139,7 +128,7 @@ class Settings:
         for f in fields(cls):
             if f.name == "redis_url":
                 continue
-            var = PREFIX + f.name.upper()
+            var = env_var(f.name)
             raw = environ.get(var)
             if raw is None or raw.strip() == "":
                 continue
@@ -163,8 +152,15 @@ class Settings:
         return parse_sentinels(self.sentinels)
 
 
-#: numeric settings for which 0 is a meaningful value
-_MAY_BE_ZERO = frozenset({"sentinel_db"})
+def env_var(name: str) -> str:
+    """The environment variable of the setting ``name`` (``REDIS_URL`` for ``redis_url``)."""
+    return "REDIS_URL" if name == "redis_url" else PREFIX + name.upper()
+
+
+def variables() -> list[tuple[str, Any, str]]:
+    """Every setting as ``(environment variable, default, what it does)``, in order: the
+    one table the documentation of the environment follows (``deploy/README.md``)."""
+    return [(env_var(f.name), f.default, f.metadata["doc"]) for f in fields(Settings)]
 
 
 def parse_sentinels(raw: str) -> list[tuple[str, int]]:

@@ -4,8 +4,8 @@ Keys, for a record of ``kind`` (``plan`` | ``sizing``) and id ``I`` owned by ten
 
     {prefix}:{kind}:{I}            hash: tenant, status, timestamps, progress, version, ...
     {prefix}:{kind}:{I}:request    the request body as received (bytes)
-    {prefix}:{kind}:{I}:work       the worker's copy of a checked plan body, jobs in columns
-                                   (``service/payload.py``; only when the body allows it)
+    {prefix}:{kind}:{I}:work       what the API's checks made of the body, for the worker
+                                   (``service/workform.py``; plain jobs in columns)
     {prefix}:{kind}:{I}:result     the result object as JSON, once finished
     {prefix}:{kind}:{I}:done       a one-token list pushed when the record finishes (wakes waiters)
     {prefix}:index:{T}:{kind}      sorted set of the tenant's ids (all score 0, ordered by id)
@@ -19,8 +19,10 @@ the result is kept that long after it is computed. Status changes are
 Lua scripts (atomic), and every visible change bumps ``version`` (the ETag).
 
 Round trips per plan: the API stores and enqueues in one transaction (:meth:`Store.create`
-with ``enqueue``) and answers from what it wrote (:meth:`Store.written`), or waits with one
-``BLPOP`` plus one read (:meth:`Store.wait_for`); the worker claims a record and reads its
+with ``enqueue``), or stores a plan it solved itself in one script that counts the request
+too (:meth:`Store.create_finished`), and answers from what it wrote (:meth:`Store.written`),
+or waits with one ``BLPOP`` plus one read (:meth:`Store.wait_for`); the worker claims a
+record and reads its
 body in one script (:meth:`Store.claim`, inside the transaction that starts its job:
 :meth:`Store.claim_in`) and stores the outcome, refreshes every expiry, wakes the waiters
 and counts the metrics in another (:meth:`Store.finish`).
@@ -43,6 +45,8 @@ from redis.client import Pipeline
 
 from workers.planning.budget import DEFAULT_SECONDS
 
+from .store_lua import CANCEL, CLAIM, CREATE_FINISHED, FINISH, TRANSITION, WHILE_SOLVING
+
 KINDS = ("plan", "sizing")
 STATUSES = ("queued", "solving", "done", "failed", "cancelled")
 FINISHED = frozenset({"done", "failed", "cancelled"})
@@ -59,103 +63,6 @@ _ITEM_FIELDS = (
     "method",
     "summary",
 )
-
-# KEYS[1] record, KEYS[2] worker's copy of the body, KEYS[3] raw body; ARGV[1] started_at.
-# queued (or solving again after a crash) -> solving, one more attempt; returns
-# {old status, time_budget, method, body (the copy if there is one), 1 if it is the copy},
-# or false (not queued/solving, or no body left: then nothing changes).
-_CLAIM = """
-local old = redis.call('HGET', KEYS[1], 'status')
-if old ~= 'queued' and old ~= 'solving' then return false end
-local copy = 1
-local body = redis.call('GET', KEYS[2])
-if not body then
-  copy = 0
-  body = redis.call('GET', KEYS[3])
-  if not body then return false end
-end
-redis.call('HSET', KEYS[1], 'status', 'solving', 'started_at', ARGV[1])
-redis.call('HINCRBY', KEYS[1], 'version', 1)
-redis.call('HINCRBY', KEYS[1], 'attempts', 1)
-local f = redis.call('HMGET', KEYS[1], 'time_budget', 'method')
-return {old, f[1], f[2], body, copy}
-"""
-
-# KEYS[1] record, [2] request, [3] result, [4] work copy, [5] done list, [6] metrics hash,
-# [7] the global queue-depth set. ARGV[1] allowed old statuses (comma separated), [2] new
-# status, [3] retention seconds, [4] '1' to store ARGV[5] as the result, [6] n field pairs
-# from ARGV[9], [7] the prefix of the tenants' queue-depth sets, [8] the record's member
-# in them, then metric increments as (op 'i' or 'f', field, amount) triples. If the move
-# is allowed: store the result, set the fields, free the queue slot, bump the version,
-# give every key of the record (and its idempotency record) the retention, push the done
-# token, count; returns the old status.
-_FINISH = """
-local old = redis.call('HGET', KEYS[1], 'status')
-if not old then return false end
-if not string.find(',' .. ARGV[1] .. ',', ',' .. old .. ',', 1, true) then return false end
-local ttl = tonumber(ARGV[3])
-if ARGV[4] == '1' then redis.call('SET', KEYS[3], ARGV[5], 'EX', ttl) end
-redis.call('HSET', KEYS[1], 'status', ARGV[2])
--- the record no longer holds a queue slot (service/limits.py); the tenant's set is named
--- from the record's own tenant field (one Redis, not a cluster: no slot to declare)
-local tenant = redis.call('HGET', KEYS[1], 'tenant')
-if tenant then redis.call('ZREM', ARGV[7] .. tenant, ARGV[8]) end
-redis.call('ZREM', KEYS[7], ARGV[8])
-local i = 9
-for k = 1, tonumber(ARGV[6]) do
-  redis.call('HSET', KEYS[1], ARGV[i], ARGV[i + 1])
-  i = i + 2
-end
-redis.call('HINCRBY', KEYS[1], 'version', 1)
-for k = 1, 4 do redis.call('EXPIRE', KEYS[k], ttl) end
-local idem = redis.call('HGET', KEYS[1], 'idem_key')
-if idem then redis.call('EXPIRE', idem, ttl) end
-redis.call('RPUSH', KEYS[5], '1')
-redis.call('EXPIRE', KEYS[5], 60)
-while i + 2 <= #ARGV do
-  if ARGV[i] == 'f' then
-    redis.pcall('HINCRBYFLOAT', KEYS[6], ARGV[i + 1], ARGV[i + 2])
-  else
-    redis.pcall('HINCRBY', KEYS[6], ARGV[i + 1], ARGV[i + 2])
-  end
-  i = i + 3
-end
-return old
-"""
-
-# KEYS[1] record; ARGV[1] allowed old statuses (comma separated), ARGV[2] new status,
-# ARGV[3..] field, value pairs. Returns the old status, or false when not allowed/missing.
-_TRANSITION = """
-local old = redis.call('HGET', KEYS[1], 'status')
-if not old then return false end
-if not string.find(',' .. ARGV[1] .. ',', ',' .. old .. ',', 1, true) then return false end
-redis.call('HSET', KEYS[1], 'status', ARGV[2])
-for i = 3, #ARGV, 2 do redis.call('HSET', KEYS[1], ARGV[i], ARGV[i + 1]) end
-redis.call('HINCRBY', KEYS[1], 'version', 1)
-return old
-"""
-
-# KEYS[1] record. Queued -> cancelled at once; solving -> cancel flag. Returns old status.
-_CANCEL = """
-local old = redis.call('HGET', KEYS[1], 'status')
-if not old then return false end
-if old == 'queued' then
-  redis.call('HSET', KEYS[1], 'status', 'cancelled', 'finished_at', ARGV[1], 'cancel', '1')
-  redis.call('HINCRBY', KEYS[1], 'version', 1)
-elseif old == 'solving' and redis.call('HGET', KEYS[1], 'cancel') ~= '1' then
-  redis.call('HSET', KEYS[1], 'cancel', '1')
-  redis.call('HINCRBY', KEYS[1], 'version', 1)
-end
-return old
-"""
-
-# KEYS[1] record; ARGV[1] field, ARGV[2] value: set only while solving (progress updates)
-_WHILE_SOLVING = """
-if redis.call('HGET', KEYS[1], 'status') ~= 'solving' then return 0 end
-redis.call('HSET', KEYS[1], ARGV[1], ARGV[2])
-redis.call('HINCRBY', KEYS[1], 'version', 1)
-return 1
-"""
 
 
 def rfc3339(t: float) -> str:
@@ -202,12 +109,31 @@ class Claim:
     time_budget: float
     method: str
     body: bytes
-    #: True when ``body`` is the worker's copy in columns (``service/payload.py``)
+    #: True when ``body`` is the stored form of the checked request (``service/workform.py``,
+    #: or from an older API ``service/payload.py``'s columns), False for the raw body
     columns: bool
 
 
 #: a metric increment for :meth:`Store.finish`: (hash key, [(op 'i'|'f', field, amount)])
 Counters = tuple[str, list[tuple[str, str, float]]]
+
+
+def _increments(counters: Counters) -> list[Any]:
+    """The increments of ``counters`` as the scripts' (op, field, amount) arguments."""
+    out: list[Any] = []
+    for op, name, amount in counters[1]:
+        out += [op, name, repr(float(amount)) if op == "f" else int(amount)]
+    return out
+
+
+@dataclass(frozen=True, slots=True)
+class RateCount:
+    """A request still to count against its tenant's rate, in the script that stores its
+    record (``service/limits.py``): the window's counter, the limit, the counter's expiry."""
+
+    key: str
+    limit: int
+    expiry: int
 
 
 class Store:
@@ -218,11 +144,12 @@ class Store:
         self.prefix = prefix
         self.retention = int(retention)
         self._memory: tuple[float, float] | None = None  # (when read, used / maxmemory)
-        self._transition = conn.register_script(_TRANSITION)
-        self._cancel = conn.register_script(_CANCEL)
-        self._while_solving = conn.register_script(_WHILE_SOLVING)
-        self._claim = conn.register_script(_CLAIM)
-        self._finish = conn.register_script(_FINISH)
+        self._transition = conn.register_script(TRANSITION)
+        self._cancel = conn.register_script(CANCEL)
+        self._while_solving = conn.register_script(WHILE_SOLVING)
+        self._claim = conn.register_script(CLAIM)
+        self._finish = conn.register_script(FINISH)
+        self._create_finished = conn.register_script(CREATE_FINISHED)
 
     # -- key names ----------------------------------------------------------------------
     def key(self, kind: str, rid: str, part: str = "") -> str:
@@ -274,7 +201,7 @@ class Store:
     ) -> str:
         """Store a new queued record; returns its id.
 
-        ``work`` is the worker's copy of the body (``service/payload.py``), stored next to
+        ``work`` is the stored form of the checked body (``service/workform.py``), next to
         it. ``enqueue(pipeline)``, when given, adds the queue's own writes to the same
         transaction: the record and its job appear together or not at all, in one round
         trip.
@@ -353,7 +280,7 @@ class Store:
 
     def _keep(self, fields: dict[str, Any]) -> int:
         """Seconds a new record lives: twice the retention while queued, else (written
-        finished, see :meth:`finished_in`) the retention."""
+        finished, see :meth:`create_finished`) the retention."""
         return self.retention if fields["status"] in FINISHED else 2 * self.retention
 
     @staticmethod
@@ -506,28 +433,71 @@ class Store:
         metrics_key = self.key(kind, rid)  # an unused slot when there is nothing to count
         if counters is not None:
             metrics_key = counters[0]
-            for op, name, amount in counters[1]:
-                args += [op, name, repr(float(amount)) if op == "f" else int(amount)]
+            args += _increments(counters)
         # [record, request, result, work, done, metrics, global queue-depth set]
         keys = [*self._all_keys(kind, rid), self.key(kind, rid, "done"), metrics_key]
         keys.append(f"{self.prefix}:active")
         return self._finish(keys=keys, args=args) is not None
 
-    def finished_in(
-        self, pipe: Pipeline, kind: str, rid: str, result_json: str, counters: Counters
-    ) -> None:
-        """The rest of :meth:`finish`, added to the transaction that writes a record in its
-        finished state (a plan the API solved itself, its fields given to :meth:`create`):
-        the result with the retention, the waiters woken, the metrics counted."""
-        pipe.set(self.key(kind, rid, "result"), result_json, ex=self.retention)
-        done = self.key(kind, rid, "done")
-        pipe.rpush(done, b"1")
-        pipe.expire(done, 60)
-        for op, name, amount in counters[1]:
-            if op == "f":
-                pipe.hincrbyfloat(counters[0], name, float(amount))
-            else:
-                pipe.hincrby(counters[0], name, int(amount))
+    def create_finished(
+        self,
+        kind: str,
+        tenant: str,
+        request_body: bytes,
+        meta: dict[str, Any],
+        *,
+        rid: str,
+        now: float,
+        result: tuple[str, Counters],
+        rate: RateCount | None = None,
+        keyed: tuple[str, str] | None = None,
+    ) -> tuple[str, Any]:
+        """A record written already finished (``meta`` holds its finished fields: a plan
+        solved in the request), in one script and one round trip: the record, its
+        request, its index entry, its ``result`` (JSON, and the metrics it counts) and the
+        done token, with ``keyed`` (an Idempotency-Key and the request's fingerprint)
+        claimed first and, with ``rate`` (``limits.take_deferred``), the tenant's request
+        counted before anything else.
+
+        Returns ``("ok", None)`` once written; ``("rate", count)`` when the count passed
+        the limit and ``("bound", {"fingerprint", "id"})`` when the key was bound already:
+        then nothing was written."""
+        fields = self._fields(kind, tenant, meta, now)
+        result_json, counters = result
+        idem, binding = self.key(kind, rid), ""  # an unused slot without a key
+        if keyed is not None:
+            idem = fields["idem_key"] = self.idem_key(tenant, kind, keyed[0])
+            binding = json.dumps({"fingerprint": keyed[1], "id": rid})
+        index = self.index_key(tenant, kind)
+        keys = [
+            self.key(kind, rid),
+            self.key(kind, rid, "request"),
+            self.key(kind, rid, "result"),
+            self.key(kind, rid, "done"),
+            index,
+            counters[0],
+            rate.key if rate is not None else self.key(kind, rid),  # unused slot without
+            idem,
+        ]
+        args: list[Any] = [
+            self._keep(fields),
+            request_body,
+            result_json,
+            rid,
+            3 * self.retention,
+            new_id(now - 3 * self.retention)[:11],  # older ids can have no record left
+            rate.limit if rate is not None else "",
+            rate.expiry if rate is not None else 0,
+            binding,
+            len(fields),
+        ]
+        for name, value in fields.items():
+            args += [name, value]
+        got = self._create_finished(keys=keys, args=args + _increments(counters))
+        verdict = _text(got[0])
+        if verdict == "bound":
+            return verdict, json.loads(got[1])
+        return verdict, int(got[1]) if verdict == "rate" else None
 
     def _refresh_and_notify(self, kind: str, rid: str) -> None:
         idem = self.conn.hget(self.key(kind, rid), "idem_key")

@@ -1,7 +1,8 @@
 """The RQ task: a thin adapter between the queue, the store and the planning core.
 
-``run_job`` claims the record and loads its stored request (one script: the worker's copy
-in columns when the API stored one, ``service/payload.py``, else the raw body), solves it
+``run_job`` claims the record and loads its stored request (one script): the core objects
+the API's checks made (``service/workform.py``: nothing is read or checked again), or, for
+a record an older API stored, its copy in columns or its raw body, read here. It solves it
 with the core, publishes progress (elapsed, best makespan, best bound) while the core runs
 longer than the progress interval, honours a cancel flag through the core's
 ``should_stop`` hook, and stores the result under our keys with their retention, the
@@ -24,11 +25,12 @@ from typing import Any
 
 from rq import get_current_job
 
-from service import payload
+from service import payload, workform
 from service.metrics import failed_counters, finish_counters
 from service.problems import InternalError, problem_dict
 from service.store import Claim, Store
 from service.worker import take_claim
+from service.workform import Work
 from workers.planning import rounding
 from workers.planning.errors import SpanwrightError
 from workers.planning.progress import Report
@@ -57,31 +59,37 @@ Runner = Callable[..., Outcome]
 
 
 def solve_plan(
-    body: Mapping[str, Any] | payload.Columns,
+    body: Work | Mapping[str, Any] | payload.Columns,
     *,
     method: str,
     time_budget: float,
     progress: Callable[[Any], None],
     should_stop: Callable[[], bool],
-    problem: Any = None,
 ) -> Outcome:
     """``POST /v1/plans`` through the use-case the command line calls too.
 
-    ``body`` is the request body, or the API's copy of it with the jobs in columns; then
-    ``problem``, when given, is what ``reading`` made of those columns already (the API's
-    checks built it), and is solved as it is.
+    ``body`` is what the API's checks made of the request (``service/workform.py``),
+    solved as it is; or, for a record an older API stored, the request body or its copy
+    with the jobs in columns, read here.
     """
     from service import reading
     from workers.planning import usecases
 
-    if not isinstance(body, payload.Columns) and "stage_replan" in body:
+    if isinstance(body, Work) and body.events is not None:
         return _replan_stages(body, method=method, time_budget=time_budget, should_stop=should_stop)
+    if not isinstance(body, Work | payload.Columns) and "stage_replan" in body:
+        return _replan_stages(
+            _read_stage_replan(body),
+            method=method,
+            time_budget=time_budget,
+            should_stop=should_stop,
+        )
     inst: reading.Problem
-    if isinstance(body, payload.Columns):
-        if problem is None:
-            plain = reading.read_columns(body.envelope, body.ids, body.durations, body.groups)
-            problem = reading.with_stages(plain, body.envelope)  # limits or slots, if any
-        inst = problem
+    if isinstance(body, Work):
+        inst, spread = body.core, body.spread
+    elif isinstance(body, payload.Columns):
+        plain = reading.read_columns(body.envelope, body.ids, body.durations, body.groups)
+        inst = reading.with_stages(plain, body.envelope)  # limits or slots, if any
         spread = reading.read_spread(body.envelope)  # plain jobs carry no duration_p90
     else:
         inst, spread = reading.read_plan_body(body)
@@ -121,25 +129,34 @@ def plan_outcome(res: Any, result: dict[str, Any], text: str, jobs: int, nodes: 
     return Outcome(result, summary, res.stop_reason == "cancelled", text, res.exact_value)
 
 
+def _read_stage_replan(body: Mapping[str, Any]) -> Work:
+    """A stage graph's re-plan stored by an older API as a body (the original request, the
+    original plan's nodes and the events), read."""
+    from service import reading
+
+    spec = body["stage_replan"]
+    problem = reading.read_problem(spec["request"])
+    events = reading.read_events(spec["events"])
+    return Work(problem, planned_on=spec["planned_on"], events=events)
+
+
 def _replan_stages(
-    body: Mapping[str, Any],
+    work: Work,
     *,
     method: str,
     time_budget: float,
     should_stop: Callable[[], bool],
 ) -> Outcome:
-    """A stage graph's re-plan queued by ``POST /v1/plans/{id}/replan`` (its stored request
-    names the original request, the original plan's nodes and the events)."""
-    from service import reading
+    """A stage graph's re-plan queued by ``POST /v1/plans/{id}/replan``: the original
+    graph, the original plan's nodes and the events."""
     from workers.planning.budget import Budget
     from workers.planning.stages.replan import replan_stages
 
-    spec = body["stage_replan"]
-    problem = reading.read_problem(spec["request"])
+    assert work.planned_on is not None and work.events is not None
     res = replan_stages(
-        problem,  # type: ignore[arg-type]
-        spec["planned_on"],
-        reading.read_events(spec["events"]),
+        work.core,
+        work.planned_on,
+        work.events,
         method=method,
         budget=Budget(time_budget, should_stop),
     )
@@ -148,20 +165,23 @@ def _replan_stages(
 
 
 def size_farm(
-    body: Mapping[str, Any],
+    body: Work | Mapping[str, Any],
     *,
     method: str,
     time_budget: float,
     progress: Callable[[Any], None],
     should_stop: Callable[[], bool],
 ) -> Outcome:
-    """``POST /v1/sizings`` through the use-case the command line calls too."""
+    """``POST /v1/sizings`` through the use-case the command line calls too: what the
+    API's checks made of the request (or, stored by an older API, its body, read here)."""
     from service import reading
     from workers.planning import usecases
 
+    if not isinstance(body, Work):
+        body = Work(reading.read_sizing_request(body), reading.read_spread(body))
     answer = usecases.size(
-        reading.read_sizing_request(body),
-        spread=reading.read_spread(body),
+        body.core,
+        spread=body.spread,
         time_budget=time_budget,
         progress=progress,
         should_stop=should_stop,
@@ -222,7 +242,7 @@ def run_record(
     last = [t0]  # the first progress write waits one interval: quick solves write none
     best: dict[str, Any] = {}
 
-    body: Any = payload.decode(claim.body) if claim.columns else json.loads(claim.body)
+    body = _stored(claim)
     grid = rounding.grid_decimals(_resolution(body))
 
     def progress(p: Report) -> None:  # a plan's best so far, or a sizing's interval
@@ -314,35 +334,37 @@ def finished(
     return Finished(status, text, summary, final, out.result)
 
 
-def plan_now(
-    body: payload.Columns, problem: Any, method: str, time_budget: float
-) -> Finished | None:
-    """Solve a plan of plain jobs in columns, with the core problem the API's checks made
-    of them (``reading.read_columns``, ``with_stages``), in this thread, as
-    :func:`run_record` would (no progress, no cancel); None when the core refuses it (the
-    queue's worker then fails it with its problem, as for any plan)."""
+def plan_now(work: Work, method: str, time_budget: float) -> Finished | None:
+    """Solve a plan as the API's checks made it, in this thread, as :func:`run_record`
+    would (no progress, no cancel); None when the core refuses it (the queue's worker
+    then fails it with its problem, as for any plan)."""
     t0 = time.perf_counter()
-    grid = rounding.grid_decimals(_resolution(body))
+    grid = rounding.grid_decimals(work.resolution)
     try:
         out = solve_plan(
-            body,
+            work,
             method=method,
             time_budget=time_budget,
             progress=lambda p: None,
             should_stop=lambda: False,
-            problem=problem,
         )
     except SpanwrightError:
         return None
-    return finished("plan", body, out, grid, time.perf_counter() - t0, time_budget)
+    return finished("plan", work, out, grid, time.perf_counter() - t0, time_budget)
+
+
+def _stored(claim: Claim) -> Any:
+    """What the worker solves from a claimed record: the objects the API's checks made
+    (``service/workform.py``), or for a record an older API stored, its copy in columns
+    or its body."""
+    if workform.is_work(claim.body):
+        return workform.decode(claim.body)
+    return payload.decode(claim.body) if claim.columns else json.loads(claim.body)
 
 
 def _resolution(body: Any) -> float:
     """The request's ``resolution`` (default 1 s), the grid its answer is written on."""
-    env = body.envelope if isinstance(body, payload.Columns) else body
-    env = env.get("stage_replan", {}).get("request", env)
-    value = env.get("resolution")
-    return float(value) if isinstance(value, int | float) and value > 0 else 1.0
+    return body.resolution if isinstance(body, Work) else workform.resolution_of(body)
 
 
 def _on_grid(kind: str, out: Outcome, grid: int) -> Outcome:
@@ -369,6 +391,8 @@ def clock_block(body: Any) -> dict[str, Any] | None:
     works in seconds and never sees it (``service/reading/clock.py``)."""
     from service.reading import clock
 
+    if isinstance(body, Work):
+        return body.clock
     return clock.echo(body.envelope if isinstance(body, payload.Columns) else body)
 
 

@@ -5,10 +5,12 @@ finished record within ``Prefer: wait=N``; ``Idempotency-Key``), ``GET /{id}`` (
 ``If-None-Match``), ``DELETE /{id}`` (cancel) and ``GET`` (the tenant's records, newest
 first, ``status``/``limit``/``cursor``). Only the validation differs between kinds.
 
-A small longest-first plan of plain jobs whose client waits (``Prefer: wait``) is solved
-in the request while the queue has a worker (:func:`_solve_here`): it is stored finished,
+A small longest-first plan of plain jobs is solved in the request while the queue has a
+worker (:func:`_solve_here`), whether its client waits or not: it is stored finished,
 listed, counted and bound to its Idempotency-Key as a worker's plan, in one transaction,
-and costs no queue entry (issue 20: the queue and the worker cost more than the plan).
+and costs no queue entry (issue 20: the queue and the worker cost more than the plan). A
+client that did not ask to wait still gets 202 (201 only answers a wait), with the record
+already finished.
 """
 
 from __future__ import annotations
@@ -29,7 +31,7 @@ from flask import Blueprint, Response, request
 
 from workers.planning.errors import Issue
 
-from .. import jobscan, limits
+from .. import jobscan, limits, workform
 from ..auth import current
 from ..metrics import finish_counters
 from ..payload import Columns
@@ -48,6 +50,7 @@ from ..reading import clock
 from ..services import may_read, services, tenant
 from ..settings import Settings
 from ..store import FINISHED, STATUSES, Record, new_id, rfc3339
+from ..workform import Work
 
 if TYPE_CHECKING:
     from workers.tasks import Finished
@@ -83,15 +86,32 @@ _WAIT_RE = re.compile(r"^\s*wait\s*=\s*\"?(\d+(?:\.\d+)?)\"?\s*$", re.IGNORECASE
 
 @dataclass(frozen=True, slots=True)
 class Validated:
-    """A checked request body: the loaded body, and maybe the worker's copy of it."""
+    """A checked request body: the loaded body, and what the checks made of it."""
 
     data: dict[str, Any]
-    #: stored for the worker next to the raw body (``service/payload.py``); None: the raw one
-    work: bytes | bytearray | None = None
-    #: a plan of plain jobs: the body in columns and the core problem the checks made of it
-    #: (what a plan solved in the request is solved from)
+    #: the core objects the checks made, stored for the worker next to the raw body
+    #: (``service/workform.py``); None: the worker reads the raw body
+    work: Work | None = None
+    #: a plan of plain jobs: the body in columns (``work`` is all but its jobs) and the
+    #: core problem the checks made of it (what a plan solved in the request is solved
+    #: from; None past the size solved here)
     columns: Columns | None = None
     problem: Any = None
+
+    def stored_work(self) -> bytes | bytearray | None:
+        """The stored form of ``work`` (with the jobs in columns for a plain plan), made
+        only when the record is queued (a plan solved in the request needs none)."""
+        if self.work is None:
+            return None
+        if self.columns is not None:
+            return workform.encode_plain(self.work, self.columns)
+        return workform.encode(self.work)
+
+    def solvable(self) -> Work:
+        """``work`` with the checked problem of a plain plan (what :func:`_solve_here`
+        solves)."""
+        assert self.work is not None and self.problem is not None
+        return dataclasses.replace(self.work, core=self.problem, plain=None, stages=None)
 
 
 #: validate a body: shape (marshmallow) then semantics (the core)
@@ -407,33 +427,21 @@ def _queue_record(
         full.headers = {"Retry-After": "30"}  # type: ignore[attr-defined]
         raise full
     now = time.time()
-    solved: Finished | None = None  # the plan solved here, or None: queued
-    if wait and _solve_here(res, checked, meta, extra_seconds, more):
+    if _solve_here(res, checked, meta, extra_seconds, more, settings):
         from workers.tasks import plan_now
 
-        assert checked.columns is not None  # checked by _solve_here
-        solved = plan_now(checked.columns, checked.problem, str(meta["method"]), budget)
-    work = checked.work
-    if solved is None:
-        limits.admit(who, res.kind, rid)  # 429 before anything is stored
-    else:  # never queued, so it takes no queue slot; stored finished, the worker's copy unused
-        meta = {
-            **meta,
-            "status": solved.status,
-            "started_at": rfc3339(now),
-            "finished_at": rfc3339(time.time()),
-            "attempts": 1,
-            "summary": solved.summary,
-            "progress": solved.progress,
-        }
-        work = None
+        solved = plan_now(checked.solvable(), str(meta["method"]), budget)
+        if solved is not None:
+            rec = _store_solved(res, raw, meta, fingerprint, rid, now, key, solved, replay)
+            if isinstance(rec, Response):  # the key's record, for a retry
+                return rec
+            return _respond(rec, res, 201 if wait else 202, extra, more)  # 201 answers a wait
+    limits.settle()  # a count that waited for the store: made now, before a queue slot
+    limits.admit(who, res.kind, rid)  # 429 before anything is stored
+    work = checked.stored_work()  # the worker's copy, made only for a queued record
 
     def enqueue(pipe: Any) -> None:
-        if solved is None:
-            svc.queue.enqueue(res.kind, rid, budget, pipeline=pipe, extra_seconds=extra_seconds)
-        else:
-            counters = finish_counters(store.prefix, res.kind, solved.result)
-            store.finished_in(pipe, res.kind, rid, solved.result_json, counters)
+        svc.queue.enqueue(res.kind, rid, budget, pipeline=pipe, extra_seconds=extra_seconds)
 
     try:
         if key is None:  # record and queue entry in one transaction, one round trip
@@ -452,50 +460,108 @@ def _queue_record(
                     work=work,
                     enqueue=enqueue,
                 )
+                old = None if bound is None else _bound_record(res, who, key, fingerprint, bound)
+                if old is not None:
+                    limits.release(who, res.kind, rid)
+                    return replay(old)
                 if bound is None:
                     break
-                if bound.get("fingerprint") != fingerprint:
-                    raise _key_reused()
-                old = store.get(res.kind, bound.get("id", ""))
-                if old is None or old.tenant != who:
-                    store.release_idempotency(who, res.kind, key)  # its record expired
-                    continue
-                if solved is None:
-                    limits.release(who, res.kind, rid)
-                return replay(old)
             else:  # pragma: no cover - needs two expiries in a row
                 raise IdempotencyKeyInFlight("the key is being re-bound; retry in a moment")
     except BaseException:
-        if solved is None:
-            limits.release(who, res.kind, rid)  # nothing was stored: free the slot it held
+        limits.release(who, res.kind, rid)  # nothing was stored: free the slot it held
         raise
-    if solved is not None or not wait:  # as written: no read back (a worker may have it now)
-        text = None if solved is None else solved.result_json
-        rec = store.written(res.kind, who, rid, meta, now, text)
-        return _respond(rec, res, 201 if wait and rec.status in FINISHED else 202, extra, more)
+    if not wait:  # as written: no read back (a worker may have it now)
+        return _respond(store.written(res.kind, who, rid, meta, now), res, 202, extra, more)
     rec = store.wait_for(res.kind, rid, wait)
     if rec is None:  # pragma: no cover - expired within the request
         raise NotFound(f"{res.kind} {rid} vanished")
     # 201 only answers a wait (the spec's promise)
-    done_in_wait = bool(wait) and rec.status in FINISHED
-    return _respond(rec, res, 201 if done_in_wait else 202, extra, more)
+    return _respond(rec, res, 201 if rec.status in FINISHED else 202, extra, more)
 
 
-#: plain longest-first plans of at most this many jobs, asked with ``Prefer: wait``, are
-#: solved in the request that brings them (stored, listed and counted as a worker's;
-#: bench/RESULTS.md, issue 20)
-SOLVE_HERE_MAX_JOBS = 2_000
+def _bound_record(
+    res: Resource, who: str, key: str, fingerprint: str, bound: dict[str, str]
+) -> Record | None:
+    """The record a key found bound at write time is bound to, for a retry of the same
+    request (422 for another body); None when that record has expired (the key is then
+    released, for the caller to bind it again)."""
+    store = services().store
+    if bound.get("fingerprint") != fingerprint:
+        raise _key_reused()
+    old = store.get(res.kind, bound.get("id", ""))
+    if old is None or old.tenant != who:
+        store.release_idempotency(who, res.kind, key)  # its record expired
+        return None
+    return old
+
+
+def _store_solved(
+    res: Resource,
+    raw: bytes,
+    meta: dict[str, Any],
+    fingerprint: str,
+    rid: str,
+    now: float,
+    key: str | None,
+    solved: Finished,
+    replay: Callable[[Record], Response],
+) -> Record | Response:
+    """Store a plan solved in the request, finished, in one script (``Store.create_finished``:
+    the request's rate count if it waited, the key, the record, its result and metrics),
+    and return the record as written (no read back). Never queued, it takes no queue
+    slot. A key found bound to a live record gets ``replay`` of that record."""
+    store = services().store
+    who = tenant()
+    meta = {
+        **meta,
+        "status": solved.status,
+        "started_at": rfc3339(now),
+        "finished_at": rfc3339(time.time()),
+        "attempts": 1,
+        "summary": solved.summary,
+        "progress": solved.progress,
+    }
+    counters = finish_counters(store.prefix, res.kind, solved.result)
+    for _ in range(2):
+        verdict, got = store.create_finished(
+            res.kind,
+            who,
+            raw,
+            meta,
+            rid=rid,
+            now=now,
+            result=(solved.result_json, counters),
+            rate=limits.take_deferred(),
+            keyed=None if key is None else (key, fingerprint),
+        )
+        if verdict == "rate":
+            limits.refuse_past(who, got)  # nothing was written
+        if verdict == "ok":
+            break
+        assert key is not None  # "bound" answers a key only
+        old = _bound_record(res, who, key, fingerprint, got)
+        if old is not None:
+            return replay(old)
+    else:  # pragma: no cover - needs two expiries in a row
+        raise IdempotencyKeyInFlight("the key is being re-bound; retry in a moment")
+    return store.written(res.kind, who, rid, meta, now, solved.result_json)
 
 
 def _solve_here(
-    res: Resource, checked: Validated, meta: dict[str, Any], extra: float, more: Any
+    res: Resource,
+    checked: Validated,
+    meta: dict[str, Any],
+    extra: float,
+    more: Any,
+    settings: Settings,
 ) -> bool:
-    """Whether to solve a request whose client waits for it (``Prefer: wait``) in the API
-    rather than queue it (a client that does not wait gets a queued plan, which it may
-    still cancel, as before): a plan (not a re-plan)
+    """Whether to solve a request in the API rather than queue it: a plan (not a re-plan)
     of plain jobs read in columns (``checked.columns``), longest first, no simulation, at
-    most :data:`SOLVE_HERE_MAX_JOBS` jobs, while the queue has a worker (a service with
-    none queues everything, as before: its work waits for the workers)."""
+    most ``settings.solve_here_max_jobs`` jobs, while the queue has a worker (a service
+    with none queues everything, as before: its work waits for the workers). Whether the
+    client waits does not matter: a longest-first plan of that size costs less than the
+    queue's own bookkeeping (bench/RESULTS.md, issue 20)."""
     return (
         res.kind == "plan"
         and more is None
@@ -503,7 +569,7 @@ def _solve_here(
         and checked.columns is not None
         and checked.problem is not None
         and meta.get("method") == "longest_first"
-        and len(checked.columns.ids) <= SOLVE_HERE_MAX_JOBS
+        and len(checked.columns.ids) <= settings.solve_here_max_jobs
         and services().queue.has_workers()
     )
 

@@ -10,7 +10,7 @@ from workers.planning.farm_bounds import eligibility
 from workers.planning.model import Instance
 
 from .. import jobscan, payload
-from ..reading import read_columns, read_plan_body, with_stages
+from ..reading import clock, read_columns, read_plan_body, read_spread, with_stages
 from ..schemas import (
     PLAN_ENVELOPE_SCHEMA,
     check_plan_limits,
@@ -18,8 +18,9 @@ from ..schemas import (
     load_plan_request,
 )
 from ..settings import Settings
+from ..workform import Work, plain_work
 from .events import add_events
-from .jobs import SOLVE_HERE_MAX_JOBS, Resource, Validated, make_blueprint
+from .jobs import Resource, Validated, make_blueprint
 
 
 def read_plan(body: Any, settings: Settings) -> Validated:
@@ -27,8 +28,8 @@ def read_plan(body: Any, settings: Settings) -> Validated:
 
     A body whose jobs are all plain ``{id, duration[, group]}`` objects is read once, in
     columns (``load_plan_columns`` then ``reading.read_columns``), and the worker gets
-    those columns (``service/payload.py``); any other body, and every body with a
-    problem, takes the per-job path (``load_plan_request`` then
+    those columns with the rest of what the checks made (``service/workform.py``); any
+    other body, and every body with a problem, takes the per-job path (``load_plan_request`` then
     ``reading.read_plan_body``), whose verdicts and messages both paths share. A body the
     route read in columns from its bytes (``payload.Columns``, ``service/jobscan.py``)
     takes :func:`_read_scanned`, with the same verdicts and messages.
@@ -38,14 +39,16 @@ def read_plan(body: Any, settings: Settings) -> Validated:
     fast = load_plan_columns(body, settings)
     if fast is None:
         data = load_plan_request(body, settings)
-        problem, _ = read_plan_body(data)  # a stage graph's cycles and references too
+        problem, spread = read_plan_body(data)  # a stage graph's cycles and references too
         inst = problem if isinstance(problem, Instance) else problem.instance
         if inst.requires is not None:
             eligibility(inst)  # a job no node can run: 422 naming it, not a failed plan
-        return Validated(data)
+        return Validated(data, Work(problem, spread, clock.echo(body), inst.resolution))
     data, cols = fast
     envelope = {k: v for k, v in body.items() if k != "jobs"}
-    return _checked(data, payload.Columns(envelope, cols.ids, cols.durations, cols.groups))
+    return _checked(
+        data, payload.Columns(envelope, cols.ids, cols.durations, cols.groups), settings
+    )
 
 
 def _read_scanned(cols: payload.Columns, settings: Settings) -> Validated:
@@ -63,18 +66,20 @@ def _read_scanned(cols: payload.Columns, settings: Settings) -> Validated:
         load_plan_request({**envelope, "jobs": [job]}, settings)
         raise  # not reached: the same schema refuses the same fields
     data.setdefault("time_budget", settings.default_time_budget)
-    return _checked(data, payload.Columns(envelope, cols.ids, cols.durations, cols.groups))
+    return _checked(
+        data, payload.Columns(envelope, cols.ids, cols.durations, cols.groups), settings
+    )
 
 
-def _checked(data: dict[str, Any], cols: payload.Columns) -> Validated:
+def _checked(data: dict[str, Any], cols: payload.Columns, settings: Settings) -> Validated:
     """The core's semantic checks of a body of plain jobs in columns (no tags in columns;
     limits and slots in the envelope make it a stage graph), and what they made."""
     env = cols.envelope
     problem = with_stages(read_columns(env, cols.ids, cols.durations, cols.groups), env)
-    if len(cols.ids) > SOLVE_HERE_MAX_JOBS:
+    work = plain_work(problem, read_spread(env), clock.echo(env))  # all but the jobs
+    if len(cols.ids) > settings.solve_here_max_jobs:
         problem = None  # only a small plan may be solved here: not held while encoding
-    work = payload.encode(env, cols.ids, cols.durations, cols.groups)
-    return Validated(data, work, columns=cols, problem=problem)
+    return Validated(data, work, columns=cols, problem=problem)  # stored only if queued
 
 
 def validate_plan(body: Any, settings: Settings) -> dict[str, Any]:

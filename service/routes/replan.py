@@ -23,10 +23,18 @@ from workers.planning.stages.problem import StageProblem
 from workers.planning.stages.replan import remaining_stages
 
 from ..problems import NotFinished, NotFound
-from ..reading import planned_nodes, read_events, read_instance, read_problem, replan_body
+from ..reading import (
+    clock,
+    planned_nodes,
+    read_events,
+    read_instance,
+    read_problem,
+    replan_body,
+)
 from ..reading.stages import is_staged
 from ..schemas import load_replan_request
 from ..services import services, tenant
+from ..workform import Work, resolution_of
 from .jobs import ID_RE, Validated, queue_record, read_json_body
 from .plans import RESOURCE, read_plan
 
@@ -94,7 +102,8 @@ def _replan_stages(
         "method": method,
         "time_budget": budget,
     }
-    checked = Validated({"method": method, "time_budget": budget})
+    work = Work(problem, None, clock.echo(request), resolution_of(request), planned_on, events)
+    checked = Validated({"method": method, "time_budget": budget}, work)
     meta: dict[str, Any] = {
         "method": method,
         "time_budget": repr(float(budget)),

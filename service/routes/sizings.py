@@ -16,15 +16,22 @@ from workers.planning.rental import RentalArgs
 from workers.planning.stage_sizing import StageSizingArgs
 from workers.planning.usecases import FrontierArgs, refuse_spread
 
-from ..reading import read_sizing_request, read_spread, refuse_stages
+from ..reading import clock, read_sizing_request, read_spread, refuse_stages
 from ..schemas import load_sizing_request
 from ..settings import Settings
+from ..workform import Work, resolution_of
 from .events import add_events
 from .jobs import Resource, Validated, make_blueprint
 
 
 def validate_sizing(body: Any, settings: Settings) -> dict[str, Any]:
     """Limits and shape (marshmallow), then the core's checks (422 either way)."""
+    return read_sizing(body, settings).data
+
+
+def read_sizing(body: Any, settings: Settings) -> Validated:
+    """:func:`validate_sizing` for the job machinery, with what the checks made (the
+    arguments and what to simulate), which the worker solves (``service/workform.py``)."""
     data = load_sizing_request(body, settings)
     args = read_sizing_request(data)
     args.check()
@@ -36,12 +43,7 @@ def validate_sizing(body: Any, settings: Settings) -> dict[str, Any]:
             refuse_stages(data, "the confidence simulation")
         else:
             asked.check(args.base, args.node.speed)
-    return data
-
-
-def read_sizing(body: Any, settings: Settings) -> Validated:
-    """:func:`validate_sizing` for the job machinery (the worker reads the raw body)."""
-    return Validated(validate_sizing(body, settings))
+    return Validated(data, Work(args, asked, clock.echo(body), resolution_of(body)))
 
 
 RESOURCE = Resource(kind="sizing", path="/v1/sizings", validate=read_sizing)

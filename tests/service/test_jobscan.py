@@ -384,14 +384,16 @@ def test_ids_packed_in_batches_are_what_json_loads_reads(raw: bytes, batch: int,
 
 
 def test_worker_copy_is_the_bodys_columns() -> None:
-    """The copy stored for the worker holds the body's own ids, durations and groups and
-    its other fields (checked against ``json.loads`` of the body)."""
+    """The form stored for the worker holds the body's own ids, durations and groups and
+    its node count (checked against ``json.loads`` of the body)."""
+    from service import workform
     from service.routes.plans import read_plan
 
     raw = (
         b'{"node_count": 2, "jobs": [{"duration": 1840, "id": "sh\\u00e9"},'
         b' {"id": "f2", "group": "g", "duration": 2.5e0}]}'
     )
-    work = read_plan(jobscan.read_plain(raw), S).work
-    cols = payload.decode(work or b"")
+    inst = workform.decode(read_plan(jobscan.read_plain(raw), S).stored_work() or b"").core
+    cols = payload.Columns({"node_count": inst.m}, list(inst.job_ids), inst.durations)
+    cols = dataclasses.replace(cols, groups=list(inst.groups or [None] * inst.n))
     assert _same(cols, raw)

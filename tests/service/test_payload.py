@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
+import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -33,22 +34,27 @@ def test_columns_come_back_exactly(
     ids = [j[0] for j in jobs]
     durations = [j[1] for j in jobs]
     groups = [j[2] for j in jobs] if with_groups else None
-    cols = payload.decode(payload.encode(envelope, ids, durations, groups))
+    given_cols = payload.Columns(envelope, ids, np.asarray(durations, dtype=np.float64), groups)
+    cols = payload.decode(payload.encode(given_cols))
     assert cols.envelope == envelope and cols.ids == ids and cols.groups == groups
     got = cols.durations.tolist()
     assert [(x, math.copysign(1, x)) for x in got] == [(x, math.copysign(1, x)) for x in durations]
-    assert payload.is_columns(payload.encode(envelope, ids, durations, groups))
+    assert payload.is_columns(payload.encode(given_cols))
 
 
 def test_what_is_not_a_copy_is_refused() -> None:
     """A raw JSON body is not mistaken for a copy, and damaged copies raise ValueError
     (never a wrong instance): a body cut short, a count that does not match."""
-    good = payload.encode({"node_count": 2}, ["a", "b"], [1.0, 2.0])
+    good = payload.encode(_columns({"node_count": 2}, ["a", "b"], [1.0, 2.0]))
     assert not payload.is_columns(b'{"jobs": []}')
     for bad in (b'{"jobs": []}', good[:-3], good.replace(b'["a","b"]', b'["a"]')):
         with pytest.raises(ValueError):
             payload.decode(bad)
     with pytest.raises(ValueError):
-        payload.encode({"jobs": []}, ["a"], [1.0])
+        payload.encode(_columns({"jobs": []}, ["a"], [1.0]))
     with pytest.raises(ValueError):
-        payload.encode({}, ["a", "b"], [1.0])
+        payload.encode(_columns({}, ["a", "b"], [1.0]))
+
+
+def _columns(envelope: dict[str, Any], ids: list[str], durations: list[float]) -> payload.Columns:
+    return payload.Columns(envelope, ids, np.asarray(durations, dtype=np.float64))

@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from marshmallow import ValidationError
 
 from service.problems import LimitExceeded, json_pointer
-from service.reading import read_columns, read_instance
+from service.reading import read_instance
 from service.schemas import JobList, JobSchema, load_plan_request, messages_to_issues
 from service.settings import Settings
 from tests.service.plan_verdicts import envelopes, verdict
@@ -174,7 +174,7 @@ def test_read_once_in_columns_agrees_with_the_per_job_path(
     ``reading.read_instance``: the same loaded body, or the same problem with the same
     issues (pointers and messages, in order). When it stores a worker's copy, that copy
     builds the very instance ``read_instance`` builds from the body."""
-    from service import payload
+    from service import workform
     from service.routes.plans import read_plan
 
     body = {**envelope, "jobs": jobs}
@@ -186,13 +186,10 @@ def test_read_once_in_columns_agrees_with_the_per_job_path(
 
     got = verdict(lambda: read_plan(body, S).data)
     assert got == verdict(reference)
-    # when a worker's copy was stored, it reads back to the per-job path's instance
-    work = read_plan(body, S).work if got[0] == "ok" else None
-    copies = [] if work is None else [payload.decode(work)]
-    pairs = [
-        (read_columns(c.envelope, c.ids, c.durations, c.groups), read_instance(body))
-        for c in copies
-    ]
+    # the form stored for the worker reads back to the per-job path's instance
+    work = read_plan(body, S).stored_work() if got[0] == "ok" else None
+    copies = [] if work is None else [workform.decode(work).core]
+    pairs = [(inst, read_instance(body)) for inst in copies]
     assert all(
         inst.job_ids == ref.job_ids
         and inst.groups == ref.groups
@@ -203,19 +200,24 @@ def test_read_once_in_columns_agrees_with_the_per_job_path(
     )
 
 
-def test_only_plain_jobs_get_a_worker_copy() -> None:
-    """Jobs that are all plain ``{id, duration[, group]}`` objects get the worker's copy in
-    columns; a job with another field (``requires``) sends the worker the raw body. Checked
-    against the body itself: the copy holds its ids, durations and groups in order."""
-    from service import payload
+def test_the_worker_gets_the_checked_objects_of_every_plan() -> None:
+    """Jobs that are all plain ``{id, duration[, group]}`` objects are stored for the
+    worker in columns, a job with another field (``requires``) as the objects the checks
+    made; either reads back to the body's own ids, durations, groups, tags and nodes, in
+    order (checked against the body itself)."""
+    from service import workform
     from service.routes.plans import read_plan
 
     jobs = [{"id": "sh010_f1", "duration": 1840}, {"id": "sh010_f2", "duration": 2.5, "group": "g"}]
-    work = read_plan({"jobs": jobs, "node_count": 2}, S).work
+    work = read_plan({"jobs": jobs, "node_count": 2}, S).stored_work()
     assert work is not None
-    cols = payload.decode(work)
-    assert cols.ids == ["sh010_f1", "sh010_f2"] and cols.durations.tolist() == [1840.0, 2.5]
-    assert cols.groups == [None, "g"] and cols.envelope == {"node_count": 2}
+    assert b'["sh010_f1","sh010_f2"]\n[null,"g"]\n' in work  # the jobs in columns
+    inst = workform.decode(work).core
+    assert inst.job_ids == ("sh010_f1", "sh010_f2") and inst.durations.tolist() == [1840.0, 2.5]
+    assert inst.groups == (None, "g") and inst.m == 2
     tagged = [{"id": "a", "duration": 1, "requires": ["gpu"]}]
-    nodes = [{"id": "n", "provides": ["gpu"]}]
-    assert read_plan({"jobs": tagged, "nodes": nodes}, S).work is None
+    nodes = [{"id": "n", "provides": ["gpu"], "speed": 2}]
+    got = workform.decode(read_plan({"jobs": tagged, "nodes": nodes}, S).stored_work() or b"")
+    inst = got.core
+    assert inst.job_ids == ("a",) and inst.requires == (frozenset({"gpu"}),)
+    assert [(n.id, n.speed, n.provides) for n in inst.nodes] == [("n", 2.0, frozenset({"gpu"}))]

@@ -23,10 +23,12 @@ def test_prefixed_variables_are_typed() -> None:
             "SPANWRIGHT_MAX_JOBS": "1_000",
             "SPANWRIGHT_MAX_TIME_BUDGET": "12.5",
             "SPANWRIGHT_KEY_PREFIX": "farm-a",
+            "SPANWRIGHT_SOLVE_HERE_MAX_JOBS": "0",
         }
     )
     assert not s.embedded
     assert (s.max_jobs, s.max_time_budget, s.key_prefix) == (1000, 12.5, "farm-a")
+    assert s.solve_here_max_jobs == 0  # 0 is meaningful: every plan takes the queue
 
 
 @pytest.mark.parametrize(
@@ -35,6 +37,7 @@ def test_prefixed_variables_are_typed() -> None:
         ("SPANWRIGHT_MAX_JOBS", "many"),
         ("SPANWRIGHT_MAX_JOBS", "0"),
         ("SPANWRIGHT_MAX_WAIT", "nan"),
+        ("SPANWRIGHT_SOLVE_HERE_MAX_JOBS", "-1"),
         ("SPANWRIGHT_KEY_PREFIX", "a b"),
     ],
 )
@@ -51,3 +54,29 @@ def test_settings_are_frozen() -> None:
     s = Settings()
     with pytest.raises(AttributeError):
         s.max_jobs = 3  # type: ignore[misc]
+
+
+def settings_table() -> list[str]:
+    """The rows deploy/README.md must hold: one per field of :class:`Settings`, in order,
+    with its variable, default and what it sets (``variables()``), in Markdown."""
+    from service.settings import variables
+
+    rows = []
+    for var, default, doc in variables():
+        shown = "(unset)" if default is None or default == "" else f"`{default}`"
+        rows.append(f"| `{var}` | {shown} | {doc.replace('``', '`')} |")
+    return rows
+
+
+def test_every_setting_is_documented_beside_the_others() -> None:
+    """deploy/README.md, "Settings", lists every environment variable the service reads,
+    its default and what it sets, exactly as the settings declare them (so a new setting
+    such as ``SPANWRIGHT_SOLVE_HERE_MAX_JOBS`` cannot go undocumented, and a changed
+    default cannot leave the page behind)."""
+    from pathlib import Path
+
+    readme = (Path(__file__).parents[2] / "deploy" / "README.md").read_text(encoding="utf-8")
+    listed = [
+        row for row in readme.splitlines() if row.startswith(("| `SPANWRIGHT_", "| `REDIS_URL`"))
+    ]
+    assert listed == settings_table()

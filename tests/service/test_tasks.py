@@ -228,3 +228,49 @@ def test_small_heuristic_plans_are_finished_in_the_request(app: Any, settings: A
     assert [(it["id"], it["status"]) for it in items] == [(doc["id"], "done")]
     metrics = conn.hgetall(f"{settings.key_prefix}:metrics:plan")
     assert metrics[b"finished:done"] == b"1"
+
+
+def test_small_heuristic_plans_are_finished_in_the_request_without_a_wait(
+    app: Any, settings: Any
+) -> None:
+    """Issue 20 (build 1): a client that does not wait gets the same in-request solving;
+    RFC 7240 and the contract (openapi/openapi.yaml) keep ``201`` for an answered wait, so
+    the answer is ``202`` with the record already ``done`` (no ``Retry-After``: nothing to
+    poll for), the makespan of longest-first worked out by hand (Graham 1969), nothing on
+    the queue, and the record reads back the same."""
+    conn = app.extensions["spanwright"].store.conn
+    end = time.monotonic() + 10
+    while not conn.scard(f"rq:workers:{settings.queue_name}"):
+        assert time.monotonic() < end, "the embedded worker did not start"
+        time.sleep(0.01)
+    durations = [2400 + 61 * i for i in range(17)]
+    body = {
+        "jobs": [{"id": f"ep03_sh{i:03d}", "duration": d} for i, d in enumerate(durations)],
+        "node_count": 3,
+        "method": "longest_first",
+    }
+    c = app.test_client()
+    r = c.post("/v1/plans", json=body)
+    doc = r.get_json()
+    assert r.status_code == 202 and doc["status"] == "done", doc
+    assert "Retry-After" not in r.headers
+    assert doc["result"]["makespan"] == lpt_makespan(durations, 3)
+    assert conn.llen(f"rq:queue:{settings.queue_name}") == 0
+    assert c.get(r.headers["Location"]).get_json() == doc
+
+
+def test_solving_in_the_request_can_be_turned_off(idle_app: Any, settings: Any) -> None:
+    """``solve_here_max_jobs = 0`` (``SPANWRIGHT_SOLVE_HERE_MAX_JOBS``, service/settings.py)
+    queues every plan, as RQ's documented ``Queue.enqueue`` does for any job: a worker
+    registered on the queue (RQ's set of its workers) does not make the API solve it."""
+    import dataclasses
+
+    from service.app import create_app
+
+    conn = idle_app.extensions["spanwright"].store.conn
+    conn.sadd(f"rq:workers:{settings.queue_name}", "rq:worker:standing-by")
+    app = create_app(dataclasses.replace(settings, solve_here_max_jobs=0), connection=conn)
+    body = {**BODY, "method": "longest_first"}
+    r = app.test_client().post("/v1/plans", json=body, headers={"Prefer": "wait=0.1"})
+    assert r.status_code == 202 and r.get_json()["status"] == "queued"
+    assert conn.llen(f"rq:queue:{settings.queue_name}") == 1

@@ -229,3 +229,28 @@ def test_finished_records_leave_the_depth_sets_at_once(keyed_app: Any, drain_que
     assert conn.zcard("swtrust:active:quillfernvale") == 3 and conn.zcard("swtrust:active") == 3
     drain_queue()
     assert conn.zcard("swtrust:active:quillfernvale") == 0 and conn.zcard("swtrust:active") == 0
+
+
+def test_a_plan_solved_in_the_request_is_counted_and_refused_by_its_store_script(
+    keyed_app: Any, trust_settings: Settings, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A small longest-first plan solved by the API (a worker registered, RQ's set of its
+    workers) may have its request counted by the script that stores it
+    (``limits.DEFER_MARGIN``; here 0, so every such count waits for the store): the
+    41st request of the 40-per-window tenant is still 429 with Retry-After (RFC 6585
+    section 4, RFC 9110 10.2.3) and stores nothing; a refused body (422) is counted too."""
+    from service import limits
+
+    monkeypatch.setattr(limits, "DEFER_MARGIN", 0)
+    conn = keyed_app.extensions["spanwright"].store.conn
+    conn.sadd(f"rq:workers:{trust_settings.queue_name}", "rq:worker:standing-by")
+    c = keyed_app.test_client()
+    who = bearer("quillfernvale")
+    assert c.get("/v1/plans", headers=who).status_code == 200  # the count is seen: 1
+    bad = {"jobs": [{"id": "sh010_f001", "duration": -1}], "node_count": 1}
+    assert c.post("/v1/plans", json=bad, headers=who).status_code == 422  # 2
+    answers = [c.post("/v1/plans", json=small_batch(), headers=who) for _ in range(38)]
+    assert [(r.status_code, r.get_json()["status"]) for r in answers] == [(202, "done")] * 38
+    assert_429(c.post("/v1/plans", json=small_batch(), headers=who), 60)
+    listed = c.get("/v1/plans?limit=200&tenant=quillfernvale", headers=bearer("ops"))
+    assert len(listed.get_json()["items"]) == 38
