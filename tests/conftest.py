@@ -17,6 +17,9 @@ from pathlib import Path
 import pytest
 
 sys.path.insert(0, str(Path(__file__).parent))
+# the project's own packages before tests/service (a folder without __init__.py), so
+# `pytest` finds them as `python -m pytest` does, whatever installed the project
+sys.path.insert(1, str(Path(__file__).parent.parent))
 
 
 @pytest.fixture(scope="session", autouse=True)
