@@ -48,6 +48,17 @@ def free_port() -> int:
         return port
 
 
+def stop(proc: subprocess.Popen[bytes], wait: float = 10) -> None:
+    """SIGTERM, then SIGKILL if the process has not exited within ``wait`` seconds (for an
+    RQ worker a second signal is its cold shutdown)."""
+    proc.terminate()
+    try:
+        proc.wait(wait)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+        proc.wait(wait)
+
+
 def require(*programs: str) -> None:
     """Skip (or, with SPANWRIGHT_REQUIRE_SERVERS=1, fail) unless every program is installed."""
     import pytest
@@ -103,12 +114,7 @@ class RedisServer:
 
     def stop(self) -> None:
         if self.proc is not None and self.proc.poll() is None:
-            self.proc.terminate()
-            try:
-                self.proc.wait(10)
-            except subprocess.TimeoutExpired:
-                self.proc.kill()
-                self.proc.wait()
+            stop(self.proc)
 
 
 class WorkerProcs:

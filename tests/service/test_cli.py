@@ -12,6 +12,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from live import stop
 
 from service.cli import main
 from service.demo import demo_files
@@ -106,8 +107,7 @@ def test_serve_says_listening_after_binding_and_gives_the_page_url() -> None:
             assert r.status == 200
             assert r.headers.get_content_type() == "text/html"
     finally:
-        proc.terminate()
-        proc.wait(10)
+        stop(proc)
 
 
 def test_worker_needs_redis(monkeypatch: pytest.MonkeyPatch, capsys: Any) -> None:
@@ -162,5 +162,4 @@ def test_serve_demo_shows_finished_plans(tmp_path: Path) -> None:
         assert len(doc["items"]) == len(demo_files())
         assert {i["status"] for i in doc["items"]} == {"done"}
     finally:
-        proc.terminate()
-        proc.wait(10)
+        stop(proc)

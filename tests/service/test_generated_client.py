@@ -31,6 +31,7 @@ from types import ModuleType
 from typing import Any
 
 import pytest
+from live import stop
 
 from tests.service.test_cli import _serve as serve_process
 
@@ -121,12 +122,7 @@ def base_url() -> Iterator[str]:
     try:
         yield _listening_url(proc, 60)
     finally:
-        proc.terminate()
-        try:
-            proc.wait(10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait(10)
+        stop(proc)
 
 
 @pytest.fixture

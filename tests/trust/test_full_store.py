@@ -20,7 +20,7 @@ from typing import Any
 
 import pytest
 import redis
-from live import ROOT, free_port
+from live import ROOT, free_port, stop
 
 from service.app import create_app
 from service.settings import Settings
@@ -51,8 +51,7 @@ def small_redis(tmp_path: Path) -> Iterator[redis.Redis]:
                 time.sleep(0.02)
         yield conn
     finally:
-        proc.terminate()
-        proc.wait(5)
+        stop(proc, 5)
 
 
 def _app(conn: redis.Redis, high_water: float) -> Any:
@@ -148,8 +147,7 @@ def test_worker_rides_out_a_redis_restart(tmp_path: Path) -> None:
         while client.get("/readyz").status_code != 200:  # the worker is up
             assert time.monotonic() < deadline, "the worker never became ready"
             time.sleep(0.2)
-        proc.terminate()
-        proc.wait(5)
+        stop(proc, 5)
         time.sleep(1.0)  # Redis is down for a second
         proc = _redis_proc(port, tmp_path)
         body = {"jobs": [{"id": "lh_gale_001", "duration": 40}], "node_count": 1}
@@ -161,11 +159,5 @@ def test_worker_rides_out_a_redis_restart(tmp_path: Path) -> None:
             assert time.monotonic() < deadline, "the worker was never counted again"
             time.sleep(0.5)
     finally:
-        worker.terminate()
-        try:
-            worker.wait(10)
-        except subprocess.TimeoutExpired:  # a second signal is RQ's cold shutdown
-            worker.kill()
-            worker.wait(5)
-        proc.terminate()
-        proc.wait(5)
+        stop(worker)
+        stop(proc, 5)

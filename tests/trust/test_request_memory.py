@@ -32,7 +32,7 @@ from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
-from live import ROOT, free_port, require
+from live import ROOT, free_port, require, stop
 
 pytestmark = pytest.mark.slow
 
@@ -109,12 +109,7 @@ def _api(redis_url: str, tmp: Path) -> Iterator[tuple[int, int]]:
             (worker,) = map(int, f.read().split())
         yield port, worker
     finally:
-        master.terminate()
-        try:
-            master.wait(15)
-        except subprocess.TimeoutExpired:
-            master.kill()
-            master.wait()
+        stop(master, 15)
 
 
 def _post(
