@@ -39,6 +39,10 @@ SIZING_BOUND_WORDS = {
     "search": "an exhaustive search that ruled out every smaller farm",
     "matching": "pairing the jobs over a third of the deadline, at most two to a node",
     "lp_farley": "the linear-programming bound over node fillings, checked in whole numbers",
+    "filler_waste": (
+        "the total work plus the time the short jobs cannot fill beside each long job"
+        " that shares its node with no other long job"
+    ),
 }
 
 #: what proved a rental's cost lower bound, to read after "proven by"

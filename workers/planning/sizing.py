@@ -4,14 +4,18 @@ With identical nodes this is one-dimensional bin packing: every node is a bin wh
 capacity is the deadline, every job an item of ``duration / speed`` seconds
 (``../shared/references.md`` section 5). The answer is an interval, proven from both
 sides: ``nodes_needed`` comes with a plan that meets the deadline (first fit decreasing,
-best fit decreasing, the LP's fractional packing rounded (:mod:`.sizing_round`) or its
-dive (:mod:`.sizing_lp`), the perfect packing search of
+best fit decreasing, on batches of long jobs and short fillers the long jobs first and
+their gaps filled exactly (``split_fill``, :mod:`.sizing_split`), the LP's fractional
+packing rounded (:mod:`.sizing_round`) or its dive (:mod:`.sizing_lp`), the perfect
+packing search of
 :mod:`workers.planning.perfect` at the lower bound, minimum bin slack, the local search
 or the exact search), and ``nodes_lower_bound`` with the rule that proves no plan with
 fewer nodes exists (``total_work`` = the work over the deadline rounded up;
 Martello-Toth ``L2``; the ``cardinality`` bound; on batches of few jobs per node
-``matching`` and the LP bound ``lp_farley`` of :mod:`.sizing_lp`; ``search`` when the
-exact search refuted a count). When they meet, the answer is proven optimal.
+``matching`` and the LP bound ``lp_farley`` of :mod:`.sizing_lp` (on batches of long
+jobs and short fillers also on the long jobs alone); ``filler_waste``, the gaps the
+fillers cannot fill; ``search`` when the exact search refuted a count). When they meet,
+the answer is proven optimal.
 
 Rounding, so that both sides stay proofs for the true (real) durations. Work is
 measured in ticks of ``resolution`` seconds of a speed-1 node; a node can do
@@ -73,6 +77,7 @@ from .sizing_fit import Fit as _Fit
 from .sizing_lp import LP_SHARE, lp_worth
 from .sizing_phase import State as _State
 from .sizing_phase import lp_phase as _lp_phase
+from .sizing_phase import split_phase as _split_phase
 from .sizing_result import (  # re-exported for their importers
     BILLING as BILLING,
 )
@@ -133,6 +138,9 @@ FILL_MIN_JOBS = 60
 #: beyond, LP_DENSE_SHARE before it (its refutations take milliseconds; no dives) and
 #: LP_SHARE of what is left after it (the perfect packing closes most of those batches)
 LP_FULL_JOBS_PER_NODE, LP_DENSE_SHARE = 2.9, 0.08
+#: the plan of long jobs and exact fills (:mod:`.sizing_split`) and the LP bound on the
+#: long jobs may use this share of the time left (the fills take about 20 us a node)
+SPLIT_SHARE = 0.7
 #: the exact search runs for lower bounds up to this many nodes (a node of it costs O(bins))
 EXACT_MAX_BINS = 1000
 #: best fit decreasing runs for batches up to this many jobs (its bin moves grow with n)
@@ -469,6 +477,8 @@ def _size(args: SizingArgs, budget: Budget, progress: SizingProgressHook | None)
     # with more jobs a node the perfect packing closes most batches: the LP gets a short
     # turn before it (its refutations take milliseconds) and the rest of its share after
     few = base.n <= LP_FULL_JOBS_PER_NODE * max(1, state.lower)
+    if state.lower < state.upper and time_budget > 0:  # long jobs and short fillers
+        _split_phase(state, (q_lo, q_hi, cap), fit, work.child(SPLIT_SHARE), notes, report)
     if lp_ok and state.lower < state.upper:
         share = LP_SHARE if few else LP_DENSE_SHARE
         lp_budget = work.child(share)

@@ -1,6 +1,14 @@
-"""The LP phase of deadline sizing (:mod:`.sizing`): the matching and LP bounds of
-:mod:`.sizing_lp`, and their plan at the bound (the LP's fractional packing rounded by
-:mod:`.sizing_round`, or its dive), taken into the interval a sizing keeps."""
+"""Phases of deadline sizing (:mod:`.sizing`) that move the interval it keeps.
+
+``lp_phase``     the matching and LP bounds of :mod:`.sizing_lp`, and their plan at the
+                 bound (the LP's fractional packing rounded by :mod:`.sizing_round`, or
+                 its dive);
+``split_phase``  on batches of long jobs and short fillers (:mod:`.sizing_split`): the
+                 filler-waste bound, the plan that packs the long jobs first and fills
+                 their gaps exactly, and the LP bound on the long jobs alone (on a farm
+                 night of renders and transcode chunks, the renders decide the optimum
+                 and their LP, without the chunks' rows, ends within the budget).
+"""
 
 from __future__ import annotations
 
@@ -13,11 +21,16 @@ import numpy.typing as npt
 
 from .budget import Budget
 from .sizing_fit import Fit
-from .sizing_lp import LPOutcome, lp_step
+from .sizing_lp import LPOutcome, lp_lower, lp_step
 from .sizing_round import round_packing
+from .sizing_split import filler_waste_bound, split_plan, split_point
 
 F64 = npt.NDArray[np.float64]
 I64 = npt.NDArray[np.int64]
+
+#: the long-jobs plan may use this share of the split phase's time (the rest is for the
+#: LP bound on the long jobs), which runs on at most LONG_LP_LENGTHS distinct lengths
+SPLIT_PLAN_SHARE, LONG_LP_LENGTHS = 0.35, 2048
 
 
 @dataclass
@@ -84,3 +97,85 @@ def lp_phase(
     take_lp(out, state, fit, notes)
     report()
     return lp_budget.cancelled
+
+
+def split_phase(
+    state: State,
+    batch: tuple[I64, I64, int],
+    fit: Fit,
+    budget: Budget,
+    notes: tuple[dict[str, int], dict[str, Any], dict[str, int]],
+    report: Callable[[], None],
+) -> None:
+    """On a batch of long jobs and short fillers (:mod:`.sizing_split`): the bound from
+    the waste the fillers cannot avoid, and the plan that packs the long jobs first and
+    fills their gaps exactly."""
+    q_lo, q_hi, cap = batch
+    split = split_point(q_lo, cap)
+    if split <= 0:
+        return
+    bounds, evidence, upper_bounds = notes
+    lower, waste = filler_waste_bound(q_lo, cap, split)
+    evidence["filler_waste"] = {"split_ticks": split, "waste_ticks": waste}
+    if lower > state.lower:
+        state.lower, state.source = lower, "filler_waste"
+        bounds["filler_waste"] = lower
+        report()
+    if state.lower >= state.upper or budget.expired():
+        return
+    left = budget.remaining()
+    out = split_plan(q_hi, cap, split, SPLIT_PLAN_SHARE * left, left)
+    if out is None:  # out of time (every job fits a node: checked before)
+        return
+    bin_of, used, start = fit.settle(*out)
+    upper_bounds["split_fill"] = used
+    if used < state.upper:
+        state.upper, state.method = used, "split_fill"
+        state.bin_of, state.start = bin_of, start
+        report()
+    if state.lower < state.upper and not budget.expired():
+        _long_lp(state, (q_lo, cap, split), out[0], budget, notes)
+        report()
+
+
+def _long_lp(
+    state: State,
+    batch: tuple[I64, int, int],
+    plan: npt.NDArray[np.int32],
+    budget: Budget,
+    notes: tuple[dict[str, int], dict[str, Any], dict[str, int]],
+) -> None:
+    """The LP bound (:func:`.sizing_lp.lp_lower`, Farley's certificate checked in
+    integers) on the long jobs alone, when the plan needs more nodes for them than the
+    bound proves: the long jobs that share a node with no other long job (it and the
+    shortest other one exceed the capacity) need a node each, and the LP bounds the
+    nodes of the others; dropping the short jobs only lowers the optimum, so their sum
+    bounds the batch. The plan's nodes (``plan``, a node per job) seed its columns."""
+    q_lo, cap, split = batch
+    longs = np.flatnonzero(q_lo >= split)
+    if longs.size < 2 or np.unique(plan[longs]).size <= state.lower:
+        return
+    ql = q_lo[longs]
+    two = np.partition(ql, 1)[:2]
+    alone = ql + np.where(ql == two[0], two[1], two[0]) > cap
+    rest = longs[~alone]
+    single = int(alone.sum())
+    if np.unique(q_lo[rest]).size > LONG_LP_LENGTHS:
+        return
+    out = LPOutcome(0)
+    if rest.size:
+        out = lp_lower(
+            q_lo[rest],
+            cap,
+            state.lower - single,
+            state.upper - single,
+            budget.remaining(),
+            budget.expired,
+            exact_lengths=LONG_LP_LENGTHS,
+            packing=plan[rest],
+        )
+    bounds, evidence, _ = notes
+    evidence["lp_long_jobs"] = {"alone": single, "others": int(rest.size), **out.evidence}
+    if out.lower + single > state.lower:
+        state.lower, state.source = out.lower + single, "lp_farley"
+        bounds["lp_farley"] = state.lower
