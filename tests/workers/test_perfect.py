@@ -135,8 +135,8 @@ def test_compiled_and_pure_python_agree(seed: int) -> None:
     rng = np.random.default_rng(seed)
     k, cap = 20, int(rng.integers(900, 1100))
     q = np.sort(triplets(k, cap, rng))[::-1].copy()
-    fast = exact_fill(q, cap, k, 0, 100, seed)
-    slow = exact_fill.py_func(q, cap, k, 0, 100, seed)
+    fast = exact_fill(q, cap, k, 0, 100, seed, 10**9)
+    slow = exact_fill.py_func(q, cap, k, 0, 100, seed, 10**9)
     assert fast[1] == slow[1] and np.array_equal(fast[0], slow[0])
     walk_fast = walk_start(q, cap, k, fast[0], seed)
     walk_slow = walk_start.py_func(q, cap, k, slow[0], seed)
@@ -149,3 +149,19 @@ def test_compiled_and_pure_python_agree(seed: int) -> None:
     assert walk_fast[-1][S_MOVES] > 0
     if walk_fast[-1][S_POOL] == 0:
         assert_packing(q, walk_fast[8].astype(np.int64), k, cap)
+
+
+def test_fill_stops_when_its_work_is_spent() -> None:
+    """A fill whose step budget runs out forms no further bin: every bin it formed is within
+    the capacity (checked by summing, as in ``assert_packing``) and the items it did not
+    place wait in the pool (-1); with room to work it places them all. Falkenauer triplets
+    (Falkenauer 1996: every optimal bin holds three items and is full)."""
+    rng = np.random.default_rng(7)
+    k, cap = 60, 1000
+    q = np.sort(triplets(k, cap, rng))[::-1].copy()
+    short, bins_short, _ = exact_fill(q, cap, k, 0, 100, 0, 50)
+    full, bins_full, _ = exact_fill(q, cap, k, 0, 10_000, 0, 10**9)
+    assert bins_short < bins_full
+    assert int((short < 0).sum()) > int((full < 0).sum())
+    loads = np.bincount(short[short >= 0], weights=q[short >= 0], minlength=bins_short)
+    assert loads.size == bins_short and bool((loads <= cap).all())

@@ -52,6 +52,10 @@ I64 = npt.NDArray[np.int64]
 
 #: exact_fill: search nodes per bin (fewer when the bins are many: FILL_WORK in all)
 FILL_NODES, FILL_WORK = 1000, 40_000_000
+#: exact_fill: at most FILL_SHARE of the time left, at FILL_STEPS_PER_SECOND for the
+#: first fill (a low estimate of the kernel's steps per second on one core: a step's cost
+#: depends on the batch) and at the rate the fills so far ran for the next ones
+FILL_SHARE, FILL_STEPS_PER_SECOND, FILL_RATE_STEPS = 0.3, 50_000_000, 1_000_000
 #: perfect_fill: moves of the first attempt (plus MOVES_PER_ITEM per item); each further
 #: attempt (the next seed) gets MOVES_GROWTH times more
 MOVES_FIRST, MOVES_PER_ITEM, MOVES_GROWTH = 10_000, 1.0, 1.3
@@ -64,6 +68,26 @@ MOVES_CAP, MOVES_CAP_PER_ITEM = 20_000, 500
 #: perfect_fill: moves per call of the walk (the first call, then doubling to the last),
 #: so that the clock is read often
 MOVES_SLICE_FIRST, MOVES_SLICE = 250, 4_000
+
+
+@dataclass(slots=True)
+class _Fills:
+    """Exact fills that end in time: each may spend a share of the time left to ``t_end``,
+    counted in the kernel's steps (a kernel cannot read the clock) at the rate the fills
+    so far ran (FILL_STEPS_PER_SECOND until they have run long enough to tell)."""
+
+    t_end: float
+    steps: int = 0
+    seconds: float = 0.0
+
+    def fill(self, qs: I64, cap: int, k: int, slack: int, nodes: int, seed: int) -> I64:
+        now = time.perf_counter()
+        rate = self.steps / self.seconds if self.steps >= FILL_RATE_STEPS else FILL_STEPS_PER_SECOND
+        limit = max(1000, int(max(0.0, self.t_end - now) * FILL_SHARE * rate))
+        bin_of, _, used = exact_fill(qs, cap, k, slack, nodes, seed, limit)
+        self.seconds += time.perf_counter() - now
+        self.steps += used
+        return bin_of
 
 
 @dataclass(frozen=True, slots=True)
@@ -131,15 +155,16 @@ def perfect_fill(
     moves_cap = MOVES_CAP + MOVES_CAP_PER_ITEM * n
     hopeless = False
     seed = 0
+    fills = _Fills(t_end)
     while True:
         attempts += 1
-        bin_of, _ = exact_fill(qs, cap, k, slack, nodes, seed)
+        bin_of = fills.fill(qs, cap, k, slack, nodes, seed)
         bins, cand = _complete(qs, bin_of, k, cap)
         if seed == 0 and bins > k:
             # the first attempt also tries the fill without random starts (each first
             # completion the longest, as minimum bin slack does) and walks on from the
             # smaller pool: it wins on some mixes, the random one on others
-            plain, _ = exact_fill(qs, cap, k, slack, nodes, -1)
+            plain = fills.fill(qs, cap, k, slack, nodes, -1)
             bins2, cand2 = _complete(qs, plain, k, cap)
             if bins2 <= k or int((plain < 0).sum()) < int((bin_of < 0).sum()):
                 bin_of, bins, cand = plain, bins2, cand2
@@ -194,6 +219,6 @@ def warm_up() -> None:
     from .sizing_lp import warm_up as lp_warm_up
 
     q = np.array([5, 4, 3, 3, 2, 1], dtype=np.int64)
-    bin_of, _ = exact_fill(q, 6, 3, 0, 10, 0)
+    bin_of, _, _ = exact_fill(q, 6, 3, 0, 10, 0, 1000)
     eject_walk(q, 6, 0, 10, walk_start(q, 6, 3, bin_of, 0))
     lp_warm_up()

@@ -25,18 +25,22 @@ I64 = npt.NDArray[np.int64]
 
 
 @jit
-def exact_fill(q: I64, cap: int, k: int, slack: int, node_limit: int, seed: int) -> tuple[I64, int]:
+def exact_fill(
+    q: I64, cap: int, k: int, slack: int, node_limit: int, seed: int, step_limit: int
+) -> tuple[I64, int, int]:
     """Bins filled one at a time, each within the slack still allowed (see the module).
 
     ``q``: whole ticks, longest first, all in 1 .. cap. Forms at most ``k`` bins; the
     total waste of the bins formed stays within ``slack``. A negative ``seed`` makes no
-    random starts (every first completion tried is the longest). Returns (bin of each
-    item, -1 for the pool; bins formed).
+    random starts (every first completion tried is the longest). ``step_limit`` caps the
+    work in all (search nodes and the lengths scanned for them; a kernel cannot read the
+    clock): once spent, no further bin is formed and the items left wait in the pool.
+    Returns (bin of each item, -1 for the pool; bins formed; steps spent).
     """
     n = q.shape[0]
     bin_of = np.full(n, -1, dtype=np.int64)
     if n == 0:
-        return bin_of, 0
+        return bin_of, 0, 0
     vals, cnt0, first, _ = distinct_lengths(q)
     d = vals.shape[0]
     cnt = cnt0.copy()
@@ -56,7 +60,8 @@ def exact_fill(q: I64, cap: int, k: int, slack: int, node_limit: int, seed: int)
     bins = 0
     waste = 0
     bottom = d - 1
-    while left > 0 and bins < k:
+    steps = 0
+    while left > 0 and bins < k and steps < step_limit:
         top = _alive_from(parent, 0)
         a = vals[top]
         cnt[top] -= 1
@@ -109,6 +114,7 @@ def exact_fill(q: I64, cap: int, k: int, slack: int, node_limit: int, seed: int)
             while True:
                 end = d if phase[depth] == 0 else (start[depth] if start[depth] > beg[depth] else d)
                 while j < end:
+                    steps += 1
                     j = _alive_from(parent, j)
                     if j >= end:
                         break
@@ -120,8 +126,9 @@ def exact_fill(q: I64, cap: int, k: int, slack: int, node_limit: int, seed: int)
                     break
                 phase[depth] = 1
                 j = beg[depth]
-            if found >= 0 and nodes < node_limit and depth + 1 < deep:
+            if found >= 0 and nodes < node_limit and steps < step_limit and depth + 1 < deep:
                 nodes += 1
+                steps += 1
                 cur[depth] = found + 1
                 path[depth] = found
                 inbin[found] += 1
@@ -129,7 +136,7 @@ def exact_fill(q: I64, cap: int, k: int, slack: int, node_limit: int, seed: int)
                 depth += 1
                 cur[depth] = -1
                 continue
-            if depth == 0 or nodes >= node_limit:
+            if depth == 0 or nodes >= node_limit or steps >= step_limit:
                 break
             depth -= 1
             inbin[path[depth]] -= 1
@@ -148,4 +155,4 @@ def exact_fill(q: I64, cap: int, k: int, slack: int, node_limit: int, seed: int)
             if cnt[v] == 0:
                 parent[v] = v + 1
         bins += 1
-    return bin_of, bins
+    return bin_of, bins, steps
