@@ -121,6 +121,12 @@ def main() -> None:
     ap.add_argument(
         "--ratios", type=float, nargs="+", help=f"jobs per node to aim at (default {RATIOS})"
     )
+    ap.add_argument(
+        "--resolution",
+        type=float,
+        default=1.0,
+        help="the batches' resolution (s); a fine one means many ticks a node",
+    )
     args = ap.parse_args()
     sizes = (1_000, 10_000) if args.quick else (1_000, 10_000, 100_000)
     if args.sizes:
@@ -138,7 +144,13 @@ def main() -> None:
                     # the seed of ratio 2 is 1000 n + 20 + s, as before ratios 1.5 and 2.5
                     d, deadline = batch(mix, n, ratio, round(1000 * n + 10 * ratio) + s)
                     t0 = time.perf_counter()
-                    r = size(d, deadline, time_budget=args.budget, max_nodes=10**6)
+                    r = size(
+                        d,
+                        deadline,
+                        time_budget=args.budget,
+                        resolution=args.resolution,
+                        max_nodes=10**6,
+                    )
                     wall = time.perf_counter() - t0
                     res.append((r, wall))
                     first[n].append(r.first_answer_seconds)

@@ -22,7 +22,7 @@ from hypothesis import strategies as st
 from workers.planning import Instance, Node
 from workers.planning.bounds import lower_bounds, simple_bounds
 from workers.planning.farm_bounds import eligibility, farm_lower_bounds
-from workers.planning.rational import array_sum, exact_dot
+from workers.planning.rational import array_sum, exact_dot, float_sums_exact
 
 #: tick counts stay well inside what an instance may have (2**53)
 TICK_ROOM = 2**50
@@ -109,6 +109,45 @@ def test_array_sum_and_exact_dot_are_exact(a: list[float], b: list[float]) -> No
     y = np.array(b[:k], dtype=np.float64)
     want = sum((Fraction(u) * Fraction(v) for u, v in zip(a[:k], b[:k], strict=True)), Fraction(0))
     assert exact_dot(x[:k], y) == want
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    st.lists(
+        st.one_of(
+            st.integers(0, 2**40).map(float),  # whole seconds
+            st.integers(0, 2**20).map(lambda k: k / 64),  # a 1/64 s grid
+            st.floats(0, 1e12, allow_nan=False, allow_infinity=False, allow_subnormal=True),
+        ),
+        max_size=30,
+    ),
+    st.randoms(use_true_random=False),
+)
+def test_float_sums_exact_means_every_float_sum_is_exact(a: list[float], rnd: object) -> None:
+    """When float_sums_exact says so, every prefix of the values summed in floating point,
+    in a random order, equals its sum in Python Fractions (IEEE 754 double addition)."""
+    x = np.array(a, dtype=np.float64)
+    order = list(range(len(a)))
+    rnd.shuffle(order)  # type: ignore[attr-defined]
+    claim = float_sums_exact(x)
+    run, exact = 0.0, Fraction(0)
+    all_exact = True
+    for i in order:
+        run += a[i]
+        exact += Fraction(a[i])
+        all_exact = all_exact and Fraction(run) == exact
+    assert all_exact or not claim
+
+
+def test_float_sums_exact_on_known_cases() -> None:
+    """Worked by hand: whole seconds sum exactly; 1 + 2**-60 does not fit a double's 53
+    bits; 2**52 + 2**52 + 1 needs 54 bits; the empty batch and zeros are trivially exact."""
+    assert float_sums_exact(np.array([30.0, 600.0, 5400.0, 0.5]))
+    assert not float_sums_exact(np.array([1.0, 2.0**-60]))
+    assert not float_sums_exact(np.array([2.0**52, 2.0**52, 1.0]))
+    assert float_sums_exact(np.array([2.0**52, 1.0]))
+    assert float_sums_exact(np.array([], dtype=np.float64))
+    assert float_sums_exact(np.zeros(3))
 
 
 # -- identical nodes ----------------------------------------------------------------------

@@ -19,7 +19,7 @@ import numpy as np
 import numpy.typing as npt
 
 from .errors import InvalidInstance, Issue, Path
-from .rational import MAX_TICKS, array_sum, decimal_up
+from .rational import MAX_TICKS, array_sum, decimal_up, floor_ticks
 
 #: longest id we accept for a job or node (characters)
 MAX_ID_LENGTH = 200
@@ -27,7 +27,7 @@ MAX_ID_LENGTH = 200
 FloatArray = npt.NDArray[np.float64]
 
 #: the cached views of an Instance that depend on its jobs alone (Instance.with_nodes)
-JOB_CACHES = ("total", "order_longest_first", "sorted_desc", "total_exact")
+JOB_CACHES = ("total", "order_longest_first", "sorted_desc", "total_exact", "sorted_desc_ticks")
 
 #: what no id, tag or group may hold: control characters (C0, DEL, C1), unpaired UTF-16
 #: surrogates (not text: a page cannot even encode them) and the bidirectional controls of
@@ -145,6 +145,12 @@ class Instance:
     def total_exact(self) -> Fraction:
         """Total work in seconds, exactly (no rounding)."""
         return array_sum(self.durations)
+
+    @cached_property
+    def sorted_desc_ticks(self) -> npt.NDArray[np.int64]:
+        """:attr:`sorted_desc` in whole ticks of ``resolution``, rounded down exactly; the
+        caller keeps the total within ``rational.MAX_TICKS`` ticks."""
+        return floor_ticks(self.sorted_desc, self.resolution)
 
     def with_nodes(self, nodes: Sequence[Node]) -> Instance:
         """The same jobs on ``nodes``, keeping what was derived from the jobs alone (the

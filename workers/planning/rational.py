@@ -149,6 +149,29 @@ def array_sum(values: F64) -> Fraction:
         total += Fraction(float(q.sum()))
 
 
+def float_sums_exact(values: F64) -> bool:
+    """Whether every sum of any of ``values`` (finite, non-negative), added in any order,
+    is exact in floating point.
+
+    True when all are whole multiples of one power of two ``u`` and their total is below
+    ``2**53 u``: every partial sum is then a whole number of ``u`` below ``2**53``, which a
+    double holds exactly (durations given in whole or half seconds, for example).
+    """
+    v = np.asarray(values, dtype=np.float64)
+    v = v[v != 0.0]
+    if v.size == 0:
+        return True
+    mant, ex = np.frexp(v)  # v = mant * 2**ex, 0.5 <= mant < 1: mant * 2**53 is whole
+    whole = (mant * 2.0**53).astype(np.int64)
+    lowest = whole & -whole  # its lowest set bit, a power of two
+    e = ex.astype(np.int64) - 53 + (np.frexp(lowest.astype(np.float64))[1] - 1)
+    unit = int(e.min())  # every value is a whole multiple of 2**unit
+    n = int(v.size)
+    # the float total is within n units in the last place of the exact one
+    total = float(v.sum()) * (1.0 + n * 2.0**-52)
+    return total < math.ldexp(1.0, 53 + unit)
+
+
 def exact_dot(a: F64, b: F64) -> Fraction:
     """The exact value of ``sum(a * b)``, vectorised.
 

@@ -14,7 +14,7 @@ import numpy as np
 import numpy.typing as npt
 
 from .binpacking import bin_starts
-from .rational import array_sum, down, up
+from .rational import array_sum, down, float_sums_exact, up
 
 F64 = npt.NDArray[np.float64]
 I64 = npt.NDArray[np.int64]
@@ -42,8 +42,10 @@ class Fit:
     A node meets the deadline when its work ``sum(duration)`` is at most
     ``deadline * speed`` in exact arithmetic and its floating-point times, back to back
     in the order of ``order``, end by the deadline. The exact test is settled cheaply
-    where it can be: by whole ticks rounded up (at most the capacity), or by the float
-    sum with room for its round-off; only the nodes left in doubt are summed exactly.
+    where it can be: by whole ticks rounded up (at most the capacity), by the float sum
+    when every sum of the durations is exact in floating point (whole seconds, say), or
+    by the float sum with room for its round-off; only the nodes left in doubt are summed
+    exactly.
     """
 
     def __init__(
@@ -59,6 +61,7 @@ class Fit:
         self.d, self.times, self.deadline = durations, times, deadline
         self.limit = Fraction(deadline) * Fraction(speed)
         self.limit_down, self.limit_up = down(self.limit), up(self.limit)
+        self.sums_exact = float_sums_exact(durations)
         self.q_hi = q_hi.astype(np.float64)  # whole numbers below 2**53: sums stay exact
         self.cap, self.order = cap, order
         self.rank = np.empty(order.size, dtype=np.int64)
@@ -70,6 +73,8 @@ class Fit:
         if ok.all():
             return ok
         load = np.bincount(bin_of, weights=self.d, minlength=m)[:m]
+        if self.sums_exact:  # each load is exact: a float at most the limit is at most
+            return load <= self.limit_down  # the largest float at most the limit
         count = np.bincount(bin_of, minlength=m)[:m]
         # a running sum of c non-negative terms is within (c - 1) units in the last
         # place of its exact value (relative); allow eight times that, and do not trust

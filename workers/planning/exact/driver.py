@@ -232,7 +232,7 @@ def solve_exact(
         }
     method = "exact"
 
-    q_all = bounds.to_ticks(inst.sorted_desc, res)
+    q_all = inst.sorted_desc_ticks.copy()  # the search may reorder its own copy
     npos = int(np.count_nonzero(q_all > 0))
     q = np.ascontiguousarray(q_all[:npos])
     pos_jobs = inst.order_longest_first[:npos]
