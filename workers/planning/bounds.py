@@ -251,8 +251,8 @@ def lower_bounds(inst: Instance, upper: float | None = None) -> Certificate:
         evidence["pigeonhole_k"] = {"k": k, "jobs_considered": k * m + 1}
     res = inst.resolution
     tick = Fraction(res)
-    if total <= MAX_TICKS * tick:  # every tick count below, and their sum, stays exact
-        q = inst.sorted_desc_ticks
+    q = inst.sorted_desc_ticks
+    if q is not None:  # every tick count, and their sum, stays exact
         low = tick_bounds(q, m)
         tick_mean = ticks_to_seconds_down(ceil_div(int(q.sum()), m), res)
         bounds["mean_load"] = max(bounds["mean_load"], tick_mean)

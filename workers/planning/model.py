@@ -27,7 +27,9 @@ MAX_ID_LENGTH = 200
 FloatArray = npt.NDArray[np.float64]
 
 #: the cached views of an Instance that depend on its jobs alone (Instance.with_nodes)
-JOB_CACHES = ("total", "order_longest_first", "sorted_desc", "total_exact", "sorted_desc_ticks")
+JOB_CACHES = ("total", "order_longest_first", "sorted_desc", "total_exact")
+#: ... and those it passes on only once they have been computed
+LAZY_JOB_CACHES = ("sorted_desc_ticks",)
 
 #: what no id, tag or group may hold: control characters (C0, DEL, C1), unpaired UTF-16
 #: surrogates (not text: a page cannot even encode them) and the bidirectional controls of
@@ -147,9 +149,12 @@ class Instance:
         return array_sum(self.durations)
 
     @cached_property
-    def sorted_desc_ticks(self) -> npt.NDArray[np.int64]:
-        """:attr:`sorted_desc` in whole ticks of ``resolution``, rounded down exactly; the
-        caller keeps the total within ``rational.MAX_TICKS`` ticks."""
+    def sorted_desc_ticks(self) -> npt.NDArray[np.int64] | None:
+        """:attr:`sorted_desc` in whole ticks of ``resolution``, rounded down exactly; None
+        when the total work is past ``rational.MAX_TICKS`` ticks (a tick count there, or
+        a sum of them, need not be exact)."""
+        if self.total_exact > MAX_TICKS * Fraction(self.resolution):
+            return None
         return floor_ticks(self.sorted_desc, self.resolution)
 
     def with_nodes(self, nodes: Sequence[Node]) -> Instance:
@@ -159,6 +164,9 @@ class Instance:
         out = dataclasses.replace(self, nodes=tuple(nodes))
         for key in JOB_CACHES:
             out.__dict__[key] = getattr(self, key)  # computed once, on self
+        for key in LAZY_JOB_CACHES:
+            if key in self.__dict__:
+                out.__dict__[key] = self.__dict__[key]
         return out
 
     # -- validation -------------------------------------------------------------------

@@ -630,6 +630,7 @@ def _curve(
     jobs_only = Instance(  # the batch as the bounds see it (no tags, no deadline)
         job_ids=base.job_ids, durations=base.durations, nodes=(plain,), resolution=base.resolution
     )
+    jobs_only.sorted_desc_ticks  # noqa: B018 (computed once here, shared by every count)
     rows: list[CurveRow] = []
     best, best_meets = math.inf, False
     for k in sorted(counts):

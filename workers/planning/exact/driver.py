@@ -232,7 +232,8 @@ def solve_exact(
         }
     method = "exact"
 
-    q_all = inst.sorted_desc_ticks.copy()  # the search may reorder its own copy
+    cached = inst.sorted_desc_ticks  # None past 2**53 ticks in all: each job's still fits
+    q_all = bounds.to_ticks(inst.sorted_desc, res) if cached is None else cached.copy()
     npos = int(np.count_nonzero(q_all > 0))
     q = np.ascontiguousarray(q_all[:npos])
     pos_jobs = inst.order_longest_first[:npos]
