@@ -16,6 +16,7 @@ from scipy.optimize import Bounds, LinearConstraint, milp
 from service.cli import main as cli_main
 from service.problems import json_pointer
 from tests.bodies import size_body
+from tests.workers.test_binpacking import brute_force_bins
 from workers.planning.errors import Infeasible, InvalidInstance
 from workers.planning.model import Node
 from workers.planning.sizing import (
@@ -350,3 +351,24 @@ def test_cli_size(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     f.write_text(json.dumps(body))
     assert cli_main(["size", str(f)]) == 2
     assert "ep5_sh011" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_whole_second_jobs_at_a_fine_resolution_are_sized_exactly(seed: int) -> None:
+    """Whole-second durations that fill nodes to the second, at a resolution of 0.0136 s
+    (which no whole second is a multiple of): the answer is the fewest bins found by
+    brute force over subsets in integers (tests/workers/test_binpacking.py), proven, as at
+    a resolution of 1 s. Planted: triplets summing to the deadline exactly (Falkenauer
+    1996), shuffled."""
+    rng = np.random.default_rng(seed)
+    cap = int(rng.integers(200, 400))
+    items: list[int] = []
+    for _ in range(4):
+        a = int(rng.integers(cap // 4, cap // 2))
+        b = int(rng.integers(cap // 4, cap - a - cap // 4))
+        items += [a, b, cap - a - b]
+    rng.shuffle(items)
+    want = brute_force_bins(items, cap)
+    got = size(np.array(items, dtype=np.float64), float(cap), time_budget=2.0, resolution=0.0136)
+    assert got.nodes_needed == want
+    assert got.proven_optimal

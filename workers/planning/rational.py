@@ -149,6 +149,20 @@ def array_sum(values: F64) -> Fraction:
         total += Fraction(float(q.sum()))
 
 
+def dyadic_unit(values: F64) -> int | None:
+    """The largest ``e`` such that every value (finite, non-negative) is a whole multiple
+    of ``2**e``; None when all are zero. Whole seconds give ``e >= 0``."""
+    v = np.asarray(values, dtype=np.float64)
+    v = v[v != 0.0]
+    if v.size == 0:
+        return None
+    mant, ex = np.frexp(v)  # v = mant * 2**ex, 0.5 <= mant < 1: mant * 2**53 is whole
+    whole = (mant * 2.0**53).astype(np.int64)
+    lowest = whole & -whole  # its lowest set bit, a power of two
+    e = ex.astype(np.int64) - 53 + (np.frexp(lowest.astype(np.float64))[1] - 1)
+    return int(e.min())
+
+
 def float_sums_exact(values: F64) -> bool:
     """Whether every sum of any of ``values`` (finite, non-negative), added in any order,
     is exact in floating point.
@@ -159,13 +173,9 @@ def float_sums_exact(values: F64) -> bool:
     """
     v = np.asarray(values, dtype=np.float64)
     v = v[v != 0.0]
-    if v.size == 0:
+    unit = dyadic_unit(v)
+    if unit is None:
         return True
-    mant, ex = np.frexp(v)  # v = mant * 2**ex, 0.5 <= mant < 1: mant * 2**53 is whole
-    whole = (mant * 2.0**53).astype(np.int64)
-    lowest = whole & -whole  # its lowest set bit, a power of two
-    e = ex.astype(np.int64) - 53 + (np.frexp(lowest.astype(np.float64))[1] - 1)
-    unit = int(e.min())  # every value is a whole multiple of 2**unit
     n = int(v.size)
     # the float total is within n units in the last place of the exact one
     total = float(v.sum()) * (1.0 + n * 2.0**-52)

@@ -35,6 +35,11 @@ measured in ticks of ``resolution`` seconds of a speed-1 node; a node can do
   built in floating point that meets the deadline only up to round-off is repaired
   (a few jobs moved, a node added if need be) before its node count is claimed.
 
+When every duration is a whole multiple of a power of two coarser than ``resolution``
+(whole seconds, say), the ticks are of that grid instead (``sizing_ticks.solver_grid``):
+each job is then a whole number of ticks, rounded neither way, and ``C`` loses nothing,
+so the packing in ticks is exactly the packing in seconds.
+
 Ticks are int64 and exact as floats only up to ``rational.MAX_TICKS``: a capacity or a
 total work past it is refused (``/resolution``), naming the finest resolution that works.
 
@@ -107,6 +112,7 @@ from .sizing_result import (
 )
 from .sizing_ticks import _tick_limit as _tick_limit
 from .sizing_ticks import capacity_ticks as capacity_ticks
+from .sizing_ticks import solver_grid
 from .sizing_ticks import work_ticks as work_ticks
 
 #: billing granularities and their unit in seconds
@@ -183,8 +189,9 @@ class SizingArgs:
         too_fine = _tick_limit(base.durations, limit, base.resolution)
         if too_fine:
             raise InvalidInstance("the resolution is too fine for these times", too_fine)
-        q_lo, _ = ticks(base.durations, base.resolution)
-        cap = capacity_ticks(deadline, node.speed, base.resolution)
+        grid = solver_grid(base.durations, base.resolution)
+        q_lo, _ = ticks(base.durations, grid)
+        cap = capacity_ticks(deadline, node.speed, grid)
         lower, source, _, _ = _lower_bound(q_lo, cap, array_sum(base.durations), limit)
         _check_lower(lower, source, self.max_nodes)
 
@@ -436,8 +443,9 @@ def _size(args: SizingArgs, budget: Budget, progress: SizingProgressHook | None)
         raise InvalidInstance("the resolution is too fine for these times", too_fine)
     order = np.argsort(-times, kind="stable")
     sizes = times[order]
-    q_lo, q_hi = ticks(base.durations, base.resolution)
-    cap = capacity_ticks(deadline, speed, base.resolution)
+    grid = solver_grid(base.durations, base.resolution)
+    q_lo, q_hi = ticks(base.durations, grid)
+    cap = capacity_ticks(deadline, speed, grid)
     fit = _Fit(base.durations, times, speed, deadline, q_hi, cap, order)
 
     def plan_from(sorted_bins: npt.NDArray[np.int32], used: int) -> tuple[Any, int, F64]:
@@ -449,6 +457,7 @@ def _size(args: SizingArgs, budget: Budget, progress: SizingProgressHook | None)
     b_ffd, _, n_ffd = first_fit_decreasing(sizes, deadline)
     bin_of, n_ffd, start = plan_from(b_ffd, int(n_ffd))
     lower, source, bounds, evidence = _lower_bound(q_lo, cap, array_sum(base.durations), limit)
+    evidence["tick_seconds"] = grid  # what every *_ticks figure below counts
     state = _State(lower, source, n_ffd, "ffd", bin_of, start)
     upper_bounds = {"ffd": n_ffd}
     first_answer = budget.elapsed()

@@ -14,7 +14,7 @@ import numpy as np
 import numpy.typing as npt
 
 from .errors import Issue
-from .rational import MAX_TICKS, array_sum, decimal_up, ticks
+from .rational import MAX_TICKS, array_sum, decimal_up, dyadic_unit, ticks
 
 F64 = npt.NDArray[np.float64]
 
@@ -27,6 +27,20 @@ work_ticks = ticks
 def capacity_ticks(deadline: float, speed: float, resolution: float) -> int:
     """floor(deadline * speed / resolution), exactly."""
     return math.floor(Fraction(deadline) * Fraction(speed) / Fraction(resolution))
+
+
+def solver_grid(durations: F64, resolution: float) -> float:
+    """The tick the sizing searches count in: ``resolution``, or a coarser power of two
+    that every duration is a whole multiple of (whole seconds, say, against a resolution
+    of 0.0136 s). On that grid each duration is a whole number of ticks, exactly, and a
+    node's capacity ``floor(deadline * speed / grid)`` loses nothing: a set of jobs fits
+    a node in seconds exactly when its ticks fit in the capacity, so bounds and packings
+    in ticks are the bounds and packings of the real jobs (no rounding either way)."""
+    unit = dyadic_unit(durations)
+    if unit is None:
+        return resolution
+    grid = math.ldexp(1.0, unit)
+    return grid if grid > resolution else resolution
 
 
 def _tick_limit(durations: F64, limit: Fraction, resolution: float) -> list[Issue]:
