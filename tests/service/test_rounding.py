@@ -51,6 +51,18 @@ def test_directed_rounding_is_tight_and_safe(a: float, b: float, d: int) -> None
     assert grid_neighbour(hi, d, -1) < x
 
 
+@settings(max_examples=400, deadline=None)
+@given(st.floats(allow_nan=False, allow_infinity=False))
+def test_whole_second_floor_of_a_double(x: float) -> None:
+    """On the grid of whole seconds a double's floor is the largest integer not above it
+    (checked in exact rational arithmetic, ``fractions.Fraction``), written as a double:
+    ``float(floor(x))`` is exact below 2**53; never ``-0.0``."""
+    lo = floor_to(x, 0)
+    assert Fraction(lo).denominator == 1 and Fraction(lo) <= Fraction(x)
+    assert Fraction(float(Fraction(lo) + 1)) > Fraction(x) or abs(x) >= 2.0**52
+    assert repr(lo) != "-0.0"
+
+
 def test_worked_examples() -> None:
     """By hand with exact doubles: 118.8 + 0.1 is 118.89999999999999716... < 118.9, so at
     one decimal a bound is 118.8 and a plan time 118.9; 2.2 + 1.1 is

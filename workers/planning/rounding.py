@@ -58,6 +58,8 @@ def _scale(x: float | Fraction, d: int) -> Fraction | None:
 def floor_to(x: float | Fraction, d: int) -> float:
     """The largest number ``k / 10**d`` whose double is not above ``x`` (exact), as that
     double; ``x`` rounded down to a double when the grid is finer than doubles there."""
+    if d == 0 and type(x) is float and -_BIG < x < _BIG:  # whole seconds: floor is exact
+        return float(math.floor(x))  # (below 2**52 every integer is a double)
     q = _scale(x, d)
     if q is None:
         return rational.down(Fraction(x))
