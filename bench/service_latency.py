@@ -170,11 +170,21 @@ class Stack:
         raise RuntimeError(f"port {port} did not open")
 
     def cpu(self) -> dict[str, float]:
-        """CPU seconds used so far by redis-server, the API and the workers (together)."""
+        """CPU seconds used so far by redis-server, the API and the workers (together),
+        and by each of the API's worker processes apart (``api_proc0``, ...: gunicorn's
+        children by pid; a keep-alive client stays with the process that took it)."""
+        api = self.procs[1].pid
+        kids: list[int] = []
+        for task in Path(f"/proc/{api}/task").glob("*"):
+            try:
+                kids += [int(c) for c in (task / "children").read_text().split()]
+            except OSError:
+                continue
         return {
             "redis": cpu_seconds(self.procs[0].pid),
-            "api": tree_cpu_seconds(self.procs[1].pid),
+            "api": tree_cpu_seconds(api),
             "workers": sum(cpu_seconds(w.pid) for w in self.workers),
+            **{f"api_proc{i}": cpu_seconds(k) for i, k in enumerate(sorted(kids))},
         }
 
     def set_workers(self, n: int) -> None:
@@ -301,7 +311,7 @@ def latency(
     times.sort()
     total = len(times) + 3 * clients
     return {
-        **{f"cpu_ms_{k}": 1000 * (after[k] - before[k]) / total for k in after},
+        **{f"cpu_ms_{k}": 1000 * (after[k] - before.get(k, 0.0)) / total for k in after},
         "requests": len(times),
         "polled": len(polled),
         "median_ms": 1000 * statistics.median(times),
@@ -386,7 +396,7 @@ def throughput(stack: Stack, plans: int, clients: int = 8) -> dict[str, float]:
     t_end = time.perf_counter()
     after = stack.cpu()
     return {
-        **{f"cpu_ms_{k}": 1000 * (after[k] - before[k]) / len(ids) for k in after},
+        **{f"cpu_ms_{k}": 1000 * (after[k] - before.get(k, 0.0)) / len(ids) for k in after},
         "plans": len(ids),
         "submit_s": t_submitted - t0,
         "total_s": t_end - t0,
@@ -566,6 +576,13 @@ def main() -> int:
             f"cannot be below 8 x max(worker CPU, all CPU / {cores}) = {floor:.0f} ms; "
             f"one worker doing nothing but the in-process pipeline would still give "
             f"8 x {pipeline_ms:.1f} = {8 * pipeline_ms:.0f} ms"
+        )
+        procs = [lat[k] for k in sorted(lat) if k.startswith("cpu_ms_api_proc")]
+        print(
+            "   the API's processes apart, CPU per plan of all: "
+            + " / ".join(f"{v:.2f} ms" for v in procs)
+            + " (each client's keep-alive connection stays with the process that accepted "
+            "it: an uneven split costs CPU in the busier one)"
         )
         print(
             f"   CPU per 1,000-job plan, all processes: {total:.1f} ms = "
