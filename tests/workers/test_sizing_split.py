@@ -140,23 +140,32 @@ def test_split_point_finds_the_two_populations() -> None:
     assert split_point(np.array([1200, 2500, 5000], dtype=np.int64), 5400) == 0
 
 
+def planted(
+    seed: int, cap: int, m: int, long: tuple[int, int], fillers: tuple[int, ...], tail: int
+) -> list[int]:
+    """``m`` nodes, each one long job (uniform in ``long``) and short ones drawn from
+    ``fillers`` until fewer than ``tail`` ticks are left, then one job of exactly what is
+    left: every node full to the tick, so the total work proves ``m`` nodes."""
+    rng = np.random.default_rng(seed)
+    jobs: list[int] = []
+    for _ in range(m):
+        first = int(rng.integers(*long))
+        rest = cap - first
+        jobs.append(first)
+        while rest > 0:
+            pick = [x for x in fillers if x <= rest]
+            x = int(rng.choice(pick)) if rest > tail else rest
+            jobs.append(x)
+            rest -= x
+    return jobs
+
+
 def test_split_plan_meets_planted_optimum() -> None:
     """Planted: every node one long job and short jobs (30, 45, 60 and 31) filling it to
     the capacity; the total work proves the number of nodes, and the plan uses that many,
     a packing of every job."""
-    rng = np.random.default_rng(5)
     cap, m = 3000, 12
-    jobs: list[int] = []
-    for _ in range(m):
-        long = int(rng.integers(2000, 2800))
-        rest = cap - long
-        jobs.append(long)
-        while rest > 0:
-            pick = [x for x in (30, 31, 45, 60) if x <= rest]
-            x = int(rng.choice(pick)) if rest > 120 else rest
-            jobs.append(x)
-            rest -= x
-    q = np.array(jobs, dtype=np.int64)
+    q = np.array(planted(5, cap, m, (2000, 2800), (30, 31, 45, 60), 120), dtype=np.int64)
     assert int(q.sum()) == m * cap
     out = split_plan(q, cap, 1000)
     assert out is not None
@@ -187,20 +196,10 @@ def test_sizing_of_a_planted_farm_batch_is_proven() -> None:
     """A planted batch of renders and chunks (every node one render and chunks to the
     second, 400 nodes): the total work proves 400 nodes and the sizing finds and proves
     them within its budget."""
-    rng = np.random.default_rng(6)
     cap, m = 5400, 400
-    jobs: list[int] = []
-    for _ in range(m):
-        long = int(rng.integers(4300, 5300))
-        rest = cap - long
-        jobs.append(long)
-        while rest > 0:
-            pick = [x for x in (30, 45, 58, 60, 61, 90, 120) if x <= rest]
-            x = int(rng.choice(pick)) if rest > 150 else rest
-            jobs.append(x)
-            rest -= x
-    d = np.array(jobs, dtype=np.float64)
-    rng.shuffle(d)
+    fillers = (30, 45, 58, 60, 61, 90, 120)
+    d = np.array(planted(6, cap, m, (4300, 5300), fillers, 150), dtype=np.float64)
+    np.random.default_rng(6).shuffle(d)
     r = size(d, float(cap), time_budget=2.0, max_nodes=10**6)
     assert r.nodes_needed == m
     assert r.nodes_lower_bound == m
