@@ -33,6 +33,7 @@ from workers.planning.errors import Issue
 
 from .. import jobscan, limits, workform
 from ..auth import current
+from ..gate import GATE
 from ..metrics import finish_counters
 from ..payload import Columns
 from ..problems import (
@@ -173,21 +174,31 @@ def read_json_body(columns: bool = False) -> tuple[bytes, Any]:
     With ``columns``, a body (of ``jobscan.MIN_BYTES`` or more) whose jobs are all plain
     comes back as ``payload.Columns``, read from the bytes without a Python object per
     job (``service/jobscan.py``); any other body as its JSON value."""
+    raw = read_raw_body()
+    return raw, parse_json_body(raw, columns)
+
+
+def read_raw_body() -> bytes:
+    """The body's bytes, received (415 for a media type other than JSON)."""
     mt = request.mimetype or ""
     if not (mt == "application/json" or (mt.startswith("application/") and mt.endswith("+json"))):
         raise UnsupportedMediaType(
             f"the body must be application/json, not {mt or 'unspecified'}",
         )
-    raw = _read_body()
+    return _read_body()
+
+
+def parse_json_body(raw: bytes, columns: bool = False) -> Any:
+    """:func:`read_json_body` of a body received already: its JSON value or columns."""
     _check_elements(raw, services().settings)  # before a Python object is made for each
     parse_int = _int_parser(raw)
     big = columns and len(raw) >= jobscan.MIN_BYTES
     keep = services().settings.max_jobs  # past it, the count alone refuses the batch
     plain = jobscan.read_plain(raw, parse_int, keep) if big else None
     if plain is not None:
-        return raw, plain
+        return plain
     try:
-        return raw, json.loads(raw, parse_constant=_reject_constant, parse_int=parse_int)
+        return json.loads(raw, parse_constant=_reject_constant, parse_int=parse_int)
     except (ValueError, RecursionError) as exc:
         raise BadRequest(f"the body is not valid JSON: {exc}", [Issue((), str(exc))]) from None
 
@@ -411,7 +422,8 @@ def _queue_record(
 
     def replay(old: Record) -> Response:
         if wait and old.status not in FINISHED:
-            old = store.wait_for(res.kind, old.id, wait) or old
+            with GATE.released():
+                old = store.wait_for(res.kind, old.id, wait) or old
         code = 200 if old.status in FINISHED else 202
         return _respond(old, res, code, {**extra, "Idempotent-Replayed": "true"}, more)
 
@@ -475,7 +487,8 @@ def _queue_record(
         raise
     if not wait:  # as written: no read back (a worker may have it now)
         return _respond(store.written(res.kind, who, rid, meta, now), res, 202, extra, more)
-    rec = store.wait_for(res.kind, rid, wait)
+    with GATE.released():
+        rec = store.wait_for(res.kind, rid, wait)
     if rec is None:  # pragma: no cover - expired within the request
         raise NotFound(f"{res.kind} {rid} vanished")
     # 201 only answers a wait (the spec's promise)
@@ -599,19 +612,23 @@ def make_blueprint(res: Resource) -> Blueprint:
 
     @bp.post(res.path)
     def submit() -> Response:
-        raw, body = read_json_body(res.columns)
-        fingerprint = hashlib.sha256(raw).hexdigest()  # of what the client sent
-        raw, body = with_start(raw, body)
-        checked = res.validate(body, services().settings)
-        data = checked.data
-        meta = {
-            "method": data.get("method"),
-            "time_budget": repr(float(data["time_budget"])),
-            "name": data.get("name"),
-        }
-        counted = jobscan.counted(body) if isinstance(body, Columns) else body
-        extra = simulation_allowance(res.kind, counted, plain=checked.columns is not None)
-        return queue_record(res, raw, checked, meta, fingerprint, extra_seconds=extra)
+        raw = read_raw_body()  # received before the gate: a slow client holds no one up
+        with GATE.held(len(raw)):  # the CPU work, one request of the process at a time
+            body = parse_json_body(raw, res.columns)
+            # what the client sent, to tell a retry from another body under the same key
+            keyed = "Idempotency-Key" in request.headers
+            fingerprint = hashlib.sha256(raw).hexdigest() if keyed else ""
+            raw, body = with_start(raw, body)
+            checked = res.validate(body, services().settings)
+            data = checked.data
+            meta = {
+                "method": data.get("method"),
+                "time_budget": repr(float(data["time_budget"])),
+                "name": data.get("name"),
+            }
+            counted = jobscan.counted(body) if isinstance(body, Columns) else body
+            extra = simulation_allowance(res.kind, counted, plain=checked.columns is not None)
+            return queue_record(res, raw, checked, meta, fingerprint, extra_seconds=extra)
 
     @bp.get(res.path + "/<rid>")
     def read(rid: str) -> Response:
