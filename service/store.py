@@ -33,6 +33,7 @@ from __future__ import annotations
 import builtins
 import hashlib
 import json
+import math
 import secrets
 import time
 from collections.abc import Callable, Iterable
@@ -65,9 +66,25 @@ _ITEM_FIELDS = (
 )
 
 
+#: the last whole second :func:`rfc3339` wrote, and its text (a record's times share it)
+_SECOND: tuple[int, str] = (-1, "")
+
+
 def rfc3339(t: float) -> str:
-    """UTC timestamp with milliseconds, e.g. ``2026-12-01T23:59:00.123Z``."""
-    return datetime.fromtimestamp(t, UTC).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
+    """UTC timestamp with milliseconds, e.g. ``2026-12-01T23:59:00.123Z``: what
+    ``datetime.fromtimestamp(t, UTC)`` writes (microseconds rounded half to even, then
+    cut to milliseconds), with the whole second's text kept from the last call."""
+    global _SECOND
+    if not t >= 0:  # before 1970 (or not a number): the standard library's own way
+        return datetime.fromtimestamp(t, UTC).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
+    frac, whole = math.modf(t)
+    sec, us = int(whole), round(frac * 1e6)
+    if us >= 1_000_000:
+        sec, us = sec + 1, us - 1_000_000
+    seen = _SECOND
+    if seen[0] != sec:
+        seen = _SECOND = (sec, datetime.fromtimestamp(sec, UTC).strftime("%Y-%m-%dT%H:%M:%S"))
+    return f"{seen[1]}.{us // 1000:03d}Z"
 
 
 def _now_text() -> str:
@@ -479,10 +496,9 @@ class Store:
             rate.key if rate is not None else self.key(kind, rid),  # unused slot without
             idem,
         ]
+        ttl = self._keep(fields)
         args: list[Any] = [
-            self._keep(fields),
-            request_body,
-            result_json,
+            ttl,
             rid,
             3 * self.retention,
             new_id(now - 3 * self.retention)[:11],  # older ids can have no record left
@@ -493,11 +509,41 @@ class Store:
         ]
         for name, value in fields.items():
             args += [name, value]
-        got = self._create_finished(keys=keys, args=args + _increments(counters))
+        got = self._stored_finished(
+            keys, args + _increments(counters), request_body, result_json, ttl
+        )
         verdict = _text(got[0])
         if verdict == "bound":
             return verdict, json.loads(got[1])
         return verdict, int(got[1]) if verdict == "rate" else None
+
+    def _stored_finished(
+        self, keys: list[str], args: list[Any], body: bytes, result_json: str, ttl: int
+    ) -> Any:
+        """One MULTI, one round trip: the SETs of the request body (``keys[1]``) and the
+        result (``keys[2]``), then the ``CREATE_FINISHED`` script, which deletes the two
+        when it refuses. A record is never seen without them: the script runs only after
+        both are set, and a MULTI is applied whole (a store too full for it refuses all
+        of it; the append-only log replays all of it or none). Should the script fail
+        (Redis lost it in a restart), the two are deleted here and it runs again once."""
+        script = self._create_finished
+        for attempt in range(2):
+            pipe = self.conn.pipeline(transaction=True)
+            pipe.set(keys[1], body, ex=ttl)
+            pipe.set(keys[2], result_json, ex=ttl)
+            pipe.evalsha(script.sha, len(keys), *keys, *args)
+            *stored, got = pipe.execute(raise_on_error=False)
+            for r in stored:
+                if isinstance(r, Exception):  # pragma: no cover - a SET cannot fail alone
+                    raise r
+            if not isinstance(got, Exception):
+                return got
+            self.conn.delete(keys[1], keys[2])  # no record refers to them
+            if isinstance(got, redis.exceptions.NoScriptError) and attempt == 0:
+                self.conn.script_load(script.script)
+                continue
+            raise got
+        raise AssertionError("not reached")  # pragma: no cover
 
     def _refresh_and_notify(self, kind: str, rid: str) -> None:
         idem = self.conn.hget(self.key(kind, rid), "idem_key")

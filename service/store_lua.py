@@ -75,41 +75,47 @@ return old
 """
 )
 
-# A record written finished (a plan the API solved in its request), in one script: the
-# tenant's request count of this window first (service/limits.py: over the limit, nothing
-# is written), then the Idempotency-Key (bound already: nothing is written), then the
-# record, its request, its place in the tenant's index, the result, the done token and
-# the metrics. KEYS[1] record, [2] request, [3] result, [4] done list, [5] the tenant's
-# index, [6] metrics hash, [7] the tenant's request counter, [8] the idempotency record.
-# ARGV[1] seconds kept, [2] request body, [3] result JSON, [4] rid, [5] the index's
-# expiry, [6] the index's oldest id kept, [7] the request limit ('' when counted
-# already), [8] the counter's expiry, [9] the key's binding ('' without a key), [10] n
-# field pairs from ARGV[11], then the metric increments as in FINISH.
-# Returns {'ok'}, {'rate', count} or {'bound', binding}.
+# A record written finished (a plan the API solved in its request), in one script run in
+# the MULTI that first SETs its request body (KEYS[2]) and result JSON (KEYS[3]): the
+# tenant's request count of this window first (service/limits.py: over the limit, the
+# two are deleted and nothing is written), then the Idempotency-Key (bound already: the
+# same), then the record, its place in the tenant's index, the done token and the
+# metrics. The large values come as the SETs' own arguments: copied into Lua and out again
+# they cost Redis about a third more CPU (bench/RESULTS.md, issue 20).
+# KEYS[1] record, [2] request, [3] result, [4] done list, [5] the tenant's index, [6]
+# metrics hash, [7] the tenant's request counter, [8] the idempotency record. ARGV[1]
+# seconds kept, [2] rid, [3] the index's expiry, [4] the index's oldest id kept, [5] the
+# request limit ('' when counted already), [6] the counter's expiry, [7] the key's
+# binding ('' without a key), [8] n field pairs from ARGV[9], then the metric increments
+# as in FINISH. Returns {'ok'}, {'rate', count} or {'bound', binding}.
 CREATE_FINISHED = (
     """
-if ARGV[7] ~= '' then
+if ARGV[5] ~= '' then
   local n = redis.call('INCR', KEYS[7])
-  if n == 1 then redis.call('EXPIRE', KEYS[7], ARGV[8]) end
-  if n > tonumber(ARGV[7]) then return {'rate', n} end
+  if n == 1 then redis.call('EXPIRE', KEYS[7], ARGV[6]) end
+  if n > tonumber(ARGV[5]) then
+    redis.call('DEL', KEYS[2], KEYS[3])
+    return {'rate', n}
+  end
 end
 local ttl = tonumber(ARGV[1])
-if ARGV[9] ~= '' then
+if ARGV[7] ~= '' then
   local bound = redis.call('GET', KEYS[8])
-  if bound then return {'bound', bound} end
-  redis.call('SET', KEYS[8], ARGV[9], 'EX', ttl)
+  if bound then
+    redis.call('DEL', KEYS[2], KEYS[3])
+    return {'bound', bound}
+  end
+  redis.call('SET', KEYS[8], ARGV[7], 'EX', ttl)
 end
-local i = 11
-for k = 1, tonumber(ARGV[10]) do
+local i = 9
+for k = 1, tonumber(ARGV[8]) do
   redis.call('HSET', KEYS[1], ARGV[i], ARGV[i + 1])
   i = i + 2
 end
 redis.call('EXPIRE', KEYS[1], ttl)
-redis.call('SET', KEYS[2], ARGV[2], 'EX', ttl)
-redis.call('ZADD', KEYS[5], 0, ARGV[4])
-redis.call('EXPIRE', KEYS[5], ARGV[5])
-redis.call('ZREMRANGEBYLEX', KEYS[5], '-', '(' .. ARGV[6])
-redis.call('SET', KEYS[3], ARGV[3], 'EX', ttl)
+redis.call('ZADD', KEYS[5], 0, ARGV[2])
+redis.call('EXPIRE', KEYS[5], ARGV[3])
+redis.call('ZREMRANGEBYLEX', KEYS[5], '-', '(' .. ARGV[4])
 redis.call('RPUSH', KEYS[4], '1')
 redis.call('EXPIRE', KEYS[4], 60)
 """

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import random
 
 import fakeredis
@@ -210,3 +211,89 @@ def test_the_queued_record_is_what_was_stored(store: Store) -> None:
     assert got is not None
     made = store.written("plan", "local", kid, {}, 1.8e9 + 1)
     assert made.fields == {k: v for k, v in got.fields.items() if k != "idem_key"}
+
+
+@pytest.fixture(params=["fakeredis", "redis-server"])
+def any_store(request: pytest.FixtureRequest) -> Store:
+    """The store on fakeredis and on the session's real redis-server (a fresh prefix)."""
+    if request.param == "fakeredis":
+        return Store(fakeredis.FakeRedis(), prefix="t", retention=300)
+    import redis
+
+    url = request.getfixturevalue("redis_server")
+    prefix = "cf" + format(abs(hash(request.node.nodeid)) % 10**8, "08d")
+    return Store(redis.Redis.from_url(url), prefix=prefix, retention=300)
+
+
+def _finished(store: Store, rid: str, **kw: object) -> tuple[str, object]:
+    counters = (f"{store.prefix}:metrics:plan", [("i", "finished:done", 1)])
+    return store.create_finished(
+        "plan",
+        "local",
+        b'{"jobs": []}',
+        {"method": "longest_first", "time_budget": "1.0", "status": "done"},
+        rid=rid,
+        now=1.8e9,
+        result=('{"makespan":1.0}', counters),
+        **kw,  # type: ignore[arg-type]
+    )
+
+
+def test_a_record_written_finished_has_its_request_and_result_or_nothing(
+    any_store: Store,
+) -> None:
+    """``create_finished`` stores the record, its request and its result together (each
+    with the retention); a request over its rate, or with a key bound already, leaves no
+    key of its own behind; with the script unknown to Redis (a restart, ``SCRIPT
+    FLUSH``) it is loaded again and the record written once. Redis's MULTI semantics
+    (redis.io, "Transactions"), checked on fakeredis and on a real redis-server."""
+    from service.store import RateCount
+
+    store = any_store
+    parts = ("", "request", "result")
+    ok = new_id(1.8e9)
+    assert _finished(store, ok) == ("ok", None)
+    assert store.load_request("plan", ok) == b'{"jobs": []}'
+    rec = store.get("plan", ok)
+    assert rec is not None and rec.status == "done" and rec.result_json == '{"makespan":1.0}'
+    assert all(0 < store.conn.ttl(store.key("plan", ok, p)) <= 300 for p in parts)
+
+    counter = f"{store.prefix}:rate:local"
+    store.conn.set(counter, 5)
+    over = new_id(1.8e9)
+    verdict, _count = _finished(store, over, rate=RateCount(counter, 5, 60))
+    assert verdict == "rate"
+    assert [store.conn.exists(store.key("plan", over, p)) for p in parts] == [0, 0, 0]
+
+    first = new_id(1.8e9)
+    assert _finished(store, first, keyed=("k-1", "fp"))[0] == "ok"
+    second = new_id(1.8e9)
+    assert _finished(store, second, keyed=("k-1", "fp"))[0] == "bound"
+    assert [store.conn.exists(store.key("plan", second, p)) for p in parts] == [0, 0, 0]
+
+    store.conn.script_flush()
+    again = new_id(1.8e9)
+    assert _finished(store, again) == ("ok", None)
+    assert store.load_request("plan", again) == b'{"jobs": []}'
+    assert store.conn.hget(f"{store.prefix}:metrics:plan", "finished:done") == b"3"
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_timestamps_are_what_the_standard_library_writes(seed: int) -> None:
+    """``rfc3339`` equals ``datetime.fromtimestamp(t, UTC)`` formatted with milliseconds
+    (the standard library as the reference) on random instants, on instants a hair below
+    a whole second (where the microseconds round up into the next second) and on times
+    that repeat a second (the cached whole-second text)."""
+    from datetime import UTC, datetime
+
+    from service.store import rfc3339
+
+    def reference(t: float) -> str:
+        return datetime.fromtimestamp(t, UTC).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
+
+    rnd = random.Random(seed)
+    whole = [float(rnd.randrange(0, 4 * 10**9)) for _ in range(300)]
+    times = [rnd.uniform(0, 4e9) for _ in range(2000)]
+    times += [w + d for w in whole for d in (0.0, 0.9999994, 0.9999995, 0.9999996, 0.0005)]
+    times += [math.nextafter(w, 0.0) for w in whole] + [1.8e9 + k / 1000 for k in range(3000)]
+    assert [rfc3339(t) for t in times] == [reference(t) for t in times]
