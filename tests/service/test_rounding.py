@@ -16,11 +16,12 @@ from decimal import Decimal
 from fractions import Fraction
 from typing import Any
 
+import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from workers.planning.rounding import ceil_to, floor_to, grid_decimals
+from workers.planning.rounding import ceil_array, ceil_to, floor_to, grid_decimals
 
 
 def on_grid(x: float, d: int) -> bool:
@@ -49,6 +50,22 @@ def test_directed_rounding_is_tight_and_safe(a: float, b: float, d: int) -> None
     assert on_grid(lo, d) and on_grid(hi, d)
     assert grid_neighbour(lo, d, 1) > x
     assert grid_neighbour(hi, d, -1) < x
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    st.lists(st.one_of(times, st.integers(0, 4 * 10**9).map(float)), min_size=1, max_size=20),
+    st.integers(min_value=0, max_value=6),
+)
+def test_array_ceiling_is_tight_and_safe(values: list[float], d: int) -> None:
+    """``ceil_array`` (a plan's times at once) gives each value's smallest grid number
+    whose double is not below it, checked in exact rational arithmetic: on the grid, not
+    below the value, and one grid step lower is below it; arrays of whole seconds (the
+    common case, returned as they are) included. Values stay below 2**52 / 10**6, where
+    every grid step of six decimals is still a double of its own."""
+    for x, hi in zip(values, ceil_array(np.array(values), d).tolist(), strict=True):
+        assert Fraction(hi) >= Fraction(x) and on_grid(hi, d)
+        assert grid_neighbour(hi, d, -1) < Fraction(x)
 
 
 @settings(max_examples=400, deadline=None)
