@@ -93,8 +93,12 @@ def _now_text() -> str:
 
 def new_id(now: float | None = None) -> str:
     """A time-ordered id: 11 hex digits of milliseconds, then 10 random hex digits."""
-    ms = int((time.time() if now is None else now) * 1000)
-    return f"{ms:011x}{secrets.token_hex(5)}"
+    return id_time(time.time() if now is None else now) + secrets.token_hex(5)
+
+
+def id_time(t: float) -> str:
+    """The first 11 hex digits (the milliseconds) of the ids made at ``t``."""
+    return f"{int(t * 1000):011x}"
 
 
 @dataclass(frozen=True, slots=True)
@@ -135,12 +139,18 @@ class Claim:
 Counters = tuple[str, list[tuple[str, str, float]]]
 
 
+def _triples(counters: Counters) -> list[tuple[str, str, Any]]:
+    """The increments of ``counters`` as (op, field, amount) the scripts read: a float's
+    amount as its repr, a count's as an integer."""
+    return [
+        (op, name, repr(float(amount)) if op == "f" else int(amount))
+        for op, name, amount in counters[1]
+    ]
+
+
 def _increments(counters: Counters) -> list[Any]:
     """The increments of ``counters`` as the scripts' (op, field, amount) arguments."""
-    out: list[Any] = []
-    for op, name, amount in counters[1]:
-        out += [op, name, repr(float(amount)) if op == "f" else int(amount)]
-    return out
+    return [a for triple in _triples(counters) for a in triple]
 
 
 @dataclass(frozen=True, slots=True)
@@ -337,7 +347,7 @@ class Store:
         pipe.zadd(self.index_key(tenant, kind), {rid: 0})
         pipe.expire(self.index_key(tenant, kind), 3 * self.retention)
         # ids older than three retentions can have no record left: drop them
-        oldest = new_id(t - 3 * self.retention)[:11]
+        oldest = id_time(t - 3 * self.retention)
         pipe.zremrangebylex(self.index_key(tenant, kind), "-", "(" + oldest)
 
     def release_idempotency(self, tenant: str, kind: str, key: str) -> None:
@@ -501,17 +511,14 @@ class Store:
             ttl,
             rid,
             3 * self.retention,
-            new_id(now - 3 * self.retention)[:11],  # older ids can have no record left
+            id_time(now - 3 * self.retention),  # older ids can have no record left
             rate.limit if rate is not None else "",
             rate.expiry if rate is not None else 0,
             binding,
-            len(fields),
+            json.dumps({k: str(v) for k, v in fields.items()}, ensure_ascii=False),
+            json.dumps([[str(a) for a in triple] for triple in _triples(counters)]),
         ]
-        for name, value in fields.items():
-            args += [name, value]
-        got = self._stored_finished(
-            keys, args + _increments(counters), request_body, result_json, ttl
-        )
+        got = self._stored_finished(keys, args, request_body, result_json, ttl)
         verdict = _text(got[0])
         if verdict == "bound":
             return verdict, json.loads(got[1])

@@ -81,15 +81,17 @@ return old
 # two are deleted and nothing is written), then the Idempotency-Key (bound already: the
 # same), then the record, its place in the tenant's index, the done token and the
 # metrics. The large values come as the SETs' own arguments: copied into Lua and out again
-# they cost Redis about a third more CPU (bench/RESULTS.md, issue 20).
+# they cost Redis about a third more CPU; the record's fields and the metric increments
+# come as one JSON text each, a few arguments for the client to write instead of some
+# seventy (bench/RESULTS.md, issue 20).
 # KEYS[1] record, [2] request, [3] result, [4] done list, [5] the tenant's index, [6]
 # metrics hash, [7] the tenant's request counter, [8] the idempotency record. ARGV[1]
 # seconds kept, [2] rid, [3] the index's expiry, [4] the index's oldest id kept, [5] the
 # request limit ('' when counted already), [6] the counter's expiry, [7] the key's
-# binding ('' without a key), [8] n field pairs from ARGV[9], then the metric increments
-# as in FINISH. Returns {'ok'}, {'rate', count} or {'bound', binding}.
-CREATE_FINISHED = (
-    """
+# binding ('' without a key), [8] the fields as a JSON object of strings, [9] the metric
+# increments as a JSON array of [op ('i' or 'f'), field, amount as a string].
+# Returns {'ok'}, {'rate', count} or {'bound', binding}.
+CREATE_FINISHED = """
 if ARGV[5] ~= '' then
   local n = redis.call('INCR', KEYS[7])
   if n == 1 then redis.call('EXPIRE', KEYS[7], ARGV[6]) end
@@ -107,23 +109,27 @@ if ARGV[7] ~= '' then
   end
   redis.call('SET', KEYS[8], ARGV[7], 'EX', ttl)
 end
-local i = 9
-for k = 1, tonumber(ARGV[8]) do
-  redis.call('HSET', KEYS[1], ARGV[i], ARGV[i + 1])
-  i = i + 2
+local flat = {}
+for k, v in pairs(cjson.decode(ARGV[8])) do
+  flat[#flat + 1] = k
+  flat[#flat + 1] = v
 end
+redis.call('HSET', KEYS[1], unpack(flat))
 redis.call('EXPIRE', KEYS[1], ttl)
 redis.call('ZADD', KEYS[5], 0, ARGV[2])
 redis.call('EXPIRE', KEYS[5], ARGV[3])
 redis.call('ZREMRANGEBYLEX', KEYS[5], '-', '(' .. ARGV[4])
 redis.call('RPUSH', KEYS[4], '1')
 redis.call('EXPIRE', KEYS[4], 60)
-"""
-    + COUNT_FROM
-    + """
+for _, c in ipairs(cjson.decode(ARGV[9])) do
+  if c[1] == 'f' then
+    redis.pcall('HINCRBYFLOAT', KEYS[6], c[2], c[3])
+  else
+    redis.pcall('HINCRBY', KEYS[6], c[2], c[3])
+  end
+end
 return {'ok'}
 """
-)
 
 # KEYS[1] record; ARGV[1] allowed old statuses (comma separated), ARGV[2] new status,
 # ARGV[3..] field, value pairs. Returns the old status, or false when not allowed/missing.

@@ -226,12 +226,21 @@ def any_store(request: pytest.FixtureRequest) -> Store:
 
 
 def _finished(store: Store, rid: str, **kw: object) -> tuple[str, object]:
-    counters = (f"{store.prefix}:metrics:plan", [("i", "finished:done", 1)])
+    counters = (
+        f"{store.prefix}:metrics:plan",
+        [("i", "finished:done", 1), ("f", "solve_seconds:sum", 0.1)],
+    )
     return store.create_finished(
         "plan",
         "local",
         b'{"jobs": []}',
-        {"method": "longest_first", "time_budget": "1.0", "status": "done"},
+        {
+            "method": "longest_first",
+            "time_budget": "1.0",
+            "status": "done",
+            "name": 'Épisode 3 – plan ✨ "night"\n',
+            "attempts": 1,
+        },
         rid=rid,
         now=1.8e9,
         result=('{"makespan":1.0}', counters),
@@ -256,6 +265,9 @@ def test_a_record_written_finished_has_its_request_and_result_or_nothing(
     assert store.load_request("plan", ok) == b'{"jobs": []}'
     rec = store.get("plan", ok)
     assert rec is not None and rec.status == "done" and rec.result_json == '{"makespan":1.0}'
+    name = 'Épisode 3 – plan ✨ "night"\n'
+    assert store.conn.hget(store.key("plan", ok), "name") == name.encode()
+    assert store.conn.hget(store.key("plan", ok), "attempts") == b"1"
     assert all(0 < store.conn.ttl(store.key("plan", ok, p)) <= 300 for p in parts)
 
     counter = f"{store.prefix}:rate:local"
@@ -275,7 +287,9 @@ def test_a_record_written_finished_has_its_request_and_result_or_nothing(
     again = new_id(1.8e9)
     assert _finished(store, again) == ("ok", None)
     assert store.load_request("plan", again) == b'{"jobs": []}'
-    assert store.conn.hget(f"{store.prefix}:metrics:plan", "finished:done") == b"3"
+    metrics = store.conn.hgetall(f"{store.prefix}:metrics:plan")
+    assert metrics[b"finished:done"] == b"3"
+    assert float(metrics[b"solve_seconds:sum"]) == pytest.approx(0.3)  # three 0.1 s solves
 
 
 @pytest.mark.parametrize("seed", range(3))
