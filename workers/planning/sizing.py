@@ -5,7 +5,8 @@ capacity is the deadline, every job an item of ``duration / speed`` seconds
 (``../shared/references.md`` section 5). The answer is an interval, proven from both
 sides: ``nodes_needed`` comes with a plan that meets the deadline (first fit decreasing,
 best fit decreasing, on batches of long jobs and short fillers the long jobs first and
-their gaps filled exactly (``split_fill``, :mod:`.sizing_split`), the LP's fractional
+their gaps filled exactly (``split_fill``, :mod:`.sizing_split`; the long jobs moved by
+:mod:`.sizing_gaps` until the gaps fit the lower bound), the LP's fractional
 packing rounded (:mod:`.sizing_round`) or its dive (:mod:`.sizing_lp`), the perfect
 packing search of
 :mod:`workers.planning.perfect` at the lower bound, minimum bin slack, the local search
@@ -144,9 +145,10 @@ FILL_MIN_JOBS = 60
 #: beyond, LP_DENSE_SHARE before it (its refutations take milliseconds; no dives) and
 #: LP_SHARE of what is left after it (the perfect packing closes most of those batches)
 LP_FULL_JOBS_PER_NODE, LP_DENSE_SHARE = 2.9, 0.08
-#: the plan of long jobs and exact fills (:mod:`.sizing_split`) and the LP bound on the
-#: long jobs may use this share of the time left (the fills take about 20 us a node)
-SPLIT_SHARE = 0.7
+#: the plan of long jobs and exact fills (:mod:`.sizing_split`, with the gap repair of
+#: :mod:`.sizing_gaps`) and the LP bound on the long jobs may use this share of the time
+#: left (the fills take about 15 us a node; on 100,000 farm jobs the plan needs 0.4-0.5 s)
+SPLIT_SHARE = 0.9
 #: the exact search runs for lower bounds up to this many nodes (a node of it costs O(bins))
 EXACT_MAX_BINS = 1000
 #: best fit decreasing runs for batches up to this many jobs (its bin moves grow with n)

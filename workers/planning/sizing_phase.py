@@ -5,9 +5,11 @@
                  its dive);
 ``split_phase``  on batches of long jobs and short fillers (:mod:`.sizing_split`): the
                  filler-waste bound, the plan that packs the long jobs first and fills
-                 their gaps exactly, and the LP bound on the long jobs alone (on a farm
-                 night of renders and transcode chunks, the renders decide the optimum
-                 and their LP, without the chunks' rows, ends within the budget).
+                 their gaps exactly (their gaps repaired by :mod:`.sizing_gaps` so that
+                 the plan reaches the lower bound when it can), and the LP bound on the
+                 long jobs alone (on a farm night of renders and transcode chunks, the
+                 renders decide the optimum and their LP, without the chunks' rows,
+                 ends within the budget).
 """
 
 from __future__ import annotations
@@ -31,6 +33,9 @@ I64 = npt.NDArray[np.int64]
 #: the long-jobs plan may use this share of the split phase's time (the rest is for the
 #: LP bound on the long jobs), which runs on at most LONG_LP_LENGTHS distinct lengths
 SPLIT_PLAN_SHARE, LONG_LP_LENGTHS = 0.35, 2048
+#: the gap repair of the long jobs' plan at the lower bound may use this share of the
+#: split phase's time (within it, the fills keep the time they need)
+REGAP_SHARE = 0.5
 
 
 @dataclass
@@ -124,7 +129,10 @@ def split_phase(
     if state.lower >= state.upper or budget.expired():
         return
     left = budget.remaining()
-    out = split_plan(q_hi, cap, split, SPLIT_PLAN_SHARE * left, left)
+    # at the lower bound itself when the long jobs' gaps allow it (:mod:`.sizing_gaps`)
+    out = split_plan(
+        q_hi, cap, split, SPLIT_PLAN_SHARE * left, left, state.lower, REGAP_SHARE * left
+    )
     if out is None:  # out of time (every job fits a node: checked before)
         return
     bin_of, used, start = fit.settle(*out)

@@ -39,6 +39,8 @@ import time
 import numpy as np
 import numpy.typing as npt
 
+from .sizing_gaps import regap
+
 I64 = npt.NDArray[np.int64]
 I32 = npt.NDArray[np.int32]
 
@@ -58,6 +60,11 @@ PLENTY_EVERY, PLENTY_ALL_BINS = 16, 4000
 REPAIR_REACH, REPAIR_PASSES = 200, 2
 #: a long job may go to a bin up to this many ticks looser than its best fit
 PLACE_REACH = 200
+#: the gap repair leaves the fills this long a node (they take about 13 us a node on our
+#: machine, 0.21 s for 16,000 nodes; a measure of best fit's own time was tried instead
+#: and a garbage-collection pause in it starved the repair), and fills its placements up
+#: to REGAP_ROUNDS times (learning which gaps come out short)
+FILL_SECONDS_PER_BIN, REGAP_ROUNDS = 2e-5, 6
 
 
 def split_point(q: I64, cap: int) -> int:
@@ -222,12 +229,22 @@ def _repair(
 
 
 def split_plan(
-    q: I64, cap: int, split: int, seconds: float = 1.0, give_up: float | None = None
+    q: I64,
+    cap: int,
+    split: int,
+    seconds: float = 1.0,
+    give_up: float | None = None,
+    target: int = 0,
+    regap_seconds: float = 0.0,
 ) -> tuple[I32, int] | None:
     """A packing of ``q`` (whole ticks, rounded up) into bins of ``cap``, long jobs
     (``q >= split``) first and the short ones filled into the gaps; (bin of each job,
     bins used), or None when a job exceeds the capacity. The swaps stop after
-    ``seconds``; the whole construction gives up (None) after ``give_up`` seconds."""
+    ``seconds``; the whole construction gives up (None) after ``give_up`` seconds.
+
+    With a ``target`` node count, when the long jobs' gaps waste more than ``target``
+    nodes can afford, the gap repair of :mod:`.sizing_gaps` moves them for up to
+    ``regap_seconds`` (leaving the fills their time) before the gaps are filled."""
     now = time.perf_counter()
     t_end = now + seconds
     t_give_up = now + (give_up if give_up is not None else 1e9)
@@ -266,8 +283,87 @@ def split_plan(
         bin_of[j] = chosen
         if gaps[chosen] >= shortest_long:
             bisect.insort(open_gaps, (gaps[chosen], chosen))
-    _repair(q, long_idx, bin_of, gaps, _waste_of(good, cap), t_end)
+    waste = _waste_of(good, cap)
+    # what a fill may take: the gap repair ends that much before the construction gives up
+    reserve = FILL_SECONDS_PER_BIN * target
     window = FILL_WINDOW_SHORTS * (vals[-1] if vals else 0)
+    fills = (vals, cnt, window, waste)
+    best: tuple[int, I32, list[list[int]]] | None = None  # (bins, long jobs' bins, fills)
+    if long_idx.size and len(gaps) <= target and regap_seconds > 0:
+        t0 = time.perf_counter()
+        t_regap = min(t0 + regap_seconds, t_give_up - reserve)
+        best = _regap_rounds(q, cap, long_idx, bin_of, target, fills, t_regap, t_give_up)
+        if best is not None and best[0] <= target:
+            return _assemble(q, long_idx, short_idx, inv, best)
+        # the swaps get the time the repair took, within the fills' reserve
+        t_end = min(t_end + time.perf_counter() - t0, t_give_up - reserve)
+        if best is not None and time.perf_counter() > t_give_up - reserve:
+            return _assemble(q, long_idx, short_idx, inv, best)
+    _repair(q, long_idx, bin_of, gaps, waste, t_end)
+    rows = _fill_gaps(gaps, fills, cap, t_give_up)
+    if rows is None:
+        return None if best is None else _assemble(q, long_idx, short_idx, inv, best)
+    used = _bins_used(bin_of[long_idx], rows)
+    if best is not None and best[0] < used:
+        return _assemble(q, long_idx, short_idx, inv, best)
+    return _assemble(q, long_idx, short_idx, inv, (used, bin_of[long_idx], rows))
+
+
+def _regap_rounds(
+    q: I64,
+    cap: int,
+    long_idx: I64,
+    bin_of: I32,
+    target: int,
+    fills: tuple[list[int], list[int], int, list[int]],
+    t_regap: float,
+    t_give_up: float,
+) -> tuple[int, I32, list[list[int]]] | None:
+    """The gap repair (:func:`.sizing_gaps.regap`) of the long jobs' bins ``bin_of`` toward
+    ``target`` bins, each of its placements filled (:func:`_fill_gaps`): the best one
+    (bins used, long jobs' bins, fills), or None. When a fill misses the target, the gap
+    lengths whose fill came out short (their short lengths were used up elsewhere) are
+    priced at what they wasted, and the repair goes on from where it was."""
+    waste = np.asarray(fills[3], dtype=np.int64)  # what each gap wastes, as learnt
+    slack = target * cap - int(q.sum())
+    lengths = q[long_idx]
+    moved: I64 | None = bin_of[long_idx].astype(np.int64)
+    best: tuple[int, I32, list[list[int]]] | None = None
+    for seed in range(REGAP_ROUNDS):
+        assert moved is not None
+        moved = regap(lengths, moved, cap, target, waste, slack, t_regap, seed)
+        if moved is None:
+            break
+        gaps = (cap - np.bincount(moved, weights=lengths, minlength=target)).astype(np.int64)
+        gap_list: list[int] = gaps.tolist()
+        rows = _fill_gaps(gap_list, fills, cap, t_give_up)
+        if rows is None:
+            break
+        used = _bins_used(moved, rows)
+        if best is None or used < best[0]:
+            best = (used, moved.astype(np.int32), rows)
+        if used <= target or time.perf_counter() > t_regap:
+            break
+        vals = fills[0]
+        for row in rows:
+            b = row[0]
+            if b < target:
+                g = int(gaps[b])
+                left = g - sum(v * t for v, t in zip(vals, row[1:], strict=True))
+                waste[g] = max(int(waste[g]), left)
+    return best
+
+
+def _fill_gaps(
+    gaps: list[int], fills: tuple[list[int], list[int], int, list[int]], cap: int, t_give_up: float
+) -> list[list[int]] | None:
+    """How many short jobs of each length go to each bin: [bin, count of each length]
+    per bin, the gaps ``gaps`` smallest first, then new bins of ``cap`` for the short
+    jobs left (their numbers follow the gaps'); None after ``t_give_up``. ``fills`` are
+    the short lengths, their counts (not changed), the window of the exact fill and what
+    each gap wastes at best."""
+    vals, cnt0, window, waste = fills
+    cnt = list(cnt0)
     per_bin: list[list[int]] = []
     plenty = _plenty(vals, cnt)
     every = 1 if len(gaps) <= PLENTY_ALL_BINS else PLENTY_EVERY
@@ -278,25 +374,57 @@ def split_plan(
             continue
         if k % every == 0:  # the counts change slowly: sorted again now and then
             plenty = _plenty(vals, cnt)
-        per_bin.append([b, *_fill(gaps[b], vals, cnt, window, plenty)])
+        # a node of short jobs alone: all of it by the exact subset-sum (the last ones
+        # must split what is left exactly; the greedy part would use it up unevenly)
+        g = gaps[b]
+        take = _fill(g, vals, cnt, cap if g == cap else window, plenty)
+        if g < cap and g - sum(v * t for v, t in zip(vals, take, strict=True)) > waste[g]:
+            # short of what the whole multiset fills (the lengths the greedy part took
+            # are used up): the whole gap by the exact subset-sum instead
+            for i, t in enumerate(take):
+                cnt[i] += t
+            take = _fill(g, vals, cnt, g, plenty)
+        per_bin.append([b, *take])
+    b = len(gaps)
     while vals and sum(cnt) > 0:  # the short jobs left fill new nodes
         if time.perf_counter() > t_give_up:
             return None
-        b = len(gaps)
-        gaps.append(cap)
         before = sum(cnt)
-        per_bin.append([b, *_fill(cap, vals, cnt, window)])
+        per_bin.append([b, *_fill(cap, vals, cnt, cap)])
+        b += 1
         if sum(cnt) == before:  # pragma: no cover - every short job fits an empty node
             return None
+    return per_bin
+
+
+def _bins_used(long_bins: I32 | I64, rows: list[list[int]]) -> int:
+    """Bins holding a job: those of the long jobs and those the fills put short jobs in."""
+    used = set(long_bins.tolist())
+    used.update(row[0] for row in rows if any(row[1:]))
+    return len(used)
+
+
+def _assemble(
+    q: I64, long_idx: I64, short_idx: I64, inv: I64, plan: tuple[int, I32, list[list[int]]]
+) -> tuple[I32, int]:
+    """The packing of every job (bins numbered 0 .. m - 1) from the long jobs' bins and
+    the fills' counts per bin: (bin of each job, bins used)."""
+    _, long_bins, rows = plan
+    # zero-length jobs: with the first long job (or the first short ones), not on a bin
+    # the gap repair may have emptied
+    zero_bin = int(long_bins[0]) if long_bins.size else (rows[0][0] if rows else 0)
+    bin_of = np.full(q.size, zero_bin, dtype=np.int64)
+    bin_of[long_idx] = long_bins
     # hand the short jobs of each length out to the bins, in the counts chosen
-    of_len = [short_idx[inv == i].tolist() for i in range(len(vals))]
-    for row in per_bin:
+    nvals = len(rows[0]) - 1 if rows else 0
+    of_len = [short_idx[inv == i].tolist() for i in range(nvals)]
+    for row in rows:
         b = row[0]
         for i, k in enumerate(row[1:]):
             for _ in range(k):
                 bin_of[of_len[i].pop()] = b
     used = np.unique(bin_of)  # number the bins in use 0 .. m - 1
-    renum = np.full(len(gaps), -1, dtype=np.int64)
+    renum = np.full(int(used[-1]) + 1, -1, dtype=np.int64)
     renum[used] = np.arange(used.size)
     return renum[bin_of].astype(np.int32), int(used.size)
 
