@@ -60,6 +60,8 @@ def read_columns(
     job_ids: Sequence[str],
     durations: npt.ArrayLike,
     groups: Sequence[str | None] | None = None,
+    *,
+    checked: bool = False,
 ) -> Instance:
     """Build from a ``POST /v1/plans`` body whose jobs come as columns.
 
@@ -68,13 +70,14 @@ def read_columns(
     ``id``, ``duration`` and ``group``. The result and every error are exactly those of
     :func:`read_instance` on the body with ``jobs`` written out as objects; the jobs are
     checked column by column (no Python object per job), so this is the fast way in
-    for a batch that was already read into columns.
+    for a batch that was already read into columns. ``checked``: the columns passed
+    ``schemas.job_columns`` already (the same per-job checks), so they are not run again.
     """
     body = in_seconds(body)
     ids = tuple(job_ids)
     d = np.asarray(durations, dtype=np.float64)
     grp = tuple(groups) if groups is not None else None
-    if not _plain_columns(ids, d, grp):  # let the per-job reader name every problem
+    if not checked and not _plain_columns(ids, d, grp):  # the per-job reader names each
         jobs: list[dict[str, Any]] = [
             {"id": i, "duration": x} for i, x in zip(ids, d.tolist(), strict=False)
         ]

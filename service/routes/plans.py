@@ -47,7 +47,10 @@ def read_plan(body: Any, settings: Settings) -> Validated:
     data, cols = fast
     envelope = {k: v for k, v in body.items() if k != "jobs"}
     return _checked(
-        data, payload.Columns(envelope, cols.ids, cols.durations, cols.groups), settings
+        data,
+        payload.Columns(envelope, cols.ids, cols.durations, cols.groups),
+        settings,
+        checked=True,  # job_columns ran every per-job check of read_columns
     )
 
 
@@ -71,11 +74,14 @@ def _read_scanned(cols: payload.Columns, settings: Settings) -> Validated:
     )
 
 
-def _checked(data: dict[str, Any], cols: payload.Columns, settings: Settings) -> Validated:
+def _checked(
+    data: dict[str, Any], cols: payload.Columns, settings: Settings, *, checked: bool = False
+) -> Validated:
     """The core's semantic checks of a body of plain jobs in columns (no tags in columns;
     limits and slots in the envelope make it a stage graph), and what they made."""
     env = cols.envelope
-    problem = with_stages(read_columns(env, cols.ids, cols.durations, cols.groups), env)
+    plain = read_columns(env, cols.ids, cols.durations, cols.groups, checked=checked)
+    problem = with_stages(plain, env)
     work = plain_work(problem, read_spread(env), clock.echo(env))  # all but the jobs
     if len(cols.ids) > settings.solve_here_max_jobs:
         problem = None  # only a small plan may be solved here: not held while encoding
