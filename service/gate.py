@@ -11,7 +11,10 @@ turn for that work, so the lock changes hands between requests instead.
 What never runs behind the gate: receiving the body from the network (a slow client must
 not hold the others up), a wait for a queued record (:meth:`Gate.released`), and the
 reading of a body longer than :data:`GATE_MAX_BYTES` (its work would hold every small
-request of the process behind it for that long; it runs beside them, as before).
+request of the process behind it for that long; it runs beside them, as before). The
+store write does run behind it (its client work contends too); should Redis hang, the
+holder may wait for it up to the socket timeout, so no request waits for the gate more
+than :data:`GATE_WAIT_SECONDS`: past that it runs beside the holder, as before the gate.
 """
 
 from __future__ import annotations
@@ -24,15 +27,21 @@ from contextlib import contextmanager
 #: work) are read and planned behind the gate; longer ones beside it
 GATE_MAX_BYTES = 1 << 20
 
+#: the longest a request waits for the gate (a queue of eight 1,000-job plans is some
+#: 40 ms) before it runs beside the holder
+GATE_WAIT_SECONDS = 1.0
+
 
 class Gate:
     """A lock taken for a request's CPU work, held by one thread of the process at a
     time. Re-entrant per thread (a nested :meth:`held` is a no-op), and
-    :meth:`released` lets it go around a wait."""
+    :meth:`released` lets it go around a wait. Waiting for it is bounded by ``wait``
+    seconds, after which the block runs without it."""
 
-    def __init__(self) -> None:
+    def __init__(self, wait: float = GATE_WAIT_SECONDS) -> None:
         self._lock = threading.Lock()
         self._mine = threading.local()
+        self.wait = wait
 
     def holding(self) -> bool:
         """Whether this thread holds the gate."""
@@ -46,13 +55,13 @@ class Gate:
         if nbytes > GATE_MAX_BYTES or self.holding():
             yield
             return
-        self._lock.acquire()
-        self._mine.held = True
+        self._mine.held = self._lock.acquire(timeout=self.wait)
         try:
             yield
         finally:
-            self._mine.held = False
-            self._lock.release()
+            if self._mine.held:
+                self._mine.held = False
+                self._lock.release()
 
     @contextmanager
     def released(self) -> Iterator[None]:
@@ -66,8 +75,7 @@ class Gate:
         try:
             yield
         finally:
-            self._lock.acquire()
-            self._mine.held = True
+            self._mine.held = self._lock.acquire(timeout=self.wait)
 
 
 #: the gate of this process (each gunicorn worker process has its own)

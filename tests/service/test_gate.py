@@ -66,3 +66,31 @@ def test_nested_holds_and_waits_let_others_in() -> None:
         beside.start()
         assert ran.wait(5)  # a large body runs beside the holder
         beside.join()
+
+
+def test_a_stuck_holder_delays_others_by_the_wait_at_most() -> None:
+    """A holder that never lets go (a store call hanging on Redis) holds another request up
+    for the gate's wait, then that request runs beside it, and letting go afterwards does
+    not release a gate it never took."""
+    gate = Gate(wait=0.2)
+    stuck, release = threading.Event(), threading.Event()
+
+    def holder() -> None:
+        with gate.held():
+            stuck.set()
+            release.wait(10)
+
+    t = threading.Thread(target=holder)
+    t.start()
+    assert stuck.wait(5)
+    t0 = time.monotonic()
+    with gate.held():
+        assert not gate.holding()  # running beside the holder
+        with gate.released():  # nothing to let go
+            pass
+    waited = time.monotonic() - t0
+    assert 0.15 <= waited < 2.0
+    release.set()
+    t.join()
+    with gate.held():  # the holder let go: the gate is free again
+        assert gate.holding()
